@@ -11,3 +11,7 @@ from .lattice import Supercell, get_lattice  # noqa: E402
 from .solution import Solution, PHASES  # noqa: E402
 
 __all__ = ["Model", "ConfigError", "Supercell", "get_lattice", "Solution", "PHASES", "__version__"]
+
+from .api import solve  # noqa: E402
+
+__all__ += ["solve"]

@@ -101,7 +101,7 @@ class Model:
     mu: float = 0.0
     n_max: int | None = None
     unit: str = "V"
-    _checked: bool = field(default=False, repr=False, compare=False)
+    _auto_n_max: bool = field(default=False, repr=False, compare=False)
 
     def __post_init__(self):
         try:
@@ -134,6 +134,7 @@ class Model:
                 raise ConfigError("U: soft-core bosons need U > 0 (U = 0 is unbounded); use U = inf for hard-core")
             if self.n_max is None:
                 set_("n_max", self.default_n_max(self.mu, self.U))
+                set_("_auto_n_max", True)
             else:
                 if isinstance(self.n_max, bool) or int(self.n_max) != self.n_max or self.n_max < 1:
                     raise ConfigError(f"n_max: must be an integer >= 1, got {self.n_max!r}")
@@ -168,6 +169,10 @@ class Model:
         return "V" if self.hardcore else "U"
 
     def replace(self, **changes) -> "Model":
+        """A copy with ``changes``; a default n_max is re-derived unless given."""
+        if self._auto_n_max and "n_max" not in changes:
+            changes["n_max"] = None
+        changes.setdefault("_auto_n_max", False)
         return replace(self, **changes)
 
     def to_dict(self) -> dict:

@@ -1,0 +1,119 @@
+"""One front door over every method: ``phasemap.solve(model, method=..., **options)``."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .classify import Thresholds, classify, order_parameters
+from .model import ConfigError, Model, check_keys
+from .params import ParamBatch
+from .solution import Solution, UNCONVERGED
+
+__all__ = ["solve", "solutions_from_batch", "METHODS", "phase_codes"]
+
+METHODS = ("mf", "cmf", "ed")
+
+
+def phase_codes():
+    from .solution import PHASES
+
+    return {name: i for i, name in enumerate(PHASES + (UNCONVERGED,))}
+
+
+def solutions_from_batch(result, thresholds: Thresholds = Thresholds(), method: str = "mf",
+                         models: list[Model] | None = None) -> list[Solution]:
+    """Turn a batched mean-field-type result into one classified Solution per point.
+
+    ``result`` needs: batch, cell, seeds, energy, converged, iterations, residual, n, phi,
+    top_weight, options, best() (see :class:`phasemap.mf.MFBatchResult`).
+    """
+    best = result.best()
+    sols = []
+    for p in range(result.batch.size):
+        model = models[p] if models is not None else result.batch.model(p)
+        k = int(best[p])
+        flags = []
+        branches = [
+            {"seed": s.name, "energy": float(result.energy[p, j]), "converged": bool(result.converged[p, j]),
+             "filling": float(result.n[p, j].mean()), "condensate_max": float(result.phi[p, j].max())}
+            for j, s in enumerate(result.seeds)
+        ]
+        if k < 0:
+            k = int(np.argmin(result.residual[p]))
+            conv = False
+        else:
+            conv = True
+            lower = (~result.converged[p]) & (result.energy[p] < result.energy[p, k] - 1e-8 * max(1, abs(result.energy[p, k])))
+            if lower.any():
+                flags.append("lower-energy-unconverged-seed")
+        n, phi = result.n[p, k], np.abs(result.phi[p, k])
+        if not model.hardcore and result.top_weight[p, k] > result.options.weight_warn:
+            flags.append(f"n_max-weight {result.top_weight[p, k]:.1e} (increase n_max)")
+        phase, label, pattern = classify(model, result.cell, n, phi, conv, thresholds)
+        sols.append(Solution(
+            model=model, method=method, phase=phase, label=label, filling=float(n.mean()),
+            densities=n.copy(), condensate=phi.copy(), energy=float(result.energy[p, k]), converged=conv,
+            iterations=int(result.iterations[p, k]), residual=float(result.residual[p, k]),
+            seed=result.seeds[k].name, pattern=pattern, order=order_parameters(result.cell, n, phi),
+            flags=flags, sites=result.cell.sites.copy(), branches=branches,
+        ))
+    return sols
+
+
+def _solve_meanfield(model: Model, method: str, options: dict) -> Solution:
+    from .classify import Thresholds
+
+    th = options.pop("thresholds", Thresholds())
+    if isinstance(th, dict):
+        check_keys("thresholds", th, Thresholds.__dataclass_fields__)
+        th = Thresholds(**th)
+    compress = options.pop("compressibility", True)
+    dmu = options.pop("dmu", 1e-4 * model.scale)
+    models = [model] + ([model.replace(mu=model.mu - dmu), model.replace(mu=model.mu + dmu)] if compress else [])
+    batch = ParamBatch.from_models(models)
+    if method == "mf":
+        from .mf import MFOptions, solve_batch
+
+        check_keys("mf options", options, MFOptions.__dataclass_fields__)
+        res = solve_batch(batch, MFOptions(**options))
+    else:
+        from .cmf import solve_cmf_batch
+
+        res = solve_cmf_batch(batch, **options)
+    sols = solutions_from_batch(res, th, method=method, models=models)
+    sol = sols[0]
+    if compress:
+        if all(s.converged for s in sols):
+            sol.compressibility = (sols[2].filling - sols[1].filling) / (2 * dmu)
+        else:
+            sol.flags.append("compressibility-unavailable")
+    return sol
+
+
+def solve(model: Model, method: str = "mf", **options) -> Solution:
+    """Ground state of ``model`` at its parameters.
+
+    Parameters
+    ----------
+    model : Model
+    method : {"mf", "cmf", "ed"}
+        Site-decoupled mean field, cluster mean field (``cluster=...``), exact
+        diagonalization of a periodic cluster (``cluster=..., particles=N``).
+    **options
+        Method options (see :class:`phasemap.mf.MFOptions`, :mod:`phasemap.cmf`,
+        :mod:`phasemap.ed`), plus ``thresholds`` (:class:`phasemap.classify.Thresholds` or
+        dict) and ``compressibility`` (bool, default True: dn/dmu by central difference).
+
+    Returns
+    -------
+    Solution
+    """
+    if not isinstance(model, Model):
+        raise ConfigError(f"model: expected a phasemap.Model, got {type(model).__name__}")
+    if method not in METHODS:
+        raise ConfigError(f"method: unknown method {method!r}; allowed: {', '.join(METHODS)}")
+    if method == "ed":
+        from .ed import solve_ed
+
+        return solve_ed(model, **options)
+    return _solve_meanfield(model, method, dict(options))
