@@ -203,7 +203,7 @@ def _iterate(ops: CellOps, batch: ParamBatch, n0, phi0, opt: MFOptions):
         if hard:
             n, ph, nn1, top = _local_hardcore(Phi, eps)
         else:
-            n, ph, nn1, top = _local_softcore(Phi, eps, U[sel], batch.n_max)
+            n, ph, nn1, top = _local_softcore(Phi, eps, U[sel][:, None], batch.n_max)
         return np.concatenate([n, ph], axis=1), nn1, top
 
     active = np.arange(rows)

@@ -78,7 +78,7 @@ class Model:
     t : float or sequence of float
         Hopping amplitude, one number or one per bond family. Must be >= 0
         (frustrated hopping t < 0 is not supported yet).
-    V : float or sequence of float
+    V : float or sequence of float, default 0
         Nearest-neighbour interaction, one number or one per bond family.
     U : float, default inf
         On-site repulsion, >= 0; ``inf`` (or the string "inf"/"hardcore") = hard-core bosons.
@@ -95,7 +95,7 @@ class Model:
 
     lattice: str = "triangular"
     t: Any = 0.0
-    V: Any = 1.0
+    V: Any = 0.0
     U: float = math.inf
     V2: float = 0.0
     mu: float = 0.0
@@ -159,14 +159,16 @@ class Model:
 
     @property
     def scale(self) -> float:
-        """Reference energy for ratio axes: max V for hard-core, U for soft-core."""
+        """Reference energy for ratio axes: max V for hard-core (max t if V = 0), U for soft-core."""
         if self.hardcore:
-            return max(max(abs(v) for v in self.V), 1e-300)
+            return max(abs(v) for v in self.V) or max(self.t) or 1.0
         return self.U
 
     @property
     def scale_name(self) -> str:
-        return "V" if self.hardcore else "U"
+        if self.hardcore:
+            return "V" if any(self.V) else ("t" if any(self.t) else self.unit)
+        return "U"
 
     def replace(self, **changes) -> "Model":
         """A copy with ``changes``; a default n_max is re-derived unless given."""
