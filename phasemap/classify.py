@@ -25,7 +25,7 @@ import numpy as np
 from .lattice import Supercell, patterns_for
 from .solution import UNCONVERGED
 
-__all__ = ["Thresholds", "classify", "filling_label", "recognise_pattern", "order_parameters"]
+__all__ = ["Thresholds", "classify", "classify_arrays", "filling_label", "order_parameters"]
 
 
 @dataclass(frozen=True)
@@ -56,24 +56,6 @@ def filling_label(n: float, max_denominator: int = 12) -> str:
     return f"{f.numerator}" if f.denominator == 1 else f"{f.numerator}/{f.denominator}"
 
 
-def recognise_pattern(cell: Supercell, densities, tol: float) -> str:
-    """Name of the simplest named pattern whose sublattices carry constant density."""
-    n = np.asarray(densities, float)
-    best = None
-    for name, pat in patterns_for(cell.lattice).items():
-        try:
-            sub = pat.sublattice(cell)
-        except Exception:  # noqa: BLE001 - pattern not commensurate with this cell
-            continue
-        # the pattern label must itself be periodic in the cell
-        if not _label_periodic(cell, pat):
-            continue
-        ok = all(np.ptp(n[sub == k]) <= tol for k in range(pat.n_sub) if np.any(sub == k))
-        if ok and (best is None or pat.n_sub < best[0]):
-            best = (pat.n_sub, name)
-    return best[1] if best else "other"
-
-
 def _label_periodic(cell: Supercell, pat) -> bool:
     lab = lambda ij: np.asarray(pat.label(ij[:, 0], ij[:, 1])) % pat.n_sub  # noqa: E731
     base = lab(cell.sites)
@@ -98,35 +80,73 @@ def order_parameters(cell: Supercell, densities, condensate) -> dict:
     return out
 
 
+def classify_arrays(model, cell: Supercell, densities, condensate, converged,
+                    thresholds: Thresholds = Thresholds()):
+    """Vectorized classification of P states on ``cell``.
+
+    Returns ``(phase, label, pattern)``: three object arrays of shape (P,).
+    """
+    th = thresholds
+    n = np.atleast_2d(np.asarray(densities, float))
+    phi = np.atleast_2d(np.asarray(condensate, float))
+    conv = np.broadcast_to(np.asarray(converged, bool), n.shape[:1])
+    nbar = n.mean(1)
+    contrast = np.ptp(n, axis=1)
+    cond = phi.max(1) > th.condensate_tol
+    modulated = contrast > th.contrast_tol
+    # simplest named pattern with constant density on each sublattice
+    pattern = np.full(len(n), "other", dtype=object)
+    pattern[~modulated] = "uniform"
+    best_nsub = np.full(len(n), np.inf)
+    tol = max(th.contrast_tol, 1e-9)
+    for name, pat in patterns_for(cell.lattice).items():
+        if name == "uniform" or not _label_periodic(cell, pat):
+            continue
+        sub = pat.sublattice(cell)
+        ok = np.ones(len(n), bool)
+        for k in range(pat.n_sub):
+            if np.any(sub == k):
+                ok &= np.ptp(n[:, sub == k], axis=1) <= tol
+        take = ok & modulated & (pat.n_sub < best_nsub)
+        pattern[take] = name
+        best_nsub[take] = pat.n_sub
+    phase = np.empty(len(n), dtype=object)
+    label = np.empty(len(n), dtype=object)
+    k_int = np.rint(nbar)
+    integer = np.abs(nbar - k_int) <= th.integer_tol
+    for p in range(len(n)):  # cheap string assembly; the physics above is vectorized
+        if not conv[p]:
+            phase[p], label[p], pattern[p] = UNCONVERGED, UNCONVERGED, ""
+            continue
+        word = _pattern_word(pattern[p])
+        pname = " " + word if word else ""
+        if cond[p]:
+            if modulated[p]:
+                phase[p], label[p] = "supersolid", f"supersolid{pname}"
+            else:
+                phase[p], label[p] = "superfluid", "superfluid"
+        elif not modulated[p] and integer[p]:
+            k = int(k_int[p])
+            if k == 0:
+                phase[p] = label[p] = "empty"
+            elif model.hardcore and k == 1:
+                phase[p] = label[p] = "full"
+            else:
+                phase[p], label[p] = "mott", f"mott n={k}"
+        elif not modulated[p]:
+            # uniform, no condensate, non-integer filling: only at degenerate points (t = 0 edges)
+            phase[p], label[p] = "solid", f"solid {filling_label(nbar[p], th.max_denominator)} (degenerate)"
+        else:
+            phase[p], label[p] = "solid", f"solid {filling_label(nbar[p], th.max_denominator)}{pname}"
+    return phase, label, pattern
+
+
 def classify(model, cell: Supercell, densities, condensate, converged: bool = True,
              thresholds: Thresholds = Thresholds()) -> tuple[str, str, str]:
     """Return ``(phase, label, pattern)`` for one state on ``cell``."""
-    if not converged:
-        return UNCONVERGED, UNCONVERGED, ""
-    th = thresholds
-    n = np.asarray(densities, float)
-    nbar = float(n.mean())
-    contrast = float(np.ptp(n))
-    cond = float(np.max(condensate)) > th.condensate_tol
-    modulated = contrast > th.contrast_tol
-    pattern = recognise_pattern(cell, n, max(th.contrast_tol, 1e-9)) if modulated else "uniform"
-    word = _pattern_word(pattern)
-    pname = " " + word if word else ""
-    if cond:
-        if modulated:
-            return "supersolid", f"supersolid{pname}", pattern
-        return "superfluid", "superfluid", "uniform"
-    if not modulated:
-        k = round(nbar)
-        if abs(nbar - k) <= th.integer_tol:
-            if k == 0:
-                return "empty", "empty", "uniform"
-            if model.hardcore and k == 1:
-                return "full", "full", "uniform"
-            return "mott", f"mott n={k}", "uniform"
-        # uniform, no condensate, non-integer: only at degenerate points (t = 0 edges)
-        return "solid", f"solid {filling_label(nbar, th.max_denominator)} (uniform, degenerate)", "uniform"
-    return "solid", f"solid {filling_label(nbar, th.max_denominator)}{pname}", pattern
+    ph, lab, pat = classify_arrays(model, cell, np.asarray(densities)[None], np.asarray(condensate)[None],
+                                   np.array([converged]), thresholds)
+    return ph[0], lab[0], pat[0]
 
 
 def _pattern_word(pattern: str) -> str:

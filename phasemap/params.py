@@ -8,7 +8,7 @@ import numpy as np
 
 from .model import ConfigError, Model
 
-__all__ = ["ParamBatch", "AXES", "grid", "axis_names"]
+__all__ = ["ParamBatch", "AXES", "grid", "points", "axis_names"]
 
 
 @dataclass
@@ -89,6 +89,14 @@ def grid(model: Model, axes: dict, relative: bool = False) -> tuple[ParamBatch, 
     With ``relative=True`` values are in units of ``model.scale`` (V for hard-core, U for
     soft-core), i.e. the axes are the ratios t/V, mu/V (or t/U, mu/U).
     """
+    vals = [np.atleast_1d(np.asarray(v, float)) for v in axes.values()]
+    shape = tuple(len(v) for v in vals)
+    mesh = [g.ravel() for g in np.meshgrid(*vals, indexing="ij")]
+    return points(model, dict(zip(axes, mesh)), relative), shape
+
+
+def points(model: Model, axes: dict, relative: bool = False) -> ParamBatch:
+    """Parameter points ``k`` with ``axes[name][k]`` (equal-length arrays), as arrays."""
     names = list(axes)
     allowed = axis_names(model)
     for n in names:
@@ -100,9 +108,10 @@ def grid(model: Model, axes: dict, relative: bool = False) -> tuple[ParamBatch, 
     for n, v in zip(names, vals):
         if v.ndim != 1 or v.size == 0 or not np.all(np.isfinite(v)):
             raise ConfigError(f"scan axis {n}: values must be a non-empty 1-D list of finite numbers")
-    shape = tuple(len(v) for v in vals)
-    mesh = [g.ravel() for g in np.meshgrid(*vals, indexing="ij")]
-    P = int(np.prod(shape))
+    if len({len(v) for v in vals}) != 1:
+        raise ConfigError("scan points: every axis needs the same number of values")
+    mesh = vals
+    P = len(vals[0])
     scale = model.scale if relative else 1.0
     t = np.tile(np.array(model.t, float), (P, 1))
     V = np.tile(np.array(model.V, float), (P, 1))
@@ -135,4 +144,4 @@ def grid(model: Model, axes: dict, relative: bool = False) -> tuple[ParamBatch, 
         need = Model.default_n_max(float(mu.max()), float(U.min()))
         if need > model.n_max:
             base = model.replace(n_max=need)
-    return ParamBatch(base, t, V, U, V2, mu), shape
+    return ParamBatch(base, t, V, U, V2, mu)

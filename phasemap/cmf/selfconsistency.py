@@ -1,0 +1,336 @@
+r"""Cluster mean-field self-consistency over many parameter points and seeds.
+
+The lattice is tiled by copies of one cluster, all in the same state :math:`|\psi\rangle`
+(cluster-product state). Bonds inside the cluster are kept exactly; a bond
+:math:`(a, b')` leaving it, whose outside end :math:`b'` is equivalent to cluster site
+:math:`b`, is decoupled with the expectation values of the cluster itself (DESIGN.md §2):
+
+.. math::
+
+    b_a^\dagger b_{b'} + h.c. &\to \phi_b (b_a + b_a^\dagger) + \phi_a (b_b + b_b^\dagger)
+        - 2\phi_a\phi_b,\\
+    n_a n_{b'} &\to \langle n_b\rangle n_a + \langle n_a\rangle n_b - \langle n_a\rangle\langle n_b\rangle,
+
+with real :math:`\phi = \langle b\rangle \ge 0` (t >= 0). The boundary fields are
+:math:`\Phi_a = \sum_{b} t_f M^f_{ab}\phi_b` and
+:math:`\epsilon_a = \sum_b V_f M^f_{ab}\langle n_b\rangle + V_2 M^{(2)}_{ab}\langle n_b\rangle`
+(:meth:`phasemap.cmf.clusters.Cluster.inter_matrices`). The energy per site reported is the
+*variational* energy of the cluster-product state built from the final ground state,
+
+.. math::
+
+    E/N = \frac{1}{N_C}\Big[\langle H_{\rm intra}\rangle
+          + \sum_{\rm decoupled\ (a,b,f)} \big(-2 t_f \phi_a\phi_b + V_f n_a n_b\big)
+          + V_2 \sum_{\rm decoupled\ nnn} n_a n_b\Big],
+
+which counts every lattice bond exactly once (not the sum of cluster eigenvalues, which
+double-counts the decoupled bonds). With every bond decoupled (one-site cluster, or any
+cluster without intra bonds) this is the site-decoupled mean field of :mod:`phasemap.mf`.
+
+Iteration: the map :math:`x=(n,\phi) \to G(x)` (ground-state expectation values) is
+solved by linear mixing plus Anderson (type II) acceleration; the ground state is found
+with dense ``eigh`` for small dimensions and with Lanczos (``scipy.sparse.linalg.eigsh``)
+warm-started from the previous iteration's ground state otherwise.
+
+References
+----------
+D. Yamamoto, I. Danshita, C. A. R. Sá de Melo, PRA 85, 021601(R) (2012); D. Yamamoto,
+G. Marmorini, I. Danshita, PRL 114, 027201 (2015) (cluster mean field; attribution from memory).
+D. G. Anderson, J. ACM 12, 547 (1965) (Anderson mixing).
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field, fields
+
+import numpy as np
+import scipy.linalg as sla
+from scipy.sparse.linalg import ArpackNoConvergence, eigsh
+
+from ..mf import MFBatchResult
+from ..model import ConfigError, check_keys
+from ..params import ParamBatch
+from ..seeds import Seed, make_seeds
+from .clusters import Cluster, get_cluster
+from .guard import check_budget
+from .hamiltonian import cluster_operators
+
+__all__ = ["CMFOptions", "CMFBatchResult", "solve_cmf_batch", "cluster_seeds", "ClusterProblem"]
+
+
+@dataclass(frozen=True)
+class CMFOptions:
+    """Options of the cluster mean-field solver.
+
+    tol : float, default 1e-9
+        Converged when max |G(x) - x| over every site's <n> and <b> is below tol.
+    max_iter : int, default 2000
+        Rows still moving after max_iter iterations are flagged unconverged.
+    mixing : float, default 0.6
+        Linear mixing x <- x + mixing (G(x) - x) inside the Anderson step.
+    anderson : int, default 6
+        Anderson acceleration memory (0: plain damped mixing).
+    patience : int, default 80
+        Give up (unconverged) when the residual has not improved for this many iterations.
+    n_random : int, default 1
+        Random seeds on the cluster.
+    rng : int, default 0
+        Seed of the random seeds.
+    patterns : tuple of str or None, default None
+        Restrict density-wave seeds to these named patterns (None: all commensurate ones).
+    weight_warn : float, default 1e-3
+        Soft-core: flag when the top occupation n_max carries more weight.
+    continuation : bool, default True
+        Start each seed at point p from its converged end state at point p-1 when that
+        state kept the seed's character (density wave / condensate); else from the seed.
+    dense_max : int, default 400
+        Largest Hilbert dimension solved with dense ``eigh``; above it Lanczos.
+    eig_tol : float, default 1e-12
+        Lanczos tolerance.
+    memory_mb : float, default 4096
+        Memory budget; a larger cluster problem is refused (ConfigError with the estimate).
+    max_dim : int, default 2**22
+        Largest allowed cluster Hilbert dimension.
+    """
+
+    tol: float = 1e-9
+    max_iter: int = 2000
+    mixing: float = 0.6
+    anderson: int = 6
+    patience: int = 80
+    n_random: int = 1
+    rng: int = 0
+    patterns: tuple | None = None
+    weight_warn: float = 1e-3
+    continuation: bool = True
+    dense_max: int = 400
+    eig_tol: float = 1e-12
+    memory_mb: float = 4096.0
+    max_dim: int = 2**22
+
+
+@dataclass
+class CMFBatchResult(MFBatchResult):
+    """:class:`phasemap.mf.MFBatchResult` on the cluster's cell, plus the cluster and timings."""
+
+    cluster: Cluster | None = None
+    seconds: float = 0.0
+    ground_states: list | None = field(default=None, repr=False)
+
+
+def cluster_seeds(model, cluster: Cluster, n_random: int = 1, rng=0, patterns=None) -> list[Seed]:
+    """Seeds of :func:`phasemap.seeds.make_seeds` folded onto the cluster, plus random ones.
+
+    A seed is kept when its pattern's supercell is periodic in the cluster's supercell
+    (:meth:`Cluster.commensurate`); its site values are then copied to the cluster's
+    equivalent sites. Seeds whose pattern does not fit the cluster are skipped.
+    """
+    out = []
+    for s in make_seeds(model, n_random=0, rng=rng, patterns=patterns):
+        if cluster.commensurate(s.cell):
+            out.append(Seed(s.name, cluster.cell, cluster.fold(s.cell, s.n0).astype(float),
+                            cluster.fold(s.cell, s.phi0).astype(float)))
+    g = np.random.default_rng(rng)
+    nm = model.n_max
+    amp = 0.3 if model.hardcore else 0.5
+    S = cluster.n_sites
+    for r in range(n_random):
+        out.append(Seed(f"random {r}", cluster.cell, g.uniform(0, nm, S), g.uniform(0, amp, S)))
+    return out
+
+
+class ClusterProblem:
+    """The cluster Hamiltonian of one parameter point as a function of the mean fields."""
+
+    def __init__(self, cluster: Cluster, ops, t, V, U, V2, mu, hardcore: bool):
+        self.cluster, self.ops = cluster, ops
+        self.t, self.V = np.asarray(t, float), np.asarray(V, float)
+        self.U = 0.0 if hardcore else float(U)
+        self.V2, self.mu = float(V2), float(mu)
+        M, M2 = cluster.inter_matrices()
+        self.T_in = np.tensordot(self.t, M, axes=1)  # (S, S)
+        self.V_in = np.tensordot(self.V, M, axes=1) + self.V2 * M2
+        inter = cluster.inter
+        self._ia, self._ib = inter[:, 0], inter[:, 1]
+        self._it, self._iv = self.t[inter[:, 2]], self.V[inter[:, 2]]
+        self._i2a, self._i2b = cluster.inter2[:, 0], cluster.inter2[:, 1]
+
+    def fields(self, n, phi):
+        return self.T_in @ phi, self.V_in @ n
+
+    def hamiltonian(self, n, phi, dense: bool):
+        Phi, eps = self.fields(n, phi)
+        coef = self.ops.coefficients(self.t, Phi)
+        diag = self.ops.diagonal(self.U, self.V, self.V2, self.mu, eps)
+        return self.ops.dense(coef, diag) if dense else self.ops.matrix(coef, diag)
+
+    def energy(self, ex) -> float:
+        """Variational energy per site of the cluster-product state with expectations ``ex``."""
+        n, phi = ex["n"], ex["phi"]
+        e = -self.t @ ex["hop"] + self.U * ex["U"] + self.V @ ex["V"] + self.V2 * ex["V2"] - self.mu * n.sum()
+        e += np.sum(-2.0 * self._it * phi[self._ia] * phi[self._ib] + self._iv * n[self._ia] * n[self._ib])
+        e += self.V2 * np.sum(n[self._i2a] * n[self._i2b])
+        return float(e) / self.cluster.n_sites
+
+
+def _ground_state(H, dense: bool, v0, tol):
+    if dense:
+        w, v = sla.eigh(H, subset_by_index=[0, 0], driver="evr")
+        g = v[:, 0]
+    else:
+        try:
+            w, v = eigsh(H, k=1, which="SA", v0=v0, tol=tol, ncv=min(H.shape[0] - 1, 24), maxiter=5000)
+        except ArpackNoConvergence as e:  # pragma: no cover - rare
+            if e.eigenvectors is None or e.eigenvectors.shape[1] == 0:
+                raise
+            w, v = e.eigenvalues, e.eigenvectors
+        g = v[:, 0]
+    s = g.sum()
+    if s < 0:
+        g = -g
+    return float(w[0]), g
+
+
+def _solve_row(prob: ClusterProblem, x0, v0, opt: CMFOptions, n_max: int):
+    """Self-consistency of one (point, seed) row. Returns dict of the end state."""
+    S = prob.cluster.n_sites
+    dense = prob.ops.dim <= opt.dense_max
+    x = np.array(x0, float)
+    m = opt.anderson
+    dX, dF = [], []
+    prev_x = prev_f = None
+    v = v0
+    best_r, last_gain = np.inf, 0
+    conv = False
+    r = np.inf
+    it = 0
+    for it in range(1, opt.max_iter + 1):
+        H = prob.hamiltonian(x[:S], x[S:], dense)
+        _, v = _ground_state(H, dense, v, opt.eig_tol)
+        ex = prob.ops.expectations(v)
+        gx = np.concatenate([ex["n"], ex["phi"]])
+        f = gx - x
+        r = float(np.abs(f).max())
+        if r < opt.tol:
+            x = gx
+            conv = True
+            break
+        if r < 0.999 * best_r:
+            best_r, last_gain = r, it
+        elif it - last_gain > opt.patience:
+            break
+        xnew = x + opt.mixing * f
+        if m > 0 and prev_x is not None:
+            dX.append(x - prev_x)
+            dF.append(f - prev_f)
+            if len(dX) > m:
+                dX.pop(0)
+                dF.pop(0)
+            DX, DF = np.array(dX).T, np.array(dF).T
+            A = DF.T @ DF
+            reg = 1e-10 * max(np.trace(A), 1e-30)
+            try:
+                gam = np.linalg.solve(A + reg * np.eye(len(dX)), DF.T @ f)
+                step = x + opt.mixing * f - (DX + opt.mixing * DF) @ gam
+                if np.all(np.isfinite(step)):
+                    xnew = step
+            except np.linalg.LinAlgError:  # pragma: no cover
+                pass
+        prev_x, prev_f = x, f
+        xnew[:S] = np.clip(xnew[:S], 0.0, n_max)
+        xnew[S:] = np.clip(xnew[S:], 0.0, None)
+        x = xnew
+    # final state from the final fields
+    H = prob.hamiltonian(x[:S], x[S:], dense)
+    _, v = _ground_state(H, dense, v, opt.eig_tol)
+    ex = prob.ops.expectations(v)
+    return dict(energy=prob.energy(ex), converged=conv, iterations=it, residual=r, n=ex["n"],
+                phi=ex["phi"], top=float(ex["top"].max()), v=v)
+
+
+def _keeps_character(seed: Seed, n, phi) -> bool:
+    if np.ptp(seed.n0) > 1e-9 and np.ptp(n) < 1e-4:
+        return False
+    if np.max(seed.phi0) > 0 and np.max(phi) < 1e-6:
+        return False
+    return True
+
+
+def solve_cmf_batch(batch: ParamBatch, cluster="tri12", seeds: list[Seed] | None = None,
+                    init: MFBatchResult | None = None, **options) -> CMFBatchResult:
+    """Cluster mean field at every point of ``batch`` from every seed.
+
+    Parameters
+    ----------
+    batch : ParamBatch
+        Parameter points (one lattice and occupation cut-off).
+    cluster : str, dict, Supercell or Cluster, default "tri12"
+        Library name (:data:`phasemap.cmf.clusters.LIBRARY`) or user cluster
+        ``{"vectors": [[i1, j1], [i2, j2]], "sites": [[i, j], ...]}``.
+    seeds : list of Seed, optional
+        Seeds on the cluster's cell (default: :func:`cluster_seeds`).
+    init : MFBatchResult, optional
+        Warm start: end states of a previous result on the same seeds and cluster.
+    **options
+        Fields of :class:`CMFOptions` (an unknown key raises ConfigError), or
+        ``options=CMFOptions(...)``.
+
+    Returns
+    -------
+    CMFBatchResult
+        Same attributes as :class:`phasemap.mf.MFBatchResult` (``cell`` is the cluster's
+        supercell), accepted by :func:`phasemap.api.solutions_from_batch`.
+
+    Raises
+    ------
+    ConfigError
+        Unknown option, bad cluster, frustrated hopping, or a cluster above the memory budget.
+    """
+    t0 = time.perf_counter()
+    opt = options.pop("options", None)
+    check_keys("cmf options", options, [f.name for f in fields(CMFOptions)])
+    if opt is None:
+        if "patterns" in options and options["patterns"] is not None:
+            options["patterns"] = tuple(options["patterns"])
+        opt = CMFOptions(**options)
+    elif options:
+        opt = CMFOptions(**{**opt.__dict__, **options})
+    model = batch.base
+    cl = get_cluster(cluster, model.lattice)
+    if np.any(batch.t < 0):
+        raise ConfigError("cmf: frustrated hopping t < 0 is not supported")
+    if seeds is None:
+        seeds = cluster_seeds(model, cl, n_random=opt.n_random, rng=opt.rng, patterns=opt.patterns)
+    P, K, S = batch.size, len(seeds), cl.n_sites
+    check_budget(cl, batch.n_max, opt.memory_mb, opt.max_dim, n_rows=K)
+    ops = cluster_operators(cl, batch.n_max)
+    out = dict(energy=np.empty((P, K)), converged=np.zeros((P, K), bool), iterations=np.zeros((P, K), int),
+               residual=np.empty((P, K)), n=np.empty((P, K, S)), phi=np.empty((P, K, S)),
+               top_weight=np.zeros((P, K)))
+    last = [None] * K  # previous point's end state per seed
+    for p in range(P):
+        prob = ClusterProblem(cl, ops, batch.t[p], batch.V[p], batch.U[p], batch.V2[p], batch.mu[p], batch.hardcore)
+        for k, sd in enumerate(seeds):
+            x0 = np.concatenate([sd.n0, sd.phi0])
+            v0 = None
+            if init is not None:
+                x0 = np.concatenate([init.n[p, k], init.phi[p, k]])
+            elif opt.continuation and last[k] is not None:
+                prev = last[k]
+                if prev["converged"] and _keeps_character(sd, prev["n"], prev["phi"]):
+                    x0 = np.concatenate([prev["n"], prev["phi"]])
+                    v0 = prev["v"]
+                elif prev["v"] is not None:
+                    v0 = None
+            row = _solve_row(prob, x0, v0, opt, batch.n_max)
+            last[k] = row
+            out["energy"][p, k] = row["energy"]
+            out["converged"][p, k] = row["converged"]
+            out["iterations"][p, k] = row["iterations"]
+            out["residual"][p, k] = row["residual"]
+            out["n"][p, k] = row["n"]
+            out["phi"][p, k] = row["phi"]
+            out["top_weight"][p, k] = row["top"]
+    return CMFBatchResult(batch=batch, cell=cl.cell, seeds=seeds, options=opt, cluster=cl,
+                          seconds=time.perf_counter() - t0, **out)

@@ -1,0 +1,393 @@
+"""Scans: 2D phase maps, filling curves n(mu) with plateaus and jumps, boundary refinement.
+
+Results are :class:`xarray.Dataset` objects (coordinates = scanned parameters, variables =
+energy, filling, site densities, condensate amplitudes, phase code, convergence) with the
+model, method, thresholds and package version as attributes (see :mod:`phasemap.store`).
+
+Boundaries between grid points of different phase are refined by bisection on the
+classified ground state (not read off the grid). A first-order transition shows up as a
+filling jump that survives the bisection: it is reported as a discontinuity with the
+fillings of both branches.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import xarray as xr
+
+from .api import phase_codes
+from .classify import Thresholds, classify_arrays, filling_label, order_parameters
+from .model import ConfigError, Model
+from .params import grid, points
+from .solution import PHASES, UNCONVERGED
+from .solvers import batch_solver
+
+__all__ = ["phase_map", "filling_curve", "FillingCurve", "refine_boundaries", "evaluate"]
+
+INCOMPRESSIBLE = ("empty", "full", "mott", "solid")
+
+
+def _progress(iterable, total, desc, enabled):
+    if not enabled:
+        return iterable
+    from tqdm.auto import tqdm
+
+    return tqdm(iterable, total=total, desc=desc, unit="chunk", leave=False)
+
+
+def evaluate(batch: ParamBatch, method="mf", options=None, thresholds=Thresholds(), chunk=4096,
+             progress=False, desc="solving", checkpoint=None):
+    """Solve and classify every point of ``batch``; returns a dict of flat arrays.
+
+    ``checkpoint``: optional object with ``load(i) -> dict | None`` and ``save(i, dict)`` used
+    to resume a long scan chunk by chunk (see :class:`phasemap.store.ChunkStore`).
+    """
+    solver = batch_solver(method, options)
+    P = batch.size
+    starts = list(range(0, P, chunk))
+    parts = []
+    for ci, s in enumerate(_progress(starts, len(starts), desc, progress)):
+        part = checkpoint.load(ci) if checkpoint is not None else None
+        if part is None:
+            sub = batch.take(np.arange(s, min(P, s + chunk)))
+            res = solver(sub)
+            part = _extract(res, thresholds)
+            if checkpoint is not None:
+                checkpoint.save(ci, part)
+        parts.append(part)
+    return {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
+
+
+def _extract(res, thresholds):
+    best = res.best()
+    P = res.batch.size
+    ok = best >= 0
+    k = np.where(ok, best, np.argmin(res.residual, axis=1))
+    r = np.arange(P)
+    n, phi = res.n[r, k], np.abs(res.phi[r, k])
+    phase, label, pattern = classify_arrays(res.batch.base, res.cell, n, phi, ok, thresholds)
+    _, sq = res.cell.structure_factor(n)
+    q = res.cell.momenta
+    nonzero = np.any(np.abs(q) > 1e-12, axis=1)
+    sqm = np.where(nonzero[None, :], sq, -1).max(1) if nonzero.any() else np.zeros(P)
+    E = np.where(res.converged, res.energy, np.inf)
+    second = np.sort(E, axis=1)[:, 1] if E.shape[1] > 1 else np.full(P, np.inf)
+    return dict(
+        energy=res.energy[r, k], filling=n.mean(1), densities=n, condensate=phi,
+        converged=ok, iterations=res.iterations[r, k], residual=res.residual[r, k],
+        seed=k.astype(np.int32), phase=phase.astype(str), label=label.astype(str), pattern=pattern.astype(str),
+        sq_max=sqm, condensate_max=phi.max(1), contrast=np.ptp(n, 1),
+        top_weight=res.top_weight[r, k], gap_to_next_branch=second - res.energy[r, k],
+    )
+
+
+def _attrs(model: Model, method, thresholds, options, relative, kind, extra=None):
+    from . import __version__
+
+    attrs = {
+        "title": f"phasemap {kind}",
+        "model": json.dumps(model.to_dict()),
+        "lattice": model.lattice,
+        "method": method,
+        "method_options": json.dumps(options or {}),
+        "thresholds": json.dumps(thresholds.to_dict()),
+        "energy_unit": model.unit,
+        "relative_to": model.scale_name if relative else "",
+        "scale": float(model.scale) if relative else 1.0,
+        "phase_names": json.dumps(list(phase_codes())),
+        "phasemap_version": __version__,
+        "caution": ("mean-field methods overestimate ordered phases (site-decoupled badly so on the "
+                    "triangular lattice); finite clusters are finite"),
+    }
+    attrs.update(extra or {})
+    return attrs
+
+
+def _dataset(flat, dims, coords, sites, attrs):
+    shape = tuple(len(coords[d]) for d in dims)
+    codes = phase_codes()
+    data = {}
+    for k, v in flat.items():
+        if k in ("densities", "condensate"):
+            data[k] = (dims + ("site",), v.reshape(shape + (v.shape[-1],)))
+        elif k == "phase":
+            data["phase_code"] = (dims, np.array([codes[x] for x in v], np.int8).reshape(shape))
+        else:
+            data[k] = (dims, v.reshape(shape))
+    ds = xr.Dataset(data, coords={**{d: coords[d] for d in dims}, "site": np.arange(sites.shape[0]),
+                                  "site_i": ("site", sites[:, 0]), "site_j": ("site", sites[:, 1])}, attrs=attrs)
+    ds["phase_code"].attrs["flag_meanings"] = " ".join(codes)
+    ds["phase_code"].attrs["flag_values"] = list(codes.values())
+    return ds
+
+
+def _axis_label(name, model, relative):
+    unit = model.scale_name if relative else model.unit
+    sym = {"mu": "μ", "t": "t", "V": "V", "U": "U", "V2": "V₂"}.get(name, name)
+    return f"{sym}/{unit}" if relative else f"{sym} [{unit}]"
+
+
+def phase_map(model: Model, x=("t", None), y=("mu", None), relative=True, method="mf", options=None,
+              thresholds=Thresholds(), refine=True, refine_tol=1e-4, progress=True, checkpoint=None,
+              chunk=4096) -> xr.Dataset:
+    """Ground-state phase map over two parameters.
+
+    Parameters
+    ----------
+    model : Model
+        Fixed parameters; the two scanned ones are overridden.
+    x, y : (name, values)
+        Axis name ("t", "mu", "V", "U", "V2", "t_<family>", "V_<family>") and values. Default
+        ``t/V`` in [0, 0.5] x ``mu/V`` in [-1, 7] (hard-core), ``t/U`` in [0, 0.1] x ``mu/U`` in
+        [-0.5, 3] (soft-core), 101 x 161 points.
+    relative : bool, default True
+        Values are ratios to ``model.scale`` (V for hard-core, U for soft-core).
+    method : {"mf", "cmf"}
+    refine : bool
+        Locate boundaries between neighbouring grid points of different phase by bisection
+        (to ``refine_tol`` of the axis span) and store them as ``boundary_*`` variables.
+    checkpoint : phasemap.store.ChunkStore, optional
+        Resume a long scan.
+    """
+    if x[1] is None:
+        x = (x[0], np.linspace(0, 0.5 if model.hardcore else 0.1, 101))
+    if y[1] is None:
+        y = (y[0], np.linspace(-1, 7, 161) if model.hardcore else np.linspace(-0.5, 3, 141))
+    (xn, xv), (yn, yv) = x, y
+    if xn == yn:
+        raise ConfigError(f"scan axes: x and y must differ (both {xn!r})")
+    batch, shape = grid(model, {xn: xv, yn: yv}, relative=relative)
+    flat = evaluate(batch, method, options, thresholds, chunk=chunk, progress=progress, desc="phase map",
+                    checkpoint=checkpoint)
+    from .lattice import search_cell
+
+    cell = _cell_of(method, options, batch)
+    attrs = _attrs(batch.base, method, thresholds, options, relative, "phase map",
+                   {"x_axis": xn, "y_axis": yn, "x_label": _axis_label(xn, model, relative),
+                    "y_label": _axis_label(yn, model, relative)})
+    ds = _dataset(flat, (xn, yn), {xn: np.asarray(xv, float), yn: np.asarray(yv, float)},
+                  cell.sites if cell is not None else search_cell(model.lattice).sites, attrs)
+    if yn == "mu" or xn == "mu":
+        axis = 1 if yn == "mu" else 0
+        mu = np.asarray(yv if yn == "mu" else xv, float) * (model.scale if relative else 1.0)
+        if len(mu) > 1:
+            dn = np.gradient(flat["filling"].reshape(shape), mu, axis=axis)
+            ds["compressibility"] = ((xn, yn), dn)
+            ds["compressibility"].attrs["units"] = f"1/{model.unit}"
+    if refine:
+        bd = refine_boundaries(model, ds, relative=relative, method=method, options=options,
+                               thresholds=thresholds, tol=refine_tol, progress=progress)
+        ds = ds.merge(bd)
+    return ds
+
+
+def _cell_of(method, options, batch):
+    from .lattice import search_cell
+
+    if method == "mf":
+        return search_cell(batch.base.lattice)
+    return None  # taken from the solver result (cluster) when needed
+
+
+def refine_boundaries(model, ds, relative=True, method="mf", options=None, thresholds=Thresholds(),
+                      tol=1e-4, progress=True) -> xr.Dataset:
+    """Boundary points between grid neighbours of different phase label, by bisection.
+
+    Returns a Dataset with dimension ``bpoint`` and variables ``boundary_<x>``, ``boundary_<y>``,
+    ``boundary_from``, ``boundary_to`` (labels), ``boundary_jump`` (filling jump across the
+    refined bracket: > 0 for a first-order transition).
+    """
+    xn, yn = ds.attrs["x_axis"], ds.attrs["y_axis"]
+    lab = ds["label"].values
+    conv = ds["converged"].values
+    X, Y = ds[xn].values, ds[yn].values
+    pairs = []
+    for axis in (0, 1):
+        l1 = lab[:-1, :] if axis == 0 else lab[:, :-1]
+        l2 = lab[1:, :] if axis == 0 else lab[:, 1:]
+        c = (conv[:-1, :] & conv[1:, :]) if axis == 0 else (conv[:, :-1] & conv[:, 1:])
+        ii, jj = np.nonzero((l1 != l2) & c)
+        for i, j in zip(ii, jj):
+            i2, j2 = (i + 1, j) if axis == 0 else (i, j + 1)
+            pairs.append(((X[i], Y[j]), (X[i2], Y[j2]), lab[i, j], lab[i2, j2]))
+    names = (xn, yn)
+    if not pairs:
+        return _empty_boundaries(names)
+    a = np.array([p[0] for p in pairs])
+    b = np.array([p[1] for p in pairs])
+    la = np.array([p[2] for p in pairs])
+    lb = np.array([p[3] for p in pairs])
+    span = max(np.ptp(X) if len(X) > 1 else 1.0, np.ptp(Y) if len(Y) > 1 else 1.0)
+    lo, hi, flo, fhi = bisect_labels(model, names, a, b, la, relative, method, options, thresholds,
+                                     tol * span, progress)
+    mid = 0.5 * (lo + hi)
+    return xr.Dataset({
+        f"boundary_{xn}": ("bpoint", mid[:, 0]), f"boundary_{yn}": ("bpoint", mid[:, 1]),
+        "boundary_from": ("bpoint", la.astype(str)), "boundary_to": ("bpoint", lb.astype(str)),
+        "boundary_jump": ("bpoint", np.abs(fhi["filling"] - flo["filling"])),
+        "boundary_bracket": ("bpoint", np.abs(hi - lo).max(1)),
+    })
+
+
+def _empty_boundaries(names):
+    xn, yn = names
+    e = np.zeros(0)
+    return xr.Dataset({f"boundary_{xn}": ("bpoint", e), f"boundary_{yn}": ("bpoint", e),
+                       "boundary_from": ("bpoint", e.astype(str)), "boundary_to": ("bpoint", e.astype(str)),
+                       "boundary_jump": ("bpoint", e), "boundary_bracket": ("bpoint", e)})
+
+
+def _points(model, names, pts, relative):
+    return points(model, {n: pts[:, i] for i, n in enumerate(names)}, relative)
+
+
+def bisect_labels(model, names, a, b, label_a, relative, method, options, thresholds, tol, progress,
+                  key="label", ref_b=None):
+    """Bisect segments a -> b (axis coordinates) on "same state as the a-end".
+
+    ``key="label"``: same phase label as ``label_a``. ``key="filling"``: filling closer to
+    the a-end's filling ``label_a`` than to ``ref_b``. Unconverged midpoints count as the
+    b side and are flagged in the returned flats (``converged``). Returns lo, hi brackets and
+    the evaluated flats at both final ends.
+    """
+    lo, hi = a.astype(float).copy(), b.astype(float).copy()
+    span = np.abs(b - a).max(1)
+    steps = int(max(0, math.ceil(math.log2(max(span.max(), 1e-300) / tol))))
+    for _ in _progress(range(steps), steps, "refining boundaries", progress):
+        mid = 0.5 * (lo + hi)
+        flat = evaluate(_points(model, names, mid, relative), method, options, thresholds)
+        if key == "label":
+            same = flat["label"] == label_a
+        else:
+            same = np.abs(flat["filling"] - label_a) < np.abs(flat["filling"] - ref_b)
+        lo = np.where(same[:, None], mid, lo)
+        hi = np.where(same[:, None], hi, mid)
+    flo = evaluate(_points(model, names, lo, relative), method, options, thresholds)
+    fhi = evaluate(_points(model, names, hi, relative), method, options, thresholds)
+    return lo, hi, flo, fhi
+
+
+# -- filling curves ------------------------------------------------------------------------
+@dataclass
+class FillingCurve:
+    """n(mu) at fixed other parameters.
+
+    Attributes
+    ----------
+    mu, filling : ndarray
+        Chemical potential (in the units of the scan: ratio or absolute) and filling.
+    plateaus : list of dict
+        ``{"filling": float, "fraction": "1/3", "label": str, "mu_lo": float, "mu_hi": float,
+        "width": float}`` — incompressible regions with refined edges.
+    jumps : list of dict
+        First-order discontinuities ``{"mu": float, "n_below": float, "n_above": float,
+        "from": label, "to": label}`` (filling jump surviving bisection).
+    dataset : xarray.Dataset
+        All per-point data (labels, densities, condensates, energies, convergence).
+    """
+
+    mu: np.ndarray
+    filling: np.ndarray
+    plateaus: list = field(default_factory=list)
+    jumps: list = field(default_factory=list)
+    dataset: xr.Dataset | None = None
+
+    @property
+    def labels(self):
+        return self.dataset["label"].values
+
+    def plateau(self, fraction: str):
+        """The plateau with the given filling fraction label (e.g. "1/3"), or None."""
+        for p in self.plateaus:
+            if p["fraction"] == fraction:
+                return p
+        return None
+
+
+def filling_curve(model: Model, mu=None, relative=True, method="mf", options=None, thresholds=Thresholds(),
+                  refine=True, tol=1e-6, jump_tol=1e-3, progress=False) -> FillingCurve:
+    """Filling versus chemical potential with plateau detection and first-order jumps.
+
+    Parameters
+    ----------
+    mu : array-like
+        Chemical potentials (ratios to ``model.scale`` when ``relative``). Default: 401 points
+        over [-1, 7] (hard-core) or [-0.5, 3] (soft-core).
+    tol : float
+        Bisection tolerance of the plateau edges and jump positions (same units as ``mu``).
+    jump_tol : float
+        A filling change larger than this across a bracket of width ``tol`` is a discontinuity.
+
+    Notes
+    -----
+    Plateaus are maximal runs of grid points with the same incompressible label (empty, full,
+    Mott, solid); their edges are refined by bisection between the last point inside and the
+    first outside. Caution: mean field overestimates plateau widths.
+    """
+    if mu is None:
+        mu = np.linspace(-1, 7, 401) if model.hardcore else np.linspace(-0.5, 3, 351)
+    mu = np.asarray(mu, float)
+    if mu.ndim != 1 or len(mu) < 2 or np.any(np.diff(mu) <= 0):
+        raise ConfigError("mu: the filling curve needs at least 2 strictly increasing chemical potentials")
+    batch, _ = grid(model, {"mu": mu}, relative=relative)
+    flat = evaluate(batch, method, options, thresholds, progress=progress, desc="filling curve")
+    from .lattice import search_cell
+
+    attrs = _attrs(batch.base, method, thresholds, options, relative, "filling curve",
+                   {"x_axis": "mu", "x_label": _axis_label("mu", model, relative)})
+    cell = search_cell(model.lattice)
+    sites = cell.sites if flat["densities"].shape[1] == cell.n_sites else np.zeros((flat["densities"].shape[1], 2), int)
+    ds = _dataset(flat, ("mu",), {"mu": mu}, sites, attrs)
+    curve = FillingCurve(mu=mu, filling=flat["filling"], dataset=ds)
+    labels, phases, conv, n = flat["label"], flat["phase"], flat["converged"], flat["filling"]
+    names = ("mu",)
+    # plateau runs
+    runs, start = [], 0
+    for i in range(1, len(mu) + 1):
+        if i == len(mu) or labels[i] != labels[start]:
+            if phases[start] in INCOMPRESSIBLE and conv[start]:
+                runs.append((start, i - 1))
+            start = i
+    # edges to refine: (inside index, outside index)
+    seg_a, seg_b, seg_lab = [], [], []
+    for s, e in runs:
+        if s > 0:
+            seg_a.append(mu[s]), seg_b.append(mu[s - 1]), seg_lab.append(labels[s])
+        if e < len(mu) - 1:
+            seg_a.append(mu[e]), seg_b.append(mu[e + 1]), seg_lab.append(labels[e])
+    edges = {}
+    if refine and seg_a:
+        lo, hi, _, _ = bisect_labels(model, names, np.array(seg_a)[:, None], np.array(seg_b)[:, None],
+                                     np.array(seg_lab), relative, method, options, thresholds, tol, progress)
+        for k, (x, yv) in enumerate(zip(seg_a, seg_b)):
+            edges[(x, yv)] = 0.5 * (lo[k, 0] + hi[k, 0])
+    for s, e in runs:
+        lo_edge = edges.get((mu[s], mu[s - 1]), mu[s]) if s > 0 else -math.inf
+        hi_edge = edges.get((mu[e], mu[e + 1]), mu[e]) if e < len(mu) - 1 else math.inf
+        curve.plateaus.append({
+            "filling": float(n[s]), "fraction": filling_label(n[s], thresholds.max_denominator),
+            "label": str(labels[s]), "mu_lo": float(lo_edge), "mu_hi": float(hi_edge),
+            "width": float(hi_edge - lo_edge),
+        })
+    # first-order jumps: neighbouring points with a filling step, bisected on the filling
+    dn = np.abs(np.diff(n))
+    slope = dn / np.diff(mu)
+    cand = np.nonzero((dn > 10 * jump_tol) & conv[:-1] & conv[1:] &
+                      (slope > 4 * np.median(slope[slope > 0]) if np.any(slope > 0) else False))[0]
+    if refine and len(cand):
+        a, b = mu[cand][:, None], mu[cand + 1][:, None]
+        lo, hi, flo, fhi = bisect_labels(model, names, a, b, n[cand], relative, method, options, thresholds,
+                                         tol, progress, key="filling", ref_b=n[cand + 1])
+        for k, i in enumerate(cand):
+            gap = abs(fhi["filling"][k] - flo["filling"][k])
+            if gap > jump_tol:
+                curve.jumps.append({"mu": float(0.5 * (lo[k, 0] + hi[k, 0])), "n_below": float(flo["filling"][k]),
+                                    "n_above": float(fhi["filling"][k]), "from": str(flo["label"][k]),
+                                    "to": str(fhi["label"][k])})
+    ds.attrs["plateaus"] = json.dumps(curve.plateaus)
+    ds.attrs["jumps"] = json.dumps(curve.jumps)
+    return curve
