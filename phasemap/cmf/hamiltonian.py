@@ -31,7 +31,7 @@ __all__ = ["ClusterOperators", "cluster_operators"]
 
 
 class ClusterOperators:
-    """Precomputed operator data of one cluster at one occupation cut-off.
+    r"""Precomputed operator data of one cluster at one occupation cut-off.
 
     Parameters
     ----------
