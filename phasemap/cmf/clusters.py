@@ -117,7 +117,9 @@ LIBRARY: dict[str, ClusterSpec] = {
     "sq1": ClusterSpec("square", ((1, 0), (0, 1)), "one site (site-decoupled mean field, uniform)"),
     "sq2x1": ClusterSpec("square", ((2, 0), (0, 1)), "two-site dimer"),
     "sq2x2": ClusterSpec("square", ((2, 0), (0, 2)), "2×2 plaquette"),
+    "sq2x3": ClusterSpec("square", ((2, 0), (0, 3)), "2×3 block"),
     "sq3x3": ClusterSpec("square", ((3, 0), (0, 3)), "3×3 block"),
+    "sq3x4": ClusterSpec("square", ((3, 0), (0, 4)), "3×4 block"),
     "sq4x4": ClusterSpec("square", ((4, 0), (0, 4)), "4×4 block"),
 }
 
