@@ -107,6 +107,8 @@ class ClusterSpec:
 #: commensurate with the stripe and 2×2 patterns.
 LIBRARY: dict[str, ClusterSpec] = {
     "tri1": ClusterSpec("triangular", ((1, 0), (0, 1)), "one site (site-decoupled mean field, uniform)"),
+    "tri3-sd": ClusterSpec("triangular", ((1, 1), (-1, 2)), "√3×√3 cell of three mutually unbonded sites "
+                           "(λ = 0: site-decoupled mean field on the three-sublattice cell)", ((0, 0), (2, 0), (4, 0))),
     "tri3": ClusterSpec("triangular", ((1, 1), (-1, 2)), "triangle, √3×√3 cell"),
     "tri6": ClusterSpec("triangular", ((1, 1), (-2, 4)), "6-site triangle"),
     "tri9": ClusterSpec("triangular", ((3, 0), (0, 3)), "9-site 3×3 rhombus cell"),
@@ -115,6 +117,8 @@ LIBRARY: dict[str, ClusterSpec] = {
     "tri18": ClusterSpec("triangular", ((2, 2), (5, -4)), "18-site cell (bond-maximal, 39 bonds)"),
     "tri21": ClusterSpec("triangular", ((4, 1), (5, -4)), "21-site cell"),
     "sq1": ClusterSpec("square", ((1, 0), (0, 1)), "one site (site-decoupled mean field, uniform)"),
+    "sq2-sd": ClusterSpec("square", ((1, 1), (1, -1)), "checkerboard cell of two unbonded sites "
+                          "(λ = 0: site-decoupled mean field on the two-sublattice cell)", ((0, 0), (2, 1))),
     "sq2x1": ClusterSpec("square", ((2, 0), (0, 1)), "two-site dimer"),
     "sq2x2": ClusterSpec("square", ((2, 0), (0, 2)), "2×2 plaquette"),
     "sq2x3": ClusterSpec("square", ((2, 0), (0, 3)), "2×3 block"),
