@@ -20,13 +20,14 @@ from phasemap.params import ParamBatch
 @pytest.mark.parametrize("name, lam", [("tri3", Fraction(1, 3)), ("tri6", Fraction(1, 2)),
                                        ("tri9", Fraction(16, 27)), ("tri12", Fraction(2, 3)),
                                        ("sq2x2", Fraction(1, 2)), ("sq3x3", Fraction(2, 3)),
-                                       ("sq4x4", Fraction(3, 4)), ("tri1", Fraction(0))])
+                                       ("sq4x4", Fraction(3, 4)), ("tri1", Fraction(0)),
+                                       ("tri3-sd", Fraction(0)), ("sq2-sd", Fraction(0))])
 def test_lambda_of_compact_domains(name, lam):
     # DESIGN.md §6 (bond counting): λ = N_B / (N_C z / 2)
     assert get_cluster(name).lam_fraction == lam
 
 
-@pytest.mark.parametrize("name", [n for n in library_names("triangular") if n != "tri1"])
+@pytest.mark.parametrize("name", [n for n in library_names("triangular") if n not in ("tri1", "tri3-sd")])
 def test_triangular_library_commensurate_and_bond_maximal(name):
     cl = get_cluster(name)
     # commensurate with the √3×√3 pattern (DESIGN.md §6)
