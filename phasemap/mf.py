@@ -56,9 +56,12 @@ class MFOptions:
         Seed of the random seeds (results are reproducible).
     weight_warn : float, default 1e-3
         Soft-core: flag when the top occupation n_max carries more weight.
-    patience : int, default 60
+    patience : int, default 25
         A row whose best residual has not improved for this many iterations (an oscillating
         seed, or a branch with no fixed point) is stopped and flagged unconverged.
+    engine : {"auto", "numba", "numpy"}
+        Hard-core bosons use a compiled per-row loop ("auto"/"numba"); "numpy" forces the
+        batched array path (used for soft-core bosons).
     """
 
     tol: float = 1e-10
@@ -68,7 +71,8 @@ class MFOptions:
     n_random: int = 2
     rng: int = 0
     weight_warn: float = 1e-3
-    patience: int = 60
+    patience: int = 25
+    engine: str = "auto"
 
 
 class CellOps:
@@ -89,10 +93,12 @@ class CellOps:
         for f in range(self.plus.shape[0]):
             Phi += t[..., f, None] * (phi[..., self.plus[f]] + phi[..., self.minus[f]])
             eps += V[..., f, None] * (n[..., self.plus[f]] + n[..., self.minus[f]])
-        nn2 = np.zeros_like(n)
-        for k in range(self.nnn_plus.shape[0]):
-            nn2 += n[..., self.nnn_plus[k]] + n[..., self.nnn_minus[k]]
-        eps += V2[..., None] * nn2 - mu[..., None]
+        if np.any(V2 != 0):
+            nn2 = np.zeros_like(n)
+            for k in range(self.nnn_plus.shape[0]):
+                nn2 += n[..., self.nnn_plus[k]] + n[..., self.nnn_minus[k]]
+            eps += V2[..., None] * nn2
+        eps -= mu[..., None]
         return Phi, eps
 
     def bond_energy(self, t, V, V2, n, phi):
@@ -183,20 +189,21 @@ class MFBatchResult:
 
 
 def _iterate(ops: CellOps, batch: ParamBatch, n0, phi0, opt: MFOptions):
-    """Self-consistency for all (P, K) rows of one supercell group."""
+    """Self-consistency for all (P, K) rows of one supercell group.
+
+    Works on a compact set of live rows: finished rows (converged, or stalled = no fixed point
+    reachable from this seed) are written out and dropped once they make up a tenth of the set.
+    """
     P, K, S = n0.shape
     hard = batch.hardcore
-    # flatten (P, K) into rows
     rows = P * K
     rep = lambda a: np.repeat(a, K, axis=0)  # noqa: E731
     t, V, V2, mu, U = rep(batch.t), rep(batch.V), rep(batch.V2), rep(batch.mu), rep(batch.U)
-    x = np.concatenate([n0.reshape(rows, S), phi0.reshape(rows, S)], axis=1)
+    x_out = np.concatenate([n0.reshape(rows, S), phi0.reshape(rows, S)], axis=1)
     iters = np.zeros(rows, int)
     resid = np.full(rows, np.inf)
     conv = np.zeros(rows, bool)
     m = opt.anderson
-    hist_x = np.zeros((m, rows, 2 * S))
-    hist_f = np.zeros((m, rows, 2 * S))
 
     def G(xa, sel):
         Phi, eps = ops.fields(t[sel], V[sel], V2[sel], mu[sel], xa[:, :S], xa[:, S:])
@@ -206,54 +213,73 @@ def _iterate(ops: CellOps, batch: ParamBatch, n0, phi0, opt: MFOptions):
             n, ph, nn1, top = _local_softcore(Phi, eps, U[sel][:, None], batch.n_max)
         return np.concatenate([n, ph], axis=1), nn1, top
 
-    active = np.arange(rows)
+    if hard and opt.engine in ("auto", "numba"):
+        from .mf_kernel import hardcore_rows
+
+        x_out, iters, resid, conv = hardcore_rows(
+            t, V, V2, mu, ops.plus, ops.minus, ops.nnn_plus, ops.nnn_minus, x_out, opt.tol, opt.max_iter,
+            opt.mixing, max(opt.anderson, 0), opt.patience)
+        return _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, P, K, S)
+    # compact state
+    idx = np.arange(rows)
+    x = x_out.copy()
+    live = np.ones(rows, bool)
     best_r = np.full(rows, np.inf)
     last_gain = np.zeros(rows, int)
+    hx = np.zeros((m, rows, 2 * S))
+    hf = np.zeros((m, rows, 2 * S))
+    px = pf = None
     for it in range(1, opt.max_iter + 1):
-        xa = x[active]
-        gx, _, _ = G(xa, active)
-        f = gx - xa
+        gx, _, _ = G(x, idx)
+        f = gx - x
         r = np.abs(f).max(axis=1)
-        resid[active] = r
-        iters[active] = it
-        done = r < opt.tol
-        x[active[done]] = gx[done]
-        conv[active[done]] = True
-        gain = r < 0.999 * best_r[active]
-        best_r[active] = np.where(gain, r, best_r[active])
-        last_gain[active] = np.where(gain, it, last_gain[active])
-        stalled = (it - last_gain[active]) > opt.patience  # oscillating / no fixed point: give up
-        keep = ~done & ~stalled
-        active, xa, gx, f = active[keep], xa[keep], gx[keep], f[keep]
-        if active.size == 0:
+        gain = r < 0.999 * best_r
+        best_r = np.where(gain, r, best_r)
+        last_gain = np.where(gain, it, last_gain)
+        done = live & (r < opt.tol)
+        stalled = live & ~done & ((it - last_gain) > opt.patience)
+        fin = done | stalled
+        if fin.any():
+            g = idx[fin]
+            x_out[g] = np.where(done[fin, None], gx[fin], x[fin])
+            resid[g], iters[g], conv[g] = r[fin], it, done[fin]
+            live &= ~fin
+        if not live.any():
             break
-        xnew = xa + opt.mixing * f
-        if m > 0 and it > 1:
-            # Anderson type II on the last min(it-1, m) differences
-            k = min(it - 1, m)
+        xnew = x + opt.mixing * f
+        k = min(it - 1, m)
+        if k > 0:
             slot = (it - 2) % m
-            hist_x[slot, active] = xa - _prev_x[active]
-            hist_f[slot, active] = f - _prev_f[active]
-            dX = hist_x[:k, active].transpose(1, 2, 0)  # (R, D, k)
-            dF = hist_f[:k, active].transpose(1, 2, 0)
+            hx[slot] = x - px
+            hf[slot] = f - pf
+            dX = hx[:k].transpose(1, 2, 0)  # (R, D, k)
+            dF = hf[:k].transpose(1, 2, 0)
             A = np.einsum("rdk,rdl->rkl", dF, dF)
             b = np.einsum("rdk,rd->rk", dF, f)
             reg = 1e-10 * np.maximum(np.trace(A, axis1=1, axis2=2), 1e-30)[:, None, None]
             gam = np.linalg.solve(A + reg * np.eye(k), b[..., None])[..., 0]
-            step = xa + opt.mixing * f - np.einsum("rdk,rk->rd", dX + opt.mixing * dF, gam)
+            step = xnew - np.einsum("rdk,rk->rd", dX + opt.mixing * dF, gam)
             ok = np.all(np.isfinite(step), axis=1)
             xnew = np.where(ok[:, None], step, xnew)
-        if it == 1:
-            _prev_x = np.zeros_like(x)
-            _prev_f = np.zeros_like(x)
-        _prev_x[active] = xa
-        _prev_f[active] = f
-        # keep the iterate physical
-        xnew[:, :S] = np.clip(xnew[:, :S], 0.0, batch.n_max)
+        px, pf = x, f
+        xnew[:, :S] = np.clip(xnew[:, :S], 0.0, batch.n_max)  # keep the iterate physical
         xnew[:, S:] = np.clip(xnew[:, S:], 0.0, None)
-        x[active] = xnew
-    # final energies from the local states built from the final fields
-    gx, nn1, top = G(x, np.arange(rows))
+        x = xnew
+        if (~live).sum() > 0.1 * len(live):  # compact
+            keep = live
+            idx, x, px, pf = idx[keep], x[keep], px[keep], pf[keep]
+            hx, hf = hx[:, keep], hf[:, keep]
+            best_r, last_gain, live = best_r[keep], last_gain[keep], live[keep]
+    else:
+        g = idx[live]
+        x_out[g], iters[g], resid[g] = x[live], opt.max_iter, np.abs(f[live]).max(axis=1)
+    return _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, P, K, S)
+
+
+def _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, P, K, S):
+    """Energies from the local states built from the final fields."""
+    hard = batch.hardcore
+    gx, nn1, top = G(x_out, np.arange(P * K))
     n, ph = gx[:, :S], gx[:, S:]
     onsite = (0.0 if hard else 0.5 * U * nn1.mean(1)) - mu * n.mean(1)
     E = ops.bond_energy(t, V, V2, n, ph) + onsite

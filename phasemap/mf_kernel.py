@@ -1,0 +1,160 @@
+"""Compiled hard-core mean-field self-consistency (numba), one row = one point x seed.
+
+Same algorithm as the NumPy path of :mod:`phasemap.mf` (closed-form 2x2 local problem,
+linear mixing + Anderson type-II acceleration, stall detection), but each row iterates
+independently inside a parallel loop, so the per-iteration interpreter overhead vanishes.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit, prange
+
+
+@njit(cache=True)
+def _solve_small(A, b, k):
+    """Gaussian elimination with partial pivoting on the leading k x k block (in place)."""
+    for c in range(k):
+        p = c
+        for r in range(c + 1, k):
+            if abs(A[r, c]) > abs(A[p, c]):
+                p = r
+        if p != c:
+            for j in range(k):
+                A[c, j], A[p, j] = A[p, j], A[c, j]
+            b[c], b[p] = b[p], b[c]
+        if A[c, c] == 0.0:
+            return False
+        for r in range(c + 1, k):
+            fac = A[r, c] / A[c, c]
+            for j in range(c, k):
+                A[r, j] -= fac * A[c, j]
+            b[r] -= fac * b[c]
+    for c in range(k - 1, -1, -1):
+        s = b[c]
+        for j in range(c + 1, k):
+            s -= A[c, j] * b[j]
+        b[c] = s / A[c, c]
+    return True
+
+
+@njit(cache=True)
+def _map(x, g, t, V, V2, mu, plus, minus, nplus, nminus, S):
+    F = plus.shape[0]
+    K2 = nplus.shape[0]
+    for s in range(S):
+        Phi = 0.0
+        eps = 0.0
+        for f in range(F):
+            Phi += t[f] * (x[S + plus[f, s]] + x[S + minus[f, s]])
+            eps += V[f] * (x[plus[f, s]] + x[minus[f, s]])
+        if V2 != 0.0:
+            for k in range(K2):
+                eps += V2 * (x[nplus[k, s]] + x[nminus[k, s]])
+        eps -= mu
+        r = np.sqrt(eps * eps + 4.0 * Phi * Phi)
+        if r > 0.0:
+            g[s] = 0.5 * (1.0 - eps / r)
+            g[S + s] = Phi / r
+        else:
+            g[s] = 0.5
+            g[S + s] = 0.0
+
+
+@njit(parallel=True, cache=True)
+def hardcore_rows(t, V, V2, mu, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience):
+    """Iterate every row of ``x0`` (rows, 2S: densities then condensates) to self-consistency.
+
+    Returns (x, iterations, residual, converged).
+    """
+    rows, D = x0.shape
+    S = D // 2
+    out = x0.copy()
+    iters = np.zeros(rows, np.int64)
+    resid = np.full(rows, np.inf)
+    conv = np.zeros(rows, np.bool_)
+    mm = max(m, 1)
+    for r in prange(rows):
+        x = x0[r].copy()
+        g = np.empty(D)
+        f = np.empty(D)
+        px = np.zeros(D)
+        pf = np.zeros(D)
+        hx = np.zeros((mm, D))
+        hf = np.zeros((mm, D))
+        A = np.zeros((mm, mm))
+        G = np.zeros((mm, mm))
+        bb = np.zeros(mm)
+        best = np.inf
+        last = 0
+        it = 0
+        res = np.inf
+        while it < max_iter:
+            it += 1
+            _map(x, g, t[r], V[r], V2[r], mu[r], plus, minus, nplus, nminus, S)
+            res = 0.0
+            for d in range(D):
+                f[d] = g[d] - x[d]
+                if abs(f[d]) > res:
+                    res = abs(f[d])
+            if res < tol:
+                out[r] = g
+                conv[r] = True
+                break
+            if res < 0.999 * best:
+                best = res
+                last = it
+            insulating = True  # a seed with no condensate anywhere can only flip occupations
+            for d in range(S, D):
+                if x[d] != 0.0 or g[d] != 0.0:
+                    insulating = False
+                    break
+            if it - last > (3 if insulating else patience):
+                out[r] = x
+                break
+            k = min(it - 1, m)
+            if k > 0:
+                slot = (it - 2) % m
+                for d in range(D):
+                    hx[slot, d] = x[d] - px[d]
+                    hf[slot, d] = f[d] - pf[d]
+                for a in range(k):  # Gram matrix: only the new slot's row/column changes
+                    s3 = 0.0
+                    for d in range(D):
+                        s3 += hf[a, d] * hf[slot, d]
+                    G[a, slot] = s3
+                    G[slot, a] = s3
+                tr = 0.0
+                for a in range(k):
+                    s2 = 0.0
+                    for d in range(D):
+                        s2 += hf[a, d] * f[d]
+                    bb[a] = s2
+                    tr += G[a, a]
+                reg = 1e-10 * max(tr, 1e-30)
+                for a in range(k):
+                    for c in range(k):
+                        A[a, c] = G[a, c]
+                    A[a, a] += reg
+                ok = _solve_small(A, bb, k)
+            else:
+                ok = False
+            for d in range(D):
+                px[d] = x[d]
+                pf[d] = f[d]
+                step = x[d] + mixing * f[d]
+                if ok:
+                    for a in range(k):
+                        step -= bb[a] * (hx[a, d] + mixing * hf[a, d])
+                if not np.isfinite(step):
+                    step = x[d] + mixing * f[d]
+                if d < S:
+                    step = min(max(step, 0.0), 1.0)
+                else:
+                    step = max(step, 0.0)
+                x[d] = step
+        else:
+            out[r] = x
+        iters[r] = it
+        resid[r] = res
+    return out, iters, resid, conv
