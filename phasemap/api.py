@@ -28,6 +28,16 @@ def solutions_from_batch(result, thresholds: Thresholds = Thresholds(), method: 
     top_weight, options, best() (see :class:`phasemap.mf.MFBatchResult`).
     """
     best = result.best()
+    unstable = np.zeros(result.batch.size, bool)
+    if method == "mf":
+        from .classify import classify_arrays
+        from .mf import unstable_insulators
+
+        kk = np.where(best >= 0, best, 0)
+        r = np.arange(result.batch.size)
+        ph, _, _ = classify_arrays(result.batch.base, result.cell, result.n[r, kk], np.abs(result.phi[r, kk]),
+                                   best >= 0, thresholds)
+        unstable = unstable_insulators(result, ph, kk)
     sols = []
     for p in range(result.batch.size):
         model = models[p] if models is not None else result.batch.model(p)
@@ -38,8 +48,10 @@ def solutions_from_batch(result, thresholds: Thresholds = Thresholds(), method: 
              "filling": float(result.n[p, j].mean()), "condensate_max": float(result.phi[p, j].max())}
             for j, s in enumerate(result.seeds)
         ]
-        if k < 0:
-            k = int(np.argmin(result.residual[p]))
+        if k < 0 or unstable[p]:
+            if unstable[p]:
+                flags.append("insulator-linearly-unstable (a condensed state was not reached)")
+            k = int(np.argmin(result.residual[p])) if k < 0 else k
             conv = False
         else:
             conv = True

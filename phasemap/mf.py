@@ -35,7 +35,7 @@ from .lattice import Supercell, search_cell
 from .params import ParamBatch
 from .seeds import Seed, make_seeds
 
-__all__ = ["MFOptions", "MFBatchResult", "solve_batch", "insulator_instability", "CellOps"]
+__all__ = ["MFOptions", "MFBatchResult", "solve_batch", "insulator_instability", "unstable_insulators", "CellOps"]
 
 
 @dataclass(frozen=True)
@@ -170,6 +170,7 @@ class MFBatchResult:
     phi: np.ndarray
     top_weight: np.ndarray
     options: MFOptions = field(default_factory=MFOptions)
+    method: str = "mf"  # cluster mean field sets "cmf"
 
     @property
     def seed_names(self) -> list[str]:
@@ -371,4 +372,25 @@ def insulator_instability(batch: ParamBatch, n: np.ndarray, cell: Supercell | No
         sq = np.sqrt(chi[finite])
         M = sq[:, :, None] * T[finite] * sq[:, None, :]
         out[finite] = np.linalg.eigvalsh(M)[:, -1]
+    return out
+
+
+INSULATING = ("empty", "full", "mott", "solid")
+
+
+def unstable_insulators(result, phase, k) -> np.ndarray:
+    """Points whose winning state is an insulator that is linearly unstable (chi T > 1).
+
+    Such a point has a lower-energy condensed state that no seed reached (typically right
+    next to a continuous transition, where the self-consistency slows down); it must be
+    flagged, not classified as the insulator. Only meaningful for site-decoupled results
+    (``result.cell`` is the search cell).
+    """
+    phase = np.asarray(phase)
+    ins = np.isin(phase, INSULATING) & np.any(result.batch.t > 0, axis=1)
+    out = np.zeros(len(phase), bool)
+    if ins.any():
+        p = np.nonzero(ins)[0]
+        lam = insulator_instability(result.batch.take(p), result.n[p, k[p]], result.cell)
+        out[p] = lam > 1.0 + 1e-9
     return out

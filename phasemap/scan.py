@@ -70,6 +70,13 @@ def _extract(res, thresholds):
     r = np.arange(P)
     n, phi = res.n[r, k], np.abs(res.phi[r, k])
     phase, label, pattern = classify_arrays(res.batch.base, res.cell, n, phi, ok, thresholds)
+    if getattr(res, "method", "mf") == "mf":
+        from .mf import unstable_insulators
+
+        bad = unstable_insulators(res, phase, k)
+        if bad.any():
+            ok = ok & ~bad
+            phase, label, pattern = classify_arrays(res.batch.base, res.cell, n, phi, ok, thresholds)
     _, sq = res.cell.structure_factor(n)
     q = res.cell.momenta
     nonzero = np.any(np.abs(q) > 1e-12, axis=1)
