@@ -1,0 +1,262 @@
+"""``phasemap cluster-scaling``: a quantity for a sequence of CMF clusters, extrapolated in λ.
+
+Examples
+--------
+Square-lattice n = 1 Mott lobe tip::
+
+    phasemap cluster-scaling --lattice square --U 1 --n-max 3 --t 0.01 --quantity lobe-tip \\
+        --clusters sq1,sq2x1,sq2x2,sq2x3,sq3x3 --fit-min-lambda 0.5 --out tip
+
+Superfluid -> supersolid at half filling on the triangular lattice::
+
+    phasemap cluster-scaling --lattice triangular --V 1 --mu 3 --t 0.1 --quantity transition \\
+        --axis t --lo 0.05 --hi 0.35 --order contrast --clusters tri3-sd,tri3,tri6,tri9,tri12 \\
+        --option patterns=sqrt3 --option n_random=0 --out ss
+
+A TOML file (``--config``) may hold ``[model]`` (Model fields) and ``[scaling]`` (the option
+names below without dashes, ``clusters`` as a list, ``options`` as a table).
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import json
+import os
+import sys
+import tempfile
+
+from ..model import ConfigError, Model, check_keys
+
+__all__ = ["register", "run"]
+
+_SCALING_KEYS = ("quantity", "clusters", "axis", "lo", "hi", "order", "threshold", "xtol", "filling",
+                 "fit_min_lambda", "absolute", "options", "reference")
+
+
+def register(subparsers) -> None:
+    p = subparsers.add_parser(
+        "cluster-scaling", help="cluster mean field for a sequence of clusters, extrapolated linearly in λ",
+        description="Compute a quantity (Mott lobe tip, transition point along an axis, or an order "
+                    "parameter) with cluster mean field for several clusters and extrapolate linearly in "
+                    "λ = N_B/(N_C z/2) to λ = 1. The extrapolation is a heuristic; mean-field-type methods "
+                    "overestimate order.",
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+        epilog="library clusters: " + ", ".join(_library()))
+    g = p.add_argument_group("model")
+    g.add_argument("--config", help="TOML file with [model] and [scaling] tables")
+    g.add_argument("--lattice", help="triangular (default) or square")
+    g.add_argument("--t", help="hopping: one number or comma-separated per family")
+    g.add_argument("--V", help="nearest-neighbour repulsion: one number or per family")
+    g.add_argument("--U", help="on-site repulsion (default inf = hard-core)")
+    g.add_argument("--V2", help="next-nearest-neighbour repulsion")
+    g.add_argument("--mu", help="chemical potential")
+    g.add_argument("--n-max", dest="n_max", help="occupation cut-off (soft-core)")
+    g.add_argument("--unit", help="energy unit label")
+    s = p.add_argument_group("scaling")
+    s.add_argument("--quantity", choices=("lobe-tip", "transition", "order"), help="default: transition")
+    s.add_argument("--clusters", help="comma-separated library names (default: all of the lattice up to 12 sites)")
+    s.add_argument("--axis", help="transition: scan axis (t, mu, V, t_d1, ...)")
+    s.add_argument("--lo", help="transition: lower end of the bracket")
+    s.add_argument("--hi", help="transition: upper end of the bracket")
+    s.add_argument("--order", help="transition/order: contrast, condensate, sq_max or filling (default contrast)")
+    s.add_argument("--threshold", help="transition: order-parameter threshold (default 1e-3)")
+    s.add_argument("--xtol", help="transition: bracket width (default 1e-3)")
+    s.add_argument("--absolute", action="store_true", help="transition: bracket in absolute units, not ratios to the model scale")
+    s.add_argument("--filling", help="lobe-tip: Mott filling (default 1)")
+    s.add_argument("--fit-min-lambda", dest="fit_min_lambda", help="only clusters with λ >= this enter the fit")
+    s.add_argument("--reference", help="outside reference value for the figure, VALUE or VALUE:LABEL")
+    s.add_argument("--option", action="append", default=[], metavar="KEY=VALUE",
+                   help="cluster mean-field option (CMFOptions field), repeatable")
+    o = p.add_argument_group("output")
+    o.add_argument("--out", help="output folder (scaling.json, scaling.csv, scaling.png, scaling.pdf)")
+    o.add_argument("--json", action="store_true", help="print the result as JSON on stdout")
+    p.set_defaults(func=run)
+
+
+def _library():
+    from ..cmf.clusters import LIBRARY
+
+    return list(LIBRARY)
+
+
+def _num(name, v, cast=float):
+    try:
+        return cast(v)
+    except (TypeError, ValueError):
+        raise ConfigError(f"{name}: expected a number, got {v!r}") from None
+
+
+def _value(text: str):
+    """Option value: int, float, bool, None, comma list (tuple of str) or str."""
+    low = text.strip().lower()
+    if low in ("true", "false"):
+        return low == "true"
+    if low in ("none", "null"):
+        return None
+    for cast in (int, float):
+        try:
+            return cast(text)
+        except ValueError:
+            pass
+    if "," in text:
+        return tuple(x.strip() for x in text.split(",") if x.strip())
+    return text
+
+
+def _gather(args):
+    model_d, sc = {}, {}
+    if args.config:
+        import tomllib
+
+        try:
+            with open(args.config, "rb") as f:
+                cfg = tomllib.load(f)
+        except OSError as e:
+            raise ConfigError(f"config: cannot read {args.config!r}: {e.strerror}") from None
+        except tomllib.TOMLDecodeError as e:
+            raise ConfigError(f"config: {args.config!r} is not valid TOML: {e}") from None
+        check_keys("config", cfg, ("model", "scaling"))
+        model_d = dict(cfg.get("model", {}))
+        sc = dict(cfg.get("scaling", {}))
+        check_keys("scaling", sc, _SCALING_KEYS)
+    for k in ("lattice", "unit"):
+        if getattr(args, k) is not None:
+            model_d[k] = getattr(args, k)
+    for k in ("t", "V"):
+        v = getattr(args, k)
+        if v is not None:
+            parts = [x for x in v.split(",") if x.strip()]
+            model_d[k] = [_num(k, x) for x in parts] if len(parts) > 1 else _num(k, parts[0] if parts else v)
+    for k in ("V2", "mu"):
+        if getattr(args, k) is not None:
+            model_d[k] = _num(k, getattr(args, k))
+    if args.U is not None:
+        model_d["U"] = args.U if args.U.strip().lower() in ("inf", "hardcore", "hard-core") else _num("U", args.U)
+    if args.n_max is not None:
+        model_d["n_max"] = _num("n_max", args.n_max, int)
+    model = Model.from_dict(model_d)
+    for k in ("quantity", "axis", "order"):
+        if getattr(args, k) is not None:
+            sc[k] = getattr(args, k)
+    for k in ("lo", "hi", "threshold", "xtol", "fit_min_lambda"):
+        if getattr(args, k) is not None:
+            sc[k] = _num(k, getattr(args, k))
+    if args.filling is not None:
+        sc["filling"] = _num("filling", args.filling, int)
+    if args.absolute:
+        sc["absolute"] = True
+    if args.clusters is not None:
+        sc["clusters"] = [c.strip() for c in args.clusters.split(",") if c.strip()]
+    if args.reference is not None:
+        val, _, lab = args.reference.partition(":")
+        sc["reference"] = [_num("reference", val), lab or "reference"]
+    opts = dict(sc.get("options", {}))
+    for item in args.option:
+        key, eq, val = item.partition("=")
+        if not eq:
+            raise ConfigError(f"--option: expected KEY=VALUE, got {item!r}")
+        opts[key.strip()] = _value(val)
+    if isinstance(opts.get("patterns"), str):
+        opts["patterns"] = (opts["patterns"],)
+    sc["options"] = opts
+    return model, sc
+
+
+def _validate(model, sc):
+    from ..cmf.clusters import get_cluster, library_names
+    from ..cmf.scaling import ORDERS, QUANTITIES
+    from ..cmf.selfconsistency import CMFOptions
+    from ..params import axis_names
+
+    q = sc.get("quantity", "transition")
+    if q not in QUANTITIES:
+        raise ConfigError(f"quantity: unknown {q!r}; allowed: {', '.join(QUANTITIES)}")
+    clusters = sc.get("clusters") or [c for c in library_names(model.lattice)
+                                      if get_cluster(c).n_sites <= 12 and not c.endswith("-sd")]
+    if len(clusters) < 2:
+        raise ConfigError("clusters: give at least two clusters for a fit")
+    cls = [get_cluster(c, model.lattice) for c in clusters]
+    check_keys("cmf options", sc["options"], CMFOptions.__dataclass_fields__)
+    order = sc.get("order", "contrast")
+    if order not in ORDERS:
+        raise ConfigError(f"order: unknown order parameter {order!r}; allowed: {', '.join(ORDERS)}")
+    if q == "transition":
+        for k in ("axis", "lo", "hi"):
+            if k not in sc:
+                raise ConfigError(f"--{k}: required for quantity 'transition'")
+        if sc["axis"] not in axis_names(model):
+            raise ConfigError(f"axis: unknown {sc['axis']!r}; allowed: {', '.join(axis_names(model))}")
+        if not sc["lo"] < sc["hi"]:
+            raise ConfigError(f"lo, hi: need lo < hi, got {sc['lo']:g}, {sc['hi']:g}")
+    if q == "lobe-tip" and model.hardcore:
+        raise ConfigError("quantity lobe-tip: needs soft-core bosons (give --U and --n-max)")
+    if q == "lobe-tip" and max(model.t) <= 0:
+        raise ConfigError("quantity lobe-tip: give a nonzero --t (it fixes the hopping ratios between families)")
+    from ..cmf.guard import check_budget
+
+    budget = {k: sc["options"][k] for k in ("memory_mb", "max_dim") if k in sc["options"]}
+    for c in cls:
+        if q != "lobe-tip":
+            check_budget(c, model.n_max, budget.get("memory_mb", CMFOptions.memory_mb),
+                         budget.get("max_dim", CMFOptions.max_dim))
+    return q, clusters
+
+
+def _atomic_write(path, writer, mode="w"):
+    d = os.path.dirname(os.path.abspath(path))
+    fd, tmp = tempfile.mkstemp(dir=d, prefix=".tmp-", suffix=os.path.splitext(path)[1])
+    try:
+        with os.fdopen(fd, mode, newline="" if mode == "w" else None) as f:
+            writer(f)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def run(args) -> int:
+    from ..cmf.scaling import cluster_scaling, plot_scaling
+
+    model, sc = _gather(args)
+    q, clusters = _validate(model, sc)
+    if args.out and os.path.exists(args.out) and not os.path.isdir(args.out):
+        raise ConfigError(f"--out: {args.out!r} exists and is not a folder")
+    kw = dict(sc["options"])
+    if q == "transition":
+        kw.update(axis=sc["axis"], lo=sc["lo"], hi=sc["hi"], order=sc.get("order", "contrast"),
+                  threshold=sc.get("threshold", 1e-3), xtol=sc.get("xtol", 1e-3),
+                  relative=not sc.get("absolute", False))
+    elif q == "order":
+        kw["order"] = sc.get("order", "contrast")
+    else:
+        kw["filling"] = sc.get("filling", 1)
+    ref = sc.get("reference")
+    res = cluster_scaling(model, clusters, q, fit_min_lambda=sc.get("fit_min_lambda"),
+                          reference=tuple(ref) if ref else None, **kw)
+    d = res.to_dict()
+    d["model"] = model.to_dict()
+    if args.json:
+        json.dump(d, sys.stdout, indent=2)
+        sys.stdout.write("\n")
+    else:
+        print(f"model: {model.describe()}")
+        print(res.table())
+    if args.out:
+        os.makedirs(args.out, exist_ok=True)
+        base = os.path.join(args.out, "scaling")
+        _atomic_write(base + ".json", lambda f: json.dump(d, f, indent=2))
+
+        def wcsv(f):
+            w = csv.writer(f)
+            w.writerow(["cluster", "lambda", res.label, "in_fit"])
+            for c, lam, v, m in zip(res.clusters, res.lam, res.values, res.fit_mask):
+                w.writerow([c, f"{lam:.10g}", f"{v:.10g}", int(m)])
+            w.writerow(["lambda->1", "1", f"{res.extrapolated:.10g}", ""])
+
+        _atomic_write(base + ".csv", wcsv)
+        plot_scaling(res, base)
+        if not args.json:
+            print(f"wrote {base}.json, .csv, .png, .pdf")
+    return 0
