@@ -27,7 +27,7 @@ D. van Oosten, P. van der Straten, H. T. C. Stoof, PRA 63, 053601 (2001).
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -264,7 +264,7 @@ def _iterate(ops: CellOps, batch: ParamBatch, n0, phi0, opt: MFOptions):
             xnew = np.where(ok[:, None], step, xnew)
         px, pf = x, f
         xnew[:, :S] = np.clip(xnew[:, :S], 0.0, batch.n_max)  # keep the iterate physical
-        xnew[:, S:] = np.clip(xnew[:, S:], 0.0, None)
+        xnew[:, S:] = np.where(xnew[:, S:] < 0, 0.5 * x[:, S:], xnew[:, S:])  # phi = 0 would be a trap
         x = xnew
         if (~live).sum() > 0.1 * len(live):  # compact
             keep = live
@@ -331,6 +331,7 @@ def solve_batch(batch: ParamBatch, options: MFOptions = MFOptions(), seeds: list
             n0 = np.broadcast_to(np.stack([seeds[k].n0 for k in ks]), (P, len(ks), cell.n_sites)).copy()
             phi0 = np.broadcast_to(np.stack([seeds[k].phi0 for k in ks]), (P, len(ks), cell.n_sites)).copy()
         E, conv, it, res, n, ph, top = _iterate(ops, batch, n0, phi0, options)
+        _retry_unstable(ops, batch, n0, phi0, options, (E, conv, it, res, n, ph, top))
         out["energy"][:, ks] = E
         out["converged"][:, ks] = conv
         out["iterations"][:, ks] = it
@@ -339,6 +340,28 @@ def solve_batch(batch: ParamBatch, options: MFOptions = MFOptions(), seeds: list
         out["phi"][:, ks] = ph[:, :, unfold]
         out["top_weight"][:, ks] = top
     return MFBatchResult(batch=batch, cell=big, seeds=seeds, options=options, **out)
+
+
+def _retry_unstable(ops, batch, n0, phi0, options, out):
+    """Re-run, without Anderson steps, seeds that started condensed but converged onto a
+    linearly unstable insulator (Anderson is a root finder and can land on unstable fixed
+    points; plain mixing follows the instability to the condensed state)."""
+    E, conv, it, res, n, ph, top = out
+    cand = conv & (ph.max(-1) < 1e-8) & (phi0.max(-1) > 0) & np.any(batch.t > 0, axis=1)[:, None]
+    if not cand.any():
+        return
+    p, k = np.nonzero(cand)
+    sub = batch.take(p)
+    lam = insulator_instability(sub, n[p, k], ops.cell)
+    bad = lam > 1.0 + 1e-9
+    if not bad.any():
+        return
+    p, k = p[bad], k[bad]
+    plain = replace(options, anderson=0, max_iter=10 * options.max_iter, mixing=1.0 if batch.hardcore else 0.7, engine="numpy"
+                    if not batch.hardcore else options.engine)
+    r = _iterate(ops, batch.take(p), n0[p, k][:, None], phi0[p, k][:, None], plain)
+    for arr, new in zip(out, r):
+        arr[p, k] = new[:, 0]
 
 
 def insulator_instability(batch: ParamBatch, n: np.ndarray, cell: Supercell | None = None) -> np.ndarray:

@@ -150,8 +150,8 @@ def hardcore_rows(t, V, V2, mu, plus, minus, nplus, nminus, x0, tol, max_iter, m
                     step = x[d] + mixing * f[d]
                 if d < S:
                     step = min(max(step, 0.0), 1.0)
-                else:
-                    step = max(step, 0.0)
+                elif step < 0.0:  # halve instead of clipping: phi = 0 would be a trap
+                    step = 0.5 * x[d]
                 x[d] = step
         else:
             out[r] = x
