@@ -357,8 +357,8 @@ def _retry_unstable(ops, batch, n0, phi0, options, out):
     if not bad.any():
         return
     p, k = p[bad], k[bad]
-    plain = replace(options, anderson=0, max_iter=10 * options.max_iter, mixing=1.0 if batch.hardcore else 0.7, engine="numpy"
-                    if not batch.hardcore else options.engine)
+    plain = replace(options, anderson=0, max_iter=10 * options.max_iter,
+                    mixing=1.0 if batch.hardcore else 0.7)
     r = _iterate(ops, batch.take(p), n0[p, k][:, None], phi0[p, k][:, None], plain)
     for arr, new in zip(out, r):
         arr[p, k] = new[:, 0]
