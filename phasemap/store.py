@@ -335,10 +335,16 @@ class ChunkStore:
 
     def clear(self) -> None:
         """Remove this store's chunk files and manifest (nothing else in the folder)."""
-        for p in self.folder.glob("chunk_*.npz"):
+        self.discard(self.folder)
+
+    @classmethod
+    def discard(cls, folder) -> None:
+        """Remove any checkpoint (chunk files and manifest) in ``folder``, whatever its scan."""
+        folder = Path(folder)
+        for p in folder.glob("chunk_*.npz"):
             p.unlink()
         with contextlib.suppress(FileNotFoundError):
-            (self.folder / self.MANIFEST).unlink()
+            (folder / cls.MANIFEST).unlink()
 
     def remove(self) -> None:
         """Delete the checkpoint (after the final result is safely written)."""

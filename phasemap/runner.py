@@ -1,0 +1,191 @@
+"""Execute a validated run config: compute every scan, then write data, figures and config.
+
+Output folder layout for a scan named ``NAME`` of a config ``CFG.toml``::
+
+    NAME.nc              labelled data (maps and curves), NetCDF-4
+    NAME.csv             curves only: one row per chemical potential, metadata in the header
+    NAME_plateaus.csv    curves only: plateau table (fraction, label, mu_lo, mu_hi, width)
+    NAME_jumps.csv       curves only: first-order jumps (mu, n_below, n_above, from, to)
+    NAME.png, NAME.pdf   figures
+    CFG.config.toml      the resolved configuration (all defaults filled in)
+    .checkpoint/NAME/    per-chunk checkpoint of an unfinished map (removed when done)
+
+All scans are computed before the first file is written, and each file is written atomically,
+so a failed run leaves no half-written results.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+from pathlib import Path
+
+import numpy as np
+
+from .config import RunConfig, ScanSpec, dumps_toml
+from .model import ConfigError
+from .store import ChunkStore, atomic_write_text, save_csv, save_netcdf
+
+__all__ = ["run", "checkpoint_params", "curve_tables"]
+
+CHECKPOINT_DIR = ".checkpoint"
+
+
+def checkpoint_params(cfg: RunConfig, scan: ScanSpec) -> dict:
+    """Everything that fixes a map's per-chunk results (hashed by :class:`ChunkStore`)."""
+    from . import __version__
+
+    return {"model": cfg.model.to_dict(), "scan": scan.to_dict(), "solver": cfg.options(scan),
+            "thresholds": cfg.thresholds.to_dict(), "version": __version__}
+
+
+def _run_attrs(cfg: RunConfig, scan: ScanSpec) -> dict:
+    attrs = {"scan_name": scan.name, "config_name": cfg.name,
+             "run_config": dumps_toml(cfg.to_dict())}
+    for k, v in cfg.meta.items():
+        attrs[f"meta_{k}"] = int(v) if isinstance(v, bool) else v
+    if cfg.meta.get("invented"):
+        attrs["invented"] = 1
+        attrs["caution_invented"] = "INVENTED scenario: parameters are not from any real material"
+    return attrs
+
+
+def _compute(cfg: RunConfig, scan: ScanSpec, out: Path, resume: bool, restart: bool, progress: bool):
+    from .scan import filling_curve, phase_map
+
+    opts = cfg.options(scan)
+    if scan.kind == "curve":
+        curve = filling_curve(cfg.model, mu=scan.x.values, relative=scan.relative, method=scan.method,
+                              options=opts, thresholds=cfg.thresholds, refine=scan.refine,
+                              tol=scan.edge_tol, jump_tol=scan.jump_tol, progress=progress)
+        return curve.dataset, curve, None
+    folder = out / CHECKPOINT_DIR / scan.name
+    if restart:
+        ChunkStore.discard(folder)
+    elif not resume and (folder / ChunkStore.MANIFEST).is_file():
+        raise ConfigError(f"checkpoint: {str(folder)!r} holds an unfinished run; pass --resume to continue it "
+                          "or --restart to discard it")
+    ck = ChunkStore(folder, checkpoint_params(cfg, scan), resume=True)
+    ds = phase_map(cfg.model, x=(scan.x.name, scan.x.values), y=(scan.y.name, scan.y.values),
+                   relative=scan.relative, method=scan.method, options=opts, thresholds=cfg.thresholds,
+                   refine=scan.refine, refine_tol=scan.refine_tol, progress=progress, checkpoint=ck,
+                   chunk=scan.chunk)
+    return ds, None, ck
+
+
+def curve_tables(ds) -> tuple[dict, dict, dict]:
+    """Columns of the per-point, plateau and jump CSV tables of a filling-curve Dataset."""
+    point_cols = {"mu": ds["mu"].values}
+    for k in ("filling", "energy", "label", "phase_code", "converged", "condensate_max", "contrast", "sq_max",
+              "iterations", "residual", "top_weight"):
+        if k in ds:
+            point_cols[k] = ds[k].values
+    plateaus = json.loads(ds.attrs.get("plateaus", "[]"))
+    jumps = json.loads(ds.attrs.get("jumps", "[]"))
+    pl_keys = ("fraction", "filling", "label", "mu_lo", "mu_hi", "width")
+    pl = {k: np.array([p[k] for p in plateaus], dtype=object if k in ("fraction", "label") else float)
+          for k in pl_keys}
+    j_keys = ("mu", "n_below", "n_above", "from", "to")
+    jm = {k: np.array([j[k] for j in jumps], dtype=object if k in ("from", "to") else float) for k in j_keys}
+    return point_cols, pl, jm
+
+
+def _csv_meta(attrs: dict) -> dict:
+    meta = {}
+    for k, v in attrs.items():
+        if k == "run_config":
+            continue  # multi-line; the resolved config is written beside the data
+        if isinstance(v, str) and v[:1] in "[{":
+            try:
+                v = json.loads(v)
+            except json.JSONDecodeError:
+                pass
+        meta[k] = v
+    return meta
+
+
+def _write(cfg: RunConfig, scan: ScanSpec, ds, out: Path) -> list[Path]:
+    from .plot import plot_filling_curve, plot_phase_map, save_figure
+
+    stem = out / scan.name
+    paths = [save_netcdf(ds, stem.with_suffix(".nc"))]
+    title = cfg.meta.get("title")
+    if scan.kind == "curve":
+        pts, pl, jm = curve_tables(ds)
+        meta = _csv_meta(ds.attrs)
+        paths.append(save_csv(stem.with_suffix(".csv"), pts, meta))
+        paths.append(save_csv(out / f"{scan.name}_plateaus.csv", pl, {"table": "plateaus", **meta}))
+        paths.append(save_csv(out / f"{scan.name}_jumps.csv", jm, {"table": "first-order jumps", **meta}))
+    if cfg.output.figures:
+        if scan.kind == "map":
+            fig = plot_phase_map(ds, width=cfg.output.width, title=title)
+        else:
+            fig = plot_filling_curve(ds, width=cfg.output.width, title=title)
+        paths += save_figure(fig, stem, cfg.output.formats, cfg.output.dpi)
+    return paths
+
+
+def _summary(scan: ScanSpec, ds, curve) -> str:
+    if curve is not None:
+        pl = ", ".join(f"{p['fraction']} [{p['mu_lo']:.4g}, {p['mu_hi']:.4g}]" for p in curve.plateaus)
+        return f"{scan.name}: {len(curve.mu)} points; plateaus {pl or 'none'}; {len(curve.jumps)} first-order jump(s)"
+    labels, counts = np.unique(ds["label"].values, return_counts=True)
+    parts = ", ".join(f"{lab} {c}" for lab, c in sorted(zip(labels, counts), key=lambda x: -x[1]))
+    nb = ds.sizes.get("bpoint", 0)
+    return f"{scan.name}: {ds['label'].size} points ({parts}); {nb} refined boundary points"
+
+
+def run(cfg: RunConfig, out=None, resume: bool = False, restart: bool = False, progress: bool = True,
+        log=print) -> list[Path]:
+    """Compute every scan of ``cfg`` and write results into the output folder.
+
+    Parameters
+    ----------
+    cfg : RunConfig
+        Validated configuration (:func:`phasemap.config.load_config`).
+    out : path-like, optional
+        Output folder (default: ``cfg.output.folder``, relative to the working directory).
+    resume : bool
+        Continue a map from the checkpoint of an interrupted run with identical parameters.
+    restart : bool
+        Discard an existing checkpoint and start over.
+    progress : bool
+        tqdm progress bars on stderr.
+    log : callable
+        Receives one-line progress/summary messages.
+
+    Returns
+    -------
+    list of pathlib.Path
+        Every file written.
+
+    Raises
+    ------
+    ConfigError
+        Output folder unusable, or a checkpoint of a different/unfinished scan in the way.
+    """
+    out = Path(out if out is not None else cfg.output.folder)
+    if out.exists() and not out.is_dir():
+        raise ConfigError(f"output folder: {str(out)!r} exists and is not a folder")
+    results = []
+    for scan in cfg.scans:
+        t0 = time.perf_counter()
+        ds, curve, ck = _compute(cfg, scan, out, resume, restart, progress)
+        ds.attrs.update(_run_attrs(cfg, scan))
+        ds.attrs["wall_time_s"] = round(time.perf_counter() - t0, 3)
+        log(_summary(scan, ds, curve) + f" ({time.perf_counter() - t0:.1f} s)")
+        results.append((scan, ds, ck))
+    paths = []
+    for scan, ds, ck in results:
+        paths += _write(cfg, scan, ds, out)
+    header = (f"resolved configuration written by phasemap (source: {cfg.source or cfg.name})\n"
+              + ("INVENTED scenario: not a real material\n" if cfg.meta.get("invented") else ""))
+    paths.append(atomic_write_text(out / f"{cfg.name}.config.toml", dumps_toml(cfg.to_dict(), header)))
+    for _, _, ck in results:
+        if ck is not None:
+            ck.remove()
+    try:
+        (out / CHECKPOINT_DIR).rmdir()
+    except OSError:
+        pass
+    return paths
