@@ -93,6 +93,12 @@ def phase_colors(labels) -> dict[str, tuple]:
     return out
 
 
+def _wrap(title: str, width_in: float) -> str:
+    import textwrap
+
+    return textwrap.fill(str(title), width=max(20, int(14 * width_in)))
+
+
 def _edges(c: np.ndarray) -> np.ndarray:
     c = np.asarray(c, float)
     if len(c) == 1:
@@ -197,7 +203,7 @@ def plot_phase_map(ds, width="single", title=None, boundaries=True, region_names
         ax.set_xlabel(ds.attrs.get("x_label", xn))
         ax.set_ylabel(ds.attrs.get("y_label", yn))
         if title:
-            ax.set_title(title, fontsize=8)
+            ax.set_title(_wrap(title, w), fontsize=7.5)
         fig.legend(handles=handles, loc="outside lower center", ncol=ncol, frameon=False,
                    handlelength=1.2, columnspacing=0.8, handletextpad=0.4)
     return fig
@@ -277,7 +283,7 @@ def plot_filling_curve(ds, width="single", title=None) -> Figure:
         ax.set_xlabel(ds.attrs.get("x_label", "μ"))
         ax.set_ylabel("filling ⟨n⟩")
         if title:
-            ax.set_title(title, fontsize=8)
+            ax.set_title(_wrap(title, w), fontsize=7.5)
         ax.legend(loc="upper left", frameon=False)
     return fig
 

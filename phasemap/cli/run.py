@@ -1,0 +1,41 @@
+"""``phasemap run``: execute a TOML run config (phase map or filling curve)."""
+
+from __future__ import annotations
+
+__all__ = ["register"]
+
+HELP = "run a TOML config (map or curve), writing data + figures"
+EPILOG = """The output folder receives NetCDF data (CSV too for curves), PNG/PDF figures and the
+resolved config. An interrupted map keeps a checkpoint in OUT/.checkpoint/: rerun with --resume."""
+
+
+def register(sub) -> None:
+    """Add the ``run`` subcommand."""
+    p = sub.add_parser("run", help=HELP, description="Run a phasemap TOML config.", epilog=EPILOG)
+    p.add_argument("config", help="path to CONFIG.toml")
+    p.add_argument("--out", default=None, metavar="DIR", help="output folder (default: [output] folder of the config)")
+    g = p.add_mutually_exclusive_group()
+    g.add_argument("--resume", action="store_true", help="continue an interrupted map from its checkpoint")
+    g.add_argument("--restart", action="store_true", help="discard an existing checkpoint and start over")
+    p.add_argument("--quiet", action="store_true", help="no progress bars")
+    p.set_defaults(func=run)
+
+
+def execute(cfg, args) -> int:
+    """Run ``cfg`` with the common options of ``run``/``demo``; prints the files written."""
+    import sys
+
+    from ..runner import run as run_cfg
+
+    paths = run_cfg(cfg, out=args.out, resume=getattr(args, "resume", False),
+                    restart=getattr(args, "restart", False), progress=not args.quiet,
+                    log=lambda s: print(s, file=sys.stderr))
+    for p in paths:
+        print(p)
+    return 0
+
+
+def run(args) -> int:
+    from ..config import load_config
+
+    return execute(load_config(args.config), args)
