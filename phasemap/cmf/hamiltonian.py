@@ -91,6 +91,11 @@ class ClusterOperators:
         for a in range(S):  # term F + a: b_a + b_a^+
             add("+", [a], F + a)
             add("-", [a], F + a)
+        # explicit diagonal slots (term index F + S, base 0) so that the pattern is fixed
+        rows.append(np.arange(dim, dtype=np.int64))
+        cols.append(np.arange(dim, dtype=np.int64))
+        vals.append(np.zeros(dim))
+        terms.append(np.full(dim, F + S, dtype=np.int32))
         r = np.concatenate(rows) if rows else np.zeros(0, np.int64)
         c = np.concatenate(cols) if cols else np.zeros(0, np.int64)
         v = np.concatenate(vals) if vals else np.zeros(0)
@@ -103,12 +108,14 @@ class ClusterOperators:
         del r, c, v, tm, order
         self.indptr = np.concatenate([[0], np.cumsum(np.bincount(self.rows, minlength=dim))]).astype(np.int32)
         self.n_terms = F + S
-        self.nnz = len(self.base)
+        self.diag_pos = np.flatnonzero(self.term == F + S)
+        assert np.array_equal(self.rows[self.diag_pos], np.arange(dim))
+        self.nnz = len(self.base) - dim
 
     # -- building the matrix -------------------------------------------------------------
     def coefficients(self, t, Phi) -> np.ndarray:
         """Coefficient of every term: ``-t_f`` for hopping families, ``-Phi_a`` for fields."""
-        return np.concatenate([-np.asarray(t, float), -np.asarray(Phi, float)])
+        return np.concatenate([-np.asarray(t, float), -np.asarray(Phi, float), [0.0]])
 
     def diagonal(self, U, V, V2, mu, eps) -> np.ndarray:
         """Diagonal of H_C; ``U`` is ignored (0) for hard-core (n_max = 1)."""
@@ -119,9 +126,9 @@ class ClusterOperators:
 
     def matrix(self, coef, diag) -> sp.csr_matrix:
         """Sparse H_C (off-diagonal terms + diagonal)."""
-        off = sp.csr_matrix((coef[self.term] * self.base, self.indices, self.indptr),
-                            shape=(self.dim, self.dim))
-        return off + sp.diags(diag, format="csr")
+        data = coef[self.term] * self.base
+        data[self.diag_pos] = diag
+        return sp.csr_matrix((data, self.indices, self.indptr), shape=(self.dim, self.dim))
 
     def dense(self, coef, diag) -> np.ndarray:
         H = np.zeros((self.dim, self.dim))
@@ -139,7 +146,7 @@ class ClusterOperators:
         """
         p = v * v
         w = v[self.rows] * self.base * v[self.indices]
-        per = np.bincount(self.term, weights=w, minlength=self.n_terms)
+        per = np.bincount(self.term, weights=w, minlength=self.n_terms + 1)[: self.n_terms]
         F = self.F
         return {
             "n": self.occ @ p,

@@ -69,7 +69,7 @@ class CMFOptions:
         Rows still moving after max_iter iterations are flagged unconverged.
     mixing : float, default 0.6
         Linear mixing x <- x + mixing (G(x) - x) inside the Anderson step.
-    anderson : int, default 6
+    anderson : int, default 10
         Anderson acceleration memory (0: plain damped mixing).
     patience : int, default 80
         Give up (unconverged) when the residual has not improved for this many iterations.
@@ -99,7 +99,7 @@ class CMFOptions:
     tol: float = 1e-9
     max_iter: int = 2000
     mixing: float = 0.6
-    anderson: int = 6
+    anderson: int = 10
     patience: int = 80
     n_random: int = 1
     rng: int = 0
@@ -317,6 +317,14 @@ def _solve_row(prob: ClusterProblem, x0, v0, opt: CMFOptions, n_max: int):
                 phi=ex["phi"], top=float(ex["top"].max()), v=v)
 
 
+def _param_step(batch, p, q) -> np.ndarray:
+    d = np.concatenate([batch.t[p] - batch.t[q], batch.V[p] - batch.V[q],
+                        [batch.V2[p] - batch.V2[q], batch.mu[p] - batch.mu[q]]])
+    if not batch.hardcore:
+        d = np.append(d, batch.U[p] - batch.U[q])
+    return d
+
+
 def _keeps_character(seed: Seed, n, phi) -> bool:
     if np.ptp(seed.n0) > 1e-9 and np.ptp(n) < 1e-4:
         return False
@@ -385,6 +393,7 @@ def _solve_points(batch, cl, ops, seeds, init, opt):
                residual=np.empty((P, K)), n=np.empty((P, K, S)), phi=np.empty((P, K, S)),
                top_weight=np.zeros((P, K)))
     last = [None] * K  # previous point's end state per seed
+    last2 = [None] * K  # and the one before (linear predictor along a scan)
     for p in range(P):
         prob = ClusterProblem(cl, ops, batch.t[p], batch.V[p], batch.U[p], batch.V2[p], batch.mu[p], batch.hardcore)
         for k, sd in enumerate(seeds):
@@ -397,10 +406,21 @@ def _solve_points(batch, cl, ops, seeds, init, opt):
                 if prev["converged"] and _keeps_character(sd, prev["n"], prev["phi"]):
                     x0 = np.concatenate([prev["n"], prev["phi"]])
                     v0 = prev["v"]
+                    pp = last2[k]
+                    if pp is not None and pp["converged"] and p >= 2 and _keeps_character(sd, pp["n"], pp["phi"]):
+                        # secant predictor from the two previous points (equally weighted in the
+                        # distance of the parameters), kept only if it moves little
+                        s1, s2 = _param_step(batch, p, p - 1), _param_step(batch, p - 1, p - 2)
+                        d1, d2 = np.linalg.norm(s1), np.linalg.norm(s2)
+                        if d2 > 0 and d1 <= 2 * d2 and s1 @ s2 > 0.999 * d1 * d2:  # same direction
+                            x_pp = np.concatenate([pp["n"], pp["phi"]])
+                            pred = x0 + (d1 / d2) * (x0 - x_pp)
+                            if np.abs(pred - x0).max() < 0.1:
+                                x0 = np.concatenate([np.clip(pred[:S], 0, batch.n_max), np.clip(pred[S:], 0, None)])
                 elif prev["v"] is not None:
                     v0 = None
             row = _solve_row(prob, x0, v0, opt, batch.n_max)
-            last[k] = row
+            last2[k], last[k] = last[k], row
             out["energy"][p, k] = row["energy"]
             out["converged"][p, k] = row["converged"]
             out["iterations"][p, k] = row["iterations"]
