@@ -197,6 +197,10 @@ def _cell_of(method, options, batch):
 
     if method == "mf":
         return search_cell(batch.base.lattice)
+    if method == "cmf":  # arrays live on the cluster's sites
+        from .cmf import get_cluster
+
+        return get_cluster((options or {}).get("cluster", "tri12"), batch.base.lattice).cell
     return None  # taken from the solver result (cluster) when needed
 
 
