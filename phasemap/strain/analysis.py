@@ -1,0 +1,302 @@
+r"""One strain: plateau extent, phase at a chemical potential, phase at fixed filling, margins.
+
+:func:`check_strain` answers "at strain s, is the system still in the commensurate solid?"
+and returns a :class:`StrainCheck` whose ``data`` dictionary holds every number; the
+plain-language :meth:`StrainCheck.verdict` is written from that dictionary only, so the text
+and the JSON (:meth:`StrainCheck.to_json`) cannot disagree.
+
+Conventions
+-----------
+* Energies (chemical potential, plateau width) are in the table's unit; "relative to V"
+  divides by the largest nearest-neighbour repulsion at that strain.
+* The *melt factor* is the factor by which every hopping must be multiplied, interactions
+  fixed (i.e. the factor by which t/V must grow), for the plateau to close; found by
+  :func:`scipy.optimize.brentq` on the plateau width. A factor below 1 means the plateau is
+  already gone and says how far t/V would have to fall to bring it back.
+* Fixed filling: the canonical answer is read from the grand-canonical branches. A filling
+  jump across the target filling is a first-order transition: at fixed filling the system
+  phase-separates between the two branches (Maxwell construction).
+
+Caution: site-decoupled mean field overestimates the solid; cluster mean field less so.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..classify import Thresholds
+from ..model import ConfigError, Model
+from .engine import MethodSpec, evaluate_points, fixed_filling, locate_plateaus, mu_margin, parse_fraction
+from .roots import narrowed_brentq
+from .table import StrainTable
+
+__all__ = ["check_strain", "StrainCheck", "melt_factor", "strain_filling_curve", "CAUTION"]
+
+CAUTION = ("mean field overestimates the solid (site-decoupled badly so on the triangular lattice): "
+           "its plateau widths and critical strains are bound-like estimates; compare cluster mean field")
+
+
+def _jsonable(v):
+    from ..store import jsonable
+
+    return jsonable(v)
+
+
+def _fmt(x, unit="", digits=3):
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return "n/a"
+    if isinstance(x, str):
+        return x
+    if math.isinf(x):
+        return "unbounded" if x > 0 else "-unbounded"
+    s = f"{x:.{digits}g}"
+    return f"{s} {unit}".strip()
+
+
+def _scaled_t(model: Model, factor: float) -> Model:
+    return model.replace(t=tuple(float(x) * factor for x in model.t))
+
+
+def melt_factor(model: Model, spec: MethodSpec = MethodSpec(), fraction="1/3", f_min: float = 0.05,
+                f_max: float = 10.0, rtol: float = 1e-3, width_floor: float = 1e-3, **locate_kw) -> dict:
+    """Factor by which all hoppings (t/V) must be multiplied for the plateau to close.
+
+    Root of ``w(f) - width_floor * scale`` with :func:`scipy.optimize.brentq`, after a batched
+    bracket search over ``f`` in ``[1, f_max]`` (plateau present) or ``[f_min, 1]`` (absent)
+    and one batched multi-section narrowing of the bracket.
+
+    Returns
+    -------
+    dict
+        ``status`` ("found", "beyond-range", "already-melted", "never-present",
+        "unconverged"), ``factor`` (None unless found), ``bracket``, ``evaluations``,
+        ``flags``.
+    """
+    if not (0 < f_min < 1 < f_max and np.isfinite(f_max)):
+        raise ConfigError(f"melt factor range: need 0 < f_min < 1 < f_max, got {f_min}, {f_max}")
+    floor = width_floor * model.scale
+    kw = dict(locate_kw)
+    kw.setdefault("tol", width_floor / 5)
+    kw["width_floor"] = width_floor
+    flags: list[str] = []
+    count = [0]
+
+    def widths(factors):
+        count[0] += len(factors)
+        r = locate_plateaus([_scaled_t(model, f) for f in factors], fraction, spec, **kw)
+        for p in range(r.size):
+            if not r.ok(p):
+                flags.append(f"t x{factors[p]:.4g}: " + "; ".join(x for x in r.flags[p] if x.startswith("unconverged")))
+        return np.where(r.reached, r.width, 0.0) - floor
+
+    h1 = widths([1.0])[0]
+    up = h1 > 0
+    grid = np.geomspace(1.0, f_max, 7)[1:] if up else np.geomspace(f_min, 1.0, 7)[:-1][::-1]
+    hs = widths(list(grid))
+    prev_f, prev_h = 1.0, h1
+    bracket = None
+    h_at = dict(zip(grid, hs))
+    for f, h in zip(grid, hs):
+        if (h > 0) != (prev_h > 0):
+            bracket = (min(prev_f, f), max(prev_f, f))
+            break
+        prev_f, prev_h = f, h
+    out = {"status": "", "factor": None, "bracket": None, "range": [f_min, f_max], "rtol": rtol, "flags": flags}
+    if bracket is None:
+        out["status"] = "beyond-range" if up else "never-present"
+        out["evaluations"] = count[0]
+        return out
+
+    def h(f):
+        return widths([f])[0]
+
+    a, b = bracket
+    ha, hb = (prev_h, h_at[b]) if prev_f == a else (h_at[a], prev_h)
+    root, _, _ = narrowed_brentq(h, widths, a, b, ha, hb, xtol=rtol * a, sections=15)
+    out.update(status="found" if up else "already-melted", factor=float(root), bracket=[a, b],
+               evaluations=count[0])
+    if flags:
+        out["status"] += "-uncertain"
+    return out
+
+
+def strain_filling_curve(table: StrainTable, strain: float, spec="mf", mu=None, extrapolate=False, **kw):
+    """The full filling curve n(mu) at one strain (:func:`phasemap.scan.filling_curve`, absolute mu)."""
+    from ..scan import filling_curve
+
+    spec = MethodSpec.parse(spec)
+    model = table.model(strain, extrapolate=extrapolate)
+    if mu is None:
+        from .engine import default_window
+
+        lo, hi = default_window(model)
+        mu = np.linspace(lo, hi, 161)
+    return filling_curve(model, mu, relative=False, method=spec.method, options=spec.option_dict, **kw)
+
+
+@dataclass
+class StrainCheck:
+    """Answer of :func:`check_strain`; ``data`` is plain JSON."""
+
+    data: dict = field(default_factory=dict)
+
+    def to_json(self, indent=2) -> str:
+        return json.dumps(_jsonable(self.data), indent=indent, ensure_ascii=False)
+
+    def verdict(self) -> str:
+        """Plain-language verdict, written from ``data`` only."""
+        return verdict_text(self.data)
+
+
+def _edge_kind(jump, tol):
+    return "first-order" if jump > tol else "continuous"
+
+
+def check_strain(table: StrainTable, strain: float, spec="mf", mu: float | None = None, fraction="1/3",
+                 extrapolate: bool = False, melt: bool = True, melt_max: float = 10.0, thresholds=Thresholds(),
+                 tol: float = 1e-4, width_floor: float = 1e-3, jump_tol: float = 1e-3, n_mu: int = 121) -> StrainCheck:
+    """Is the system at ``strain`` in the commensurate solid, and how far from leaving it?
+
+    Parameters
+    ----------
+    table : StrainTable
+    strain : float
+        Must lie inside the table unless ``extrapolate``.
+    spec : str or MethodSpec
+        "mf", "cmf:<cluster>".
+    mu : float, optional
+        Chemical potential (table unit) at which to report the phase and its distance to
+        the plateau edges.
+    fraction : str, default "1/3"
+    melt : bool
+        Compute the melt factor (root-finding; the slowest part).
+    tol, width_floor, jump_tol, n_mu
+        See :func:`phasemap.strain.engine.locate_plateaus` (tol, width_floor relative to V).
+
+    Returns
+    -------
+    StrainCheck
+    """
+    spec = MethodSpec.parse(spec)
+    lab, _ = parse_fraction(fraction)
+    model = table.model(strain, extrapolate=extrapolate)
+    if mu is not None:
+        mu = float(mu)
+        if not math.isfinite(mu):
+            raise ConfigError(f"mu: must be a finite number, got {mu}")
+    kw = dict(tol=tol, width_floor=width_floor, jump_tol=jump_tol, thresholds=thresholds, n_mu=n_mu)
+    res = locate_plateaus([model], lab, spec, **kw)
+    Vref = max(abs(v) for v in model.V)
+    t_over_V = max(model.t) / Vref if Vref > 0 else math.inf
+    width = float(res.width[0])
+    plateau = {
+        "fraction": lab, "exists": bool(res.exists[0]), "reached": bool(res.reached[0]),
+        "mu_lo": float(res.mu_lo[0]), "mu_hi": float(res.mu_hi[0]), "width": width,
+        "width_over_V": width / Vref if Vref > 0 else None,
+        "label": str(res.label_center[0]) if res.exists[0] else "",
+        "lower_edge": _edge_kind(res.jump_lo[0], jump_tol) if math.isfinite(res.mu_lo[0]) else "open",
+        "upper_edge": _edge_kind(res.jump_hi[0], jump_tol) if math.isfinite(res.mu_hi[0]) else "open",
+        "below": str(res.label_below[0]), "above": str(res.label_above[0]),
+        "edge_precision": float(res.tol[0]),
+    }
+    data = {
+        "strain": float(strain), "method": spec.name, "unit": table.unit, "fraction": lab,
+        "table": table.path, "extrapolated": bool(not (table.span[0] <= strain <= table.span[1])),
+        "parameters": {"t": list(model.t), "V": list(model.V), "U": "inf" if model.hardcore else model.U,
+                       "V2": model.V2, "t_over_V": t_over_V, "families": list(model.families)},
+        "plateau": plateau,
+        "fixed_filling": fixed_filling(res, 0, jump_tol),
+        "flags": list(res.flags[0]),
+        "caution": CAUTION,
+    }
+    if mu is not None:
+        pt = evaluate_points([model], np.array([[mu]]), spec, thresholds)
+        conv = bool(pt["converged"][0, 0])
+        m = mu_margin(res, 0, mu)
+        inside = bool(res.exists[0] and m >= 0)
+        nearest = None
+        if res.exists[0] and res.reached[0]:
+            d_lo, d_hi = abs(mu - res.mu_lo[0]), abs(mu - res.mu_hi[0])
+            nearest = "lower" if d_lo <= d_hi else "upper"
+        data["at_mu"] = {"mu": mu, "converged": conv, "phase": str(pt["phase"][0, 0]) if conv else "unconverged",
+                         "label": str(pt["label"][0, 0]) if conv else "unconverged",
+                         "filling": float(pt["filling"][0, 0]) if conv else None,
+                         "inside_plateau": inside, "margin_mu": float(m) if math.isfinite(m) else None,
+                         "nearest_edge": nearest}
+        if not conv:
+            data["flags"].append(f"unconverged: the state at mu = {mu:g} did not converge (not classified)")
+    if melt and res.reached[0]:
+        mf = melt_factor(model, spec, lab, f_max=melt_max, width_floor=width_floor, jump_tol=jump_tol,
+                         thresholds=thresholds, n_mu=n_mu)
+        data["melt"] = {**mf, "t_over_V_at_melt": (mf["factor"] * t_over_V if mf["factor"] else None)}
+        data["flags"] += [f"melt search: {x}" for x in mf["flags"]]
+    ok = not any(x.startswith("unconverged") for x in data["flags"])
+    data["converged"] = ok
+    if not res.reached[0]:
+        data["verdict"] = "not-reached"
+    elif not ok:
+        data["verdict"] = "uncertain"
+    else:
+        data["verdict"] = "holds" if res.exists[0] else "melted"
+    return StrainCheck(data)
+
+
+def verdict_text(d: dict) -> str:
+    """Plain-language verdict from a :func:`check_strain` dictionary."""
+    u = d["unit"]
+    p = d["plateau"]
+    frac = d["fraction"]
+    name = f"the {frac} solid" if frac not in ("0", "1") else {"0": "the empty state", "1": "the full state"}[frac]
+    head = f"at strain {d['strain']:g} ({d['method']})"
+    lines = []
+    wV = p.get("width_over_V")
+    rel = f" ({wV:.2g} V)" if (wV is not None and u != "V") else ""
+    if d["verdict"] == "not-reached":
+        lines.append(f"{head} the filling {frac} is not reached in the chemical-potential window.")
+    elif p["exists"]:
+        word = "holds" if d["verdict"] == "holds" else "appears to hold (uncertain: see flags)"
+        lines.append(f"{head} {name} {word}; plateau width {_fmt(p['width'], u)}{rel}, "
+                     f"mu from {_fmt(p['mu_lo'], u, 4)} to {_fmt(p['mu_hi'], u, 4)} "
+                     f"({p['lower_edge']} lower edge, {p['upper_edge']} upper edge).")
+    else:
+        ff = d["fixed_filling"]
+        word = "is gone" if d["verdict"] == "melted" else "appears gone (uncertain: see flags)"
+        lines.append(f"{head} {name} {word} (plateau width {_fmt(p['width'], u)}).")
+        if ff.get("state") == "phase-separated":
+            lines.append(f"at fixed filling {frac} the system phase-separates into {ff['label_below']} "
+                         f"(n = {ff['n_below']:.3f}, {ff['fraction_below']:.0%}) and {ff['label_above']} "
+                         f"(n = {ff['n_above']:.3f}, {ff['fraction_above']:.0%}) at mu = {_fmt(ff['mu_c'], u, 4)}.")
+        elif ff.get("state") not in (None, "not-reached", "unconverged"):
+            lines.append(f"at fixed filling {frac} the state is {ff['label']} (homogeneous).")
+    m = d.get("melt")
+    if m:
+        st = m["status"]
+        if st.startswith("found"):
+            lines.append(f"t/V would need to grow {m['factor']:.3g}x to melt it "
+                         f"(t/V {d['parameters']['t_over_V']:.3g} -> {m['t_over_V_at_melt']:.3g}).")
+        elif st.startswith("already-melted"):
+            lines.append(f"t/V would need to fall to {m['factor']:.3g}x of its value to bring it back.")
+        elif st == "beyond-range":
+            lines.append(f"it survives even with t/V grown {m['range'][1]:g}x.")
+        elif st == "never-present":
+            lines.append(f"it does not appear even with t/V reduced to {m['range'][0]:g}x.")
+    a = d.get("at_mu")
+    if a:
+        if not a["converged"]:
+            lines.append(f"at mu = {_fmt(a['mu'], u, 4)} the solver did not converge; the state is not classified.")
+        elif a["inside_plateau"]:
+            lines.append(f"at mu = {_fmt(a['mu'], u, 4)} the state is {a['label']}, "
+                         f"{_fmt(a['margin_mu'], u)} inside the {a['nearest_edge']} edge.")
+        else:
+            dist = f", {_fmt(-a['margin_mu'], u)} from the plateau" if a["margin_mu"] is not None else ""
+            lines.append(f"at mu = {_fmt(a['mu'], u, 4)} the state is {a['label']} (n = {a['filling']:.4f}){dist}.")
+    for f in d.get("flags", []):
+        lines.append(f"flag: {f}")
+    if d.get("extrapolated"):
+        lines.append("warning: this strain lies outside the table; parameters were extrapolated.")
+    lines.append(f"caution: {d['caution']}.")
+    return "\n".join(lines)
