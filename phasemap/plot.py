@@ -136,9 +136,15 @@ def _region_labels(ax, codes, names, colors, X, Y, min_frac=0.015):
         if sizes[big - 1] < max(3, min_frac * total):
             continue
         # the most interior cell (largest distance to the region's edge)
+        # among the most interior cells (largest distance to the edge), the one nearest the centroid
         dist = ndimage.distance_transform_edt(np.pad(comp == big, 1))[1:-1, 1:-1]
-        i, j = np.unravel_index(np.argmax(dist), dist.shape)
-        ax.text(X[i], Y[j], name, ha="center", va="center", fontsize=5.5, color=_text_color(colors[name]),
+        ii, jj = np.nonzero(dist >= dist.max() - 1e-9)
+        ci, cj = np.nonzero(comp == big)
+        k = int(np.argmin((ii - ci.mean()) ** 2 + (jj - cj.mean()) ** 2))
+        i, j = ii[k], jj[k]
+        frac = i / max(1, codes.shape[0] - 1)  # keep the text inside the axes near the edges
+        ha = "left" if frac < 0.2 else ("right" if frac > 0.8 else "center")
+        ax.text(X[i], Y[j], name, ha=ha, va="center", fontsize=5.5, color=_text_color(colors[name]),
                 clip_on=True)
 
 
