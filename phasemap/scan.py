@@ -19,8 +19,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import xarray as xr
 
-from .api import phase_codes
-from .classify import Thresholds, classify_arrays, filling_label, order_parameters
+from .api import phase_codes, select_winners
+from .classify import Thresholds, filling_label
 from .model import ConfigError, Model
 from .params import grid, points
 from .solution import PHASES, UNCONVERGED
@@ -63,20 +63,10 @@ def evaluate(batch: ParamBatch, method="mf", options=None, thresholds=Thresholds
 
 
 def _extract(res, thresholds):
-    best = res.best()
+    k, ok, _, phase, label, pattern = select_winners(res, thresholds)
     P = res.batch.size
-    ok = best >= 0
-    k = np.where(ok, best, np.argmin(res.residual, axis=1))
     r = np.arange(P)
     n, phi = res.n[r, k], np.abs(res.phi[r, k])
-    phase, label, pattern = classify_arrays(res.batch.base, res.cell, n, phi, ok, thresholds)
-    if getattr(res, "method", "mf") == "mf":
-        from .mf import unstable_insulators
-
-        bad = unstable_insulators(res, phase, k)
-        if bad.any():
-            ok = ok & ~bad
-            phase, label, pattern = classify_arrays(res.batch.base, res.cell, n, phi, ok, thresholds)
     _, sq = res.cell.structure_factor(n)
     q = res.cell.momenta
     nonzero = np.any(np.abs(q) > 1e-12, axis=1)
