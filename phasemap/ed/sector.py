@@ -39,7 +39,7 @@ import time
 
 import numpy as np
 import scipy.sparse as sp
-from scipy.sparse.linalg import eigsh
+from scipy.sparse.linalg import LinearOperator, eigsh
 
 from ..lattice import Supercell
 from ..model import Model
@@ -48,6 +48,41 @@ from .clusters import TranslationGroup
 __all__ = ["Sector", "SectorResult"]
 
 _DENSE_MAX = 600  # below this dimension use dense diagonalisation
+
+
+def _lowest(H, k, tol, v0):
+    """Lowest k eigenpairs of a sparse Hermitian matrix by implicitly restarted Lanczos.
+
+    A complex Hermitian H is diagonalised through its real symmetric embedding
+    [[Re H, -Im H], [Im H, Re H]] (every level doubled; a vector (x, y) is x + iy), which
+    keeps ARPACK on its symmetric driver.
+    """
+    n = H.shape[0]
+    if v0 is not None and len(v0) != n:
+        v0 = None
+    if not np.iscomplexobj(H.data):
+        w, v = eigsh(H, k=k, which="SA", tol=tol, v0=None if v0 is None else np.real(v0), ncv=max(20, 2 * k + 1))
+    else:
+        def mv(x):
+            z = H @ (x[:n] + 1j * x[n:]) if x.ndim == 1 else H @ (x[:n, 0] + 1j * x[n:, 0])
+            return np.concatenate([z.real, z.imag])
+
+        op = LinearOperator((2 * n, 2 * n), matvec=mv, dtype=np.float64)
+        x0 = None if v0 is None else np.concatenate([np.real(v0), np.imag(v0)])
+        if x0 is not None and not np.any(x0):
+            x0 = None
+        w2, v2 = eigsh(op, k=k, which="SA", tol=tol, v0=x0, ncv=max(20, 2 * k + 1))
+        o = np.argsort(w2)
+        w2, v2 = w2[o], v2[:, o]
+        z = v2[:n] + 1j * v2[n:]
+        # (x, y) and (-y, x) are the same complex vector; Lanczos from one start vector
+        # sees one copy of each level, so k embedded vectors give k complex ones
+        q, _ = np.linalg.qr(z)
+        Hq = q.conj().T @ (H @ q)
+        w, u = np.linalg.eigh(Hq)
+        w, v = w[:k], (q @ u)[:, :k]
+    o = np.argsort(w)
+    return w[o], v[:, o]
 
 
 class SectorResult:
@@ -75,9 +110,16 @@ class Sector:
     symmetric : bool, default True
         Use translation symmetry; ``False`` gives the plain number-conserving basis (one
         sector, Q = 0), used for validation.
+    lookup : {"auto", "direct", "sorted", "search"}
+        How the representative of a hopped state is found: "direct" tabulates it for every
+        integer code (``6 sps**L`` bytes), "sorted" for the Fock states of the sector only
+        (binary search; ~30 bytes per Fock state), "search" applies the group to each hopped
+        state (QuSpin's representative search; no table, slowest). "auto" picks the fastest
+        that fits ``table_bytes``.
     """
 
-    def __init__(self, cell: Supercell, model: Model, N: int, symmetric: bool = True):
+    def __init__(self, cell: Supercell, model: Model, N: int, symmetric: bool = True,
+                 lookup: str = "auto", table_bytes: float = 4 * 2**30):
         from quspin.basis import boson_basis_general
 
         t0 = time.perf_counter()
@@ -96,6 +138,17 @@ class Sector:
         self.occ = self.occupations(self.states)
         self._stab()
         self.diag = self._diagonal(self.occ)
+        from .guard import fock_dimension
+
+        if lookup not in ("auto", "direct", "sorted", "search"):
+            raise ValueError(f"lookup: expected 'auto', 'direct', 'sorted' or 'search', got {lookup!r}")
+        if lookup == "auto":
+            fock = fock_dimension(L, self.N, model.n_max)
+            lookup = ("direct" if 6 * float(sps) ** L < min(table_bytes, 40 * fock + 2**28) else
+                      "sorted" if 30 * fock < table_bytes else "search")
+        self.lookup = lookup
+        if lookup in ("direct", "sorted") and self.group.orders:
+            self._make_table()
         self._hops()
         self.build_time = time.perf_counter() - t0
 
@@ -143,6 +196,56 @@ class Sector:
             self.fixed[g] = np.all(moved == self.occ, axis=1)
         self.stab = self.fixed.sum(0)
 
+    def _orbit_states(self, occ=None):
+        """Yield (element index, integer codes of T_g r for every representative r)."""
+        occ = self.occ if occ is None else occ
+        for g, p in enumerate(self.group.site_perms):
+            moved = np.empty_like(occ)
+            moved[:, p] = occ  # T_g moves the occupation of site i to p[i]
+            yield g, self.encode(moved)
+
+    def _make_table(self):
+        """Representative index and group element of every Fock state of the sector.
+
+        "direct": arrays indexed by the integer code itself (``sps**L`` entries, fastest);
+        "sorted": sorted codes of the sector, looked up by binary search.
+        """
+        if self.lookup == "direct":
+            size = self.sps ** self.L
+            self._tab_rep = np.full(size, -1, np.int32)
+            self._tab_elem = np.zeros(size, np.int16 if self.group.size < 2**15 else np.int32)
+            for g, codes in self._orbit_states():
+                self._tab_rep[codes] = np.arange(self.dim, dtype=np.int32)
+                self._tab_elem[codes] = g
+            return
+        codes, elems = [], []
+        for g, c in self._orbit_states():
+            codes.append(c)
+            elems.append(np.full(self.dim, g, np.int16 if self.group.size < 2**15 else np.int32))
+        codes = np.concatenate(codes)
+        order = np.argsort(codes)
+        codes = codes[order]
+        first = np.ones(len(codes), bool)
+        first[1:] = codes[1:] != codes[:-1]
+        sel = order[first]
+        self._tab_codes = codes[first]
+        self._tab_rep = (sel % self.dim).astype(np.int32)
+        self._tab_elem = np.concatenate(elems)[sel]
+
+    def _locate(self, new) -> tuple[np.ndarray, np.ndarray]:
+        """Representative index r and group element h with ``new = T_h r``."""
+        G = self.group
+        if not G.orders:
+            return self.index_of(new), np.zeros(len(new), np.int32)
+        if self.lookup == "direct":
+            return self._tab_rep[new], self._tab_elem[new].astype(np.int32)
+        if self.lookup == "sorted":
+            k = np.searchsorted(self._tab_codes, new)
+            return self._tab_rep[k], self._tab_elem[k].astype(np.int32)
+        rep, g = self.basis.representative(new.astype(self.states.dtype), return_g=True)
+        e = np.mod(-g[:, self._gcols], G.orders)  # rep = T^g new  =>  new = T_h rep, h = -g
+        return self.index_of(rep.astype(np.int64)), np.ravel_multi_index(tuple(e.T), G.orders).astype(np.int32)
+
     def _diagonal(self, occ) -> np.ndarray:
         m, cell = self.model, self.cell
         n = occ.astype(float)
@@ -161,7 +264,6 @@ class Sector:
         """Hopping table: (row, col, amp, element, family, direction) for every hop."""
         m, cell, occ = self.model, self.cell, self.occ
         rows, cols, amps, elem, fam, sgn = [], [], [], [], [], []
-        G = self.group
         for f, nb in enumerate(cell.neighbors):
             if not m.t[f]:
                 continue
@@ -172,20 +274,15 @@ class Sector:
                         continue
                     amp = -m.t[f] * np.sqrt((occ[ok, a] + 1.0) * occ[ok, b])
                     new = self.states[ok].astype(np.int64) + self._place[a] - self._place[b]
-                    if G.orders:
-                        rep, g = self.basis.representative(new.astype(self.states.dtype), return_g=True)
-                        e = np.mod(-g[:, self._gcols], G.orders)  # s = T_h rep with h = -g (generator exponents)
-                        el = np.ravel_multi_index(tuple(e.T), G.orders)
-                    else:
-                        rep, el = new, np.zeros(len(ok), dtype=np.int64)
-                    rows.append(self.index_of(rep.astype(np.int64)))
+                    r, el = self._locate(new)
+                    rows.append(r)
                     cols.append(ok)
                     amps.append(amp)
                     elem.append(el)
                     fam.append(np.full(len(ok), f, np.int8))
                     sgn.append(np.full(len(ok), s, np.int8))
         cat = lambda x, d: np.concatenate(x).astype(d) if x else np.zeros(0, d)  # noqa: E731
-        self.hop_rows, self.hop_cols = cat(rows, np.int64), cat(cols, np.int64)
+        self.hop_rows, self.hop_cols = cat(rows, np.int32), cat(cols, np.int32)
         self.hop_amp, self.hop_elem = cat(amps, float), cat(elem, np.int32)
         self.hop_fam, self.hop_sgn = cat(fam, np.int8), cat(sgn, np.int8)
 
@@ -248,11 +345,7 @@ class Sector:
                 w, v = d[o], np.zeros((n, k))
                 v[o, np.arange(k)] = 1.0
         else:
-            if v0 is not None and len(v0) != n:
-                v0 = None
-            w, v = eigsh(H, k=k, which="SA", tol=tol, v0=v0, ncv=max(20, 2 * k + 1))
-            o = np.argsort(w)
-            w, v = w[o], v[:, o]
+            w, v = _lowest(H, k, tol, v0)
         return SectorResult(q_index, w, v, n, time.perf_counter() - t0, keep)
 
     # -- full-space projection ----------------------------------------------------------
@@ -262,14 +355,11 @@ class Sector:
         The coefficient of :math:`T_g|r\\rangle` is :math:`\\psi_r e^{iQ\\cdot g}\\sqrt{|Stab(r)|/|G|}`.
         """
         keep = self.mask(q)
-        occ = self.occ[keep]
         amp0 = vec * np.sqrt(self.stab[keep] / self.group.size)
         chi = np.conj(self.characters(q))
         states, amps = [], []
-        for g, p in enumerate(self.group.site_perms):
-            moved = np.empty_like(occ)
-            moved[:, p] = occ
-            states.append(self.encode(moved))
+        for g, codes in self._orbit_states(self.occ[keep]):
+            states.append(codes)
             amps.append(amp0 * chi[g])
         states, amps = np.concatenate(states), np.concatenate(amps)
         u, first = np.unique(states, return_index=True)

@@ -1,0 +1,109 @@
+"""Cost guard: sector dimensions and memory estimates before anything is built.
+
+The estimate is deliberately simple and slightly pessimistic; ``benchmarks/bench_ed.py``
+compares it with the measured peak memory (see docs/ed.md).
+
+References
+----------
+.. [1] A. Weiße and H. Fehske, "Exact diagonalization techniques", Lect. Notes Phys. 739,
+   529 (2008) (dimension counting and memory of sparse Hamiltonians).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from functools import lru_cache
+
+from ..model import ConfigError
+
+__all__ = ["fock_dimension", "Estimate", "estimate", "check_budget", "DEFAULT_BUDGET_GIB"]
+
+#: Default memory budget of one sector (GiB); override with ``budget_gib=`` / ``--budget-gib``.
+DEFAULT_BUDGET_GIB = 8.0
+
+
+@lru_cache(maxsize=None)
+def fock_dimension(L: int, N: int, n_max: int) -> int:
+    """Number of ways to place N bosons on L sites with at most ``n_max`` per site.
+
+    Coefficient of x^N in (1 + x + ... + x^n_max)^L (inclusion-exclusion);
+    ``C(L, N)`` for hard-core bosons.
+    """
+    if N < 0 or N > L * n_max:
+        return 0
+    if L == 0:
+        return 1
+    return sum((-1) ** k * math.comb(L, k) * math.comb(N - k * (n_max + 1) + L - 1, L - 1)
+               for k in range(0, min(L, N // (n_max + 1)) + 1))
+
+
+@dataclass
+class Estimate:
+    """Predicted size of one particle-number sector."""
+
+    L: int
+    N: int
+    n_max: int
+    fock: int  # Fock states at this N
+    sector: int  # states per momentum sector (fock / L)
+    hops: int  # hopping-table entries (all orbits)
+    bytes: float  # predicted peak memory
+
+    @property
+    def gib(self) -> float:
+        return self.bytes / 2**30
+
+    def describe(self) -> str:
+        return (f"L={self.L}, N={self.N}, n_max={self.n_max}: {self.fock:.4g} Fock states, "
+                f"~{self.sector:.4g} per momentum sector, ~{self.hops:.3g} hopping entries, "
+                f"estimated peak memory {self.gib:.3g} GiB")
+
+
+def estimate(L: int, N: int, n_max: int, n_hop_dirs: int, n_group: int | None = None,
+             table: bool = True, ncv: int = 20) -> Estimate:
+    """Estimate dimensions and peak memory of the sector with N particles.
+
+    Parameters
+    ----------
+    n_hop_dirs : int
+        Directed hopping terms per site (2 x number of families with t != 0).
+    n_group : int, optional
+        Order of the translation group used (default L).
+
+    Notes
+    -----
+    Hops per representative = ``n_hop_dirs * L * p`` with ``p`` the probability that the
+    source is occupied and the target not full; for hard-core ``p = N (L-N) / (L (L-1))``,
+    for soft-core a uniform-density estimate. Bytes: lookup table (13 per Fock state),
+    hopping table (18 per entry), one complex sparse matrix with its assembly temporaries
+    (~44 per entry), Lanczos vectors (``2 ncv + 8`` real vectors of twice the sector
+    dimension) and the representative data (~(L + 40) bytes per state).
+    """
+    G = n_group or L
+    fock = fock_dimension(L, N, n_max)
+    sector = -(-fock // G)
+    if n_max == 1:
+        p = N * (L - N) / (L * (L - 1)) if L > 1 else 0.0
+    else:
+        nbar = N / L
+        p = min(1.0, nbar) * (1.0 - (nbar / (1 + nbar)) ** n_max)
+    hops = int(sector * n_hop_dirs * L * p)
+    b = (13 * fock if table else 0) + 18 * hops + 44 * hops + 8 * 2 * sector * (2 * ncv + 8) \
+        + (L + 40) * sector
+    return Estimate(L, N, n_max, fock, sector, hops, float(b))
+
+
+def check_budget(est: Estimate, budget_gib: float | None = DEFAULT_BUDGET_GIB, what: str = "sector") -> None:
+    """Refuse (ConfigError) when the estimate exceeds the budget; ``None`` disables the guard."""
+    if budget_gib is None:
+        return
+    try:
+        budget = float(budget_gib)
+    except (TypeError, ValueError):
+        raise ConfigError(f"budget_gib: expected a number of GiB > 0, got {budget_gib!r}") from None
+    if not budget > 0:
+        raise ConfigError(f"budget_gib: must be > 0 GiB, got {budget_gib!r}")
+    if est.gib > budget:
+        raise ConfigError(f"{what} too large for the memory budget: {est.describe()} > budget "
+                          f"{budget:g} GiB (raise budget_gib / --budget-gib, or use a smaller cluster)")
