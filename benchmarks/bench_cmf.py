@@ -5,10 +5,11 @@ Run:  python benchmarks/bench_cmf.py            (full table, ~ a few minutes)
 
 Each cluster is measured in a fresh subprocess (peak RSS is per process). For every cluster:
 operator build time, one *cold* converged point (seed "supersolid sqrt3 1/3", no warm start),
-and the mean time per point along a 6-point scan in mu with continuation (each point starts
-from the previous point's converged state and ground-state vector). Hard-core:
-t = 0.1, V = 1, mu = 3 (+ steps of 0.02); soft-core (n_max = 2): t = 0.05, U = 1, V = 0.3,
-mu = 0.9 (+ steps of 0.01), both triangular.
+and the mean time per point along a 6-point scan in t with continuation (each point starts
+from the previous points' converged states and ground-state vector). Hard-core:
+t = 0.1 (+ steps of 0.002), V = 1, mu = 3 (half filling); soft-core (n_max = 2): t = 0.05
+(+ steps of 0.001), U = 1, V = 0.3, mu = 0.9; both triangular. Timings depend on the load
+of the machine: the script prints the load average.
 """
 
 from __future__ import annotations
@@ -31,9 +32,9 @@ def one(cluster: str, n_max: int) -> dict:
     from phasemap.params import ParamBatch
 
     if n_max == 1:
-        base, dmu = Model("triangular", t=0.1, V=1.0, mu=3.0), 0.02
+        base, dt = Model("triangular", t=0.1, V=1.0, mu=3.0), 0.002
     else:
-        base, dmu = Model("triangular", t=0.05, V=0.3, U=1.0, mu=0.9, n_max=n_max), 0.01
+        base, dt = Model("triangular", t=0.05, V=0.3, U=1.0, mu=0.9, n_max=n_max), 0.001
     cl = get_cluster(cluster)
     seeds = [s for s in cluster_seeds(base, cl, n_random=0, patterns=("sqrt3",)) if s.name.startswith("supersolid sqrt3 1/3")][:1]
     rss0 = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
@@ -45,7 +46,7 @@ def one(cluster: str, n_max: int) -> dict:
     t0 = time.perf_counter()
     r = solve_cmf_batch(b1, cluster=cl, seeds=seeds)
     cold = time.perf_counter() - t0
-    scan = ParamBatch.from_models([base.replace(mu=base.mu + k * dmu) for k in range(6)])
+    scan = ParamBatch.from_models([base.replace(t=base.t[0] + k * dt) for k in range(6)])
     t0 = time.perf_counter()
     rs = solve_cmf_batch(scan, cluster=cl, seeds=seeds)
     warm_total = time.perf_counter() - t0
@@ -75,6 +76,9 @@ def main(argv=None) -> int:
         return 0
     hard = ["tri3", "tri6", "tri9", "tri12"] + ([] if a.quick else ["tri15", "tri18"])
     soft = ["tri3", "tri6", "tri9"]
+    import os
+
+    load0 = os.getloadavg()
     rows = []
     for n_max, names in ((1, hard), (2, soft)):
         for c in names:
@@ -85,6 +89,9 @@ def main(argv=None) -> int:
             rows.append(json.loads(out.stdout.strip().splitlines()[-1]))
             r = rows[-1]
             print(f"done {c} n_max={n_max}: cold {r['cold_s']:.3f} s, warm {r['warm_s']:.3f} s", file=sys.stderr, flush=True)
+    import os
+
+    print(f"load average before/after: {load0} / {os.getloadavg()}; {os.cpu_count()} CPUs")
     hdr = ("| cluster | N_C | λ | n_max | dim | nnz | build (s) | cold point (s) [iter] | warm point (s) [iter] "
            "| peak RSS (MiB) | estimate (MiB) |")
     print(hdr)

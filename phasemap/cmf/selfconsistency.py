@@ -119,7 +119,6 @@ class CMFBatchResult(MFBatchResult):
 
     cluster: Cluster | None = None
     seconds: float = 0.0
-    ground_states: list | None = field(default=None, repr=False)
 
 
 def cluster_seeds(model, cluster: Cluster, n_random: int = 1, rng=0, patterns=None) -> list[Seed]:
