@@ -60,8 +60,8 @@ class MFOptions:
         A row whose best residual has not improved for this many iterations (an oscillating
         seed, or a branch with no fixed point) is stopped and flagged unconverged.
     engine : {"auto", "numba", "numpy"}
-        Hard-core bosons use a compiled per-row loop ("auto"/"numba"); "numpy" forces the
-        batched array path (used for soft-core bosons).
+        "auto"/"numba": compiled per-row loop (default); "numpy": batched array path (same
+        algorithm, kept as an independent cross-check).
     """
 
     tol: float = 1e-10
@@ -214,12 +214,12 @@ def _iterate(ops: CellOps, batch: ParamBatch, n0, phi0, opt: MFOptions):
             n, ph, nn1, top = _local_softcore(Phi, eps, U[sel][:, None], batch.n_max)
         return np.concatenate([n, ph], axis=1), nn1, top
 
-    if hard and opt.engine in ("auto", "numba"):
-        from .mf_kernel import hardcore_rows
+    if opt.engine in ("auto", "numba"):
+        from .mf_kernel import iterate_rows
 
-        x_out, iters, resid, conv = hardcore_rows(
-            t, V, V2, mu, ops.plus, ops.minus, ops.nnn_plus, ops.nnn_minus, x_out, opt.tol, opt.max_iter,
-            opt.mixing, max(opt.anderson, 0), opt.patience)
+        x_out, iters, resid, conv = iterate_rows(
+            t, V, V2, mu, np.where(np.isfinite(U), U, 0.0), batch.n_max, ops.plus, ops.minus, ops.nnn_plus,
+            ops.nnn_minus, x_out, opt.tol, opt.max_iter, opt.mixing, max(opt.anderson, 0), opt.patience)
         return _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, P, K, S)
     # compact state
     idx = np.arange(rows)

@@ -1,6 +1,7 @@
-"""Compiled hard-core mean-field self-consistency (numba), one row = one point x seed.
+"""Compiled mean-field self-consistency (numba), one row = one point x seed.
 
-Same algorithm as the NumPy path of :mod:`phasemap.mf` (closed-form 2x2 local problem,
+Same algorithm as the NumPy path of :mod:`phasemap.mf` (closed-form 2x2 local problem for
+hard-core bosons, LAPACK eigh of the (n_max+1)-dimensional one for soft-core,
 linear mixing + Anderson type-II acceleration, stall detection), but each row iterates
 independently inside a parallel loop, so the per-iteration interpreter overhead vanishes.
 """
@@ -39,9 +40,11 @@ def _solve_small(A, b, k):
 
 
 @njit(cache=True)
-def _map(x, g, t, V, V2, mu, plus, minus, nplus, nminus, S):
+def _map(x, g, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, S, H):
+    """One self-consistency map: local ground states in the fields of the current iterate."""
     F = plus.shape[0]
     K2 = nplus.shape[0]
+    d = nmax + 1
     for s in range(S):
         Phi = 0.0
         eps = 0.0
@@ -52,17 +55,35 @@ def _map(x, g, t, V, V2, mu, plus, minus, nplus, nminus, S):
             for k in range(K2):
                 eps += V2 * (x[nplus[k, s]] + x[nminus[k, s]])
         eps -= mu
-        r = np.sqrt(eps * eps + 4.0 * Phi * Phi)
-        if r > 0.0:
-            g[s] = 0.5 * (1.0 - eps / r)
-            g[S + s] = Phi / r
-        else:
-            g[s] = 0.5
-            g[S + s] = 0.0
+        if nmax == 1:  # hard-core: closed-form 2x2
+            r = np.sqrt(eps * eps + 4.0 * Phi * Phi)
+            if r > 0.0:
+                g[s] = 0.5 * (1.0 - eps / r)
+                g[S + s] = Phi / r
+            else:
+                g[s] = 0.5
+                g[S + s] = 0.0
+            continue
+        for a in range(d):
+            for b in range(d):
+                H[a, b] = 0.0
+            H[a, a] = 0.5 * U * a * (a - 1) + eps * a
+        for a in range(1, d):
+            H[a, a - 1] = -Phi * np.sqrt(a)
+            H[a - 1, a] = -Phi * np.sqrt(a)
+        w, v = np.linalg.eigh(H)
+        nn = 0.0  # <n> and <b> = sum sqrt(a) v_a v_(a-1): both independent of the sign of v
+        ph = 0.0
+        for a in range(d):
+            nn += a * v[a, 0] * v[a, 0]
+            if a > 0:
+                ph += np.sqrt(a) * v[a, 0] * v[a - 1, 0]
+        g[s] = nn
+        g[S + s] = ph
 
 
 @njit(parallel=True, cache=True)
-def hardcore_rows(t, V, V2, mu, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience):
+def iterate_rows(t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience):
     """Iterate every row of ``x0`` (rows, 2S: densities then condensates) to self-consistency.
 
     Returns (x, iterations, residual, converged).
@@ -84,6 +105,7 @@ def hardcore_rows(t, V, V2, mu, plus, minus, nplus, nminus, x0, tol, max_iter, m
         hf = np.zeros((mm, D))
         A = np.zeros((mm, mm))
         G = np.zeros((mm, mm))
+        H = np.zeros((nmax + 1, nmax + 1))
         bb = np.zeros(mm)
         best = np.inf
         last = 0
@@ -91,7 +113,7 @@ def hardcore_rows(t, V, V2, mu, plus, minus, nplus, nminus, x0, tol, max_iter, m
         res = np.inf
         while it < max_iter:
             it += 1
-            _map(x, g, t[r], V[r], V2[r], mu[r], plus, minus, nplus, nminus, S)
+            _map(x, g, t[r], V[r], V2[r], mu[r], U[r], nmax, plus, minus, nplus, nminus, S, H)
             res = 0.0
             for d in range(D):
                 f[d] = g[d] - x[d]
@@ -149,7 +171,7 @@ def hardcore_rows(t, V, V2, mu, plus, minus, nplus, nminus, x0, tol, max_iter, m
                 if not np.isfinite(step):
                     step = x[d] + mixing * f[d]
                 if d < S:
-                    step = min(max(step, 0.0), 1.0)
+                    step = min(max(step, 0.0), float(nmax))
                 elif step < 0.0:  # halve instead of clipping: phi = 0 would be a trap
                     step = 0.5 * x[d]
                 x[d] = step
