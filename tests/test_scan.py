@@ -113,16 +113,16 @@ def test_phase_map_t0_column_and_boundaries():
     # exact classical limit (t = 0): boundaries mu/V = 0, 3, 6; at finite t the supersolid stays
     # inside the (1/3, 2/3) window (Wessel & Troyer PRL 95, 127205 (2005), qualitative)
     m = phasemap.Model(**TRI)
-    tv = np.array([0.0, 0.05, 0.1])
+    tv = np.array([0.0, 0.1])
     muv = np.linspace(-0.9, 6.9, 14)  # no grid point on a degenerate edge
     ds = phase_map(m, x=("t", tv), y=("mu", muv), relative=True, refine=True, refine_tol=1e-5, progress=False)
     for var in ("label", "phase_code", "filling", "energy", "converged", "densities", "condensate",
                 "boundary_t", "boundary_mu", "boundary_from", "boundary_to"):
         assert var in ds, var
-    assert ds["label"].shape == (3, 14)
+    assert ds["label"].shape == (2, 14)
     names = json.loads(ds.attrs["phase_names"])
     codes = ds["phase_code"].values
-    for i in range(3):
+    for i in range(2):
         for j in range(14):
             assert str(ds["label"].values[i, j]).startswith(names[codes[i, j]])
     assert json.loads(ds.attrs["model"])["lattice"] == "triangular"
