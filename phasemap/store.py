@@ -56,11 +56,18 @@ def atomic_path(path):
     os.close(fd)
     try:
         yield Path(tmp)
+        os.chmod(tmp, 0o666 & ~_umask())  # mkstemp makes 0600 files; results get the usual mode
         os.replace(tmp, path)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):
             os.unlink(tmp)
         raise
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 def atomic_write_text(path, text: str) -> Path:

@@ -1,6 +1,8 @@
 """Store: atomic writes, NetCDF/CSV round trips, resumable chunk checkpoints."""
 
 import json
+import os
+import stat
 
 import numpy as np
 import pytest
@@ -31,6 +33,9 @@ def test_atomic_path_replaces_existing(tmp_path):
     with atomic_path(target) as tmp:
         tmp.write_text("new")
     assert target.read_text() == "new" and _leftovers(tmp_path) == []
+    mask = os.umask(0)
+    os.umask(mask)
+    assert stat.S_IMODE(target.stat().st_mode) == 0o666 & ~mask  # not mkstemp's private 0600
 
 
 def _synthetic():
