@@ -1,0 +1,213 @@
+"""Figures of a strain sweep (matplotlib, Agg canvas), one line per method with a legend.
+
+* :func:`plot_plateau_edges` — plateau edges versus strain, solid region shaded, critical
+  strains and the band across methods;
+* :func:`plot_order_parameters` — solid order parameter S(Q) and condensate versus strain at
+  a fixed chemical potential, plus the plateau width relative to V;
+* :func:`plot_phase_map` — (strain, mu) phase map, one panel per method;
+* :func:`plot_critical_vs_lambda` — critical strain versus the interaction scale factor.
+
+Sized for journal columns (3.4 in single, 7.0 in double), axis labels with units; written as
+PNG + PDF by :func:`save_all` through :func:`phasemap.plot.save_figure` (atomic).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from matplotlib import rc_context
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.colors import BoundaryNorm, ListedColormap
+from matplotlib.figure import Figure
+from matplotlib.patches import Patch
+
+__all__ = ["plot_plateau_edges", "plot_order_parameters", "plot_phase_map", "plot_critical_vs_lambda", "save_all",
+           "method_colors"]
+
+SINGLE, DOUBLE = 3.4, 7.0
+_CYCLE = ["#1b6ca8", "#d1495b", "#2e933c", "#8f5db7", "#e08e0b", "#555555"]
+_STYLES = ["-", "--", "-.", ":"]
+
+
+def _style():
+    try:
+        from ..plot import STYLE
+
+        return STYLE
+    except ImportError:  # pragma: no cover
+        return {"font.size": 8, "axes.labelsize": 8, "legend.fontsize": 6.5, "pdf.fonttype": 42}
+
+
+def method_colors(names) -> dict:
+    return {n: _CYCLE[i % len(_CYCLE)] for i, n in enumerate(names)}
+
+
+def _fig(w, h):
+    fig = Figure(figsize=(w, h), constrained_layout=True)
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _mark_critical(ax, sweep, colors):
+    b = sweep.band
+    if b["lo"] is not None and b["hi"] is not None and b["hi"] > b["lo"]:
+        ax.axvspan(b["lo"], b["hi"], color="0.85", zorder=0, lw=0, label="band across methods")
+    for n in sweep.names:
+        c = sweep.critical[n]
+        if c.strain_c is not None:
+            ax.axvline(c.strain_c, color=colors[n], ls=":", lw=0.9)
+
+
+def plot_plateau_edges(sweep) -> Figure:
+    """Plateau edges mu_lo, mu_hi versus strain for every method; the solid region shaded."""
+    with rc_context(_style()):
+        fig = _fig(SINGLE, 2.6)
+        ax = fig.add_subplot()
+        colors = method_colors(sweep.names)
+        _mark_critical(ax, sweep, colors)
+        s = sweep.strains
+        for i, n in enumerate(sweep.names):
+            r = sweep.plateaus[n]
+            ok = r.exists & np.isfinite(r.mu_lo) & np.isfinite(r.mu_hi)
+            lo = np.where(ok, r.mu_lo, np.nan)
+            hi = np.where(ok, r.mu_hi, np.nan)
+            ls = _STYLES[i % len(_STYLES)]
+            ax.fill_between(s, lo, hi, where=ok, color=colors[n], alpha=0.18, lw=0)
+            ax.plot(s, lo, ls=ls, color=colors[n], marker=".", ms=3, label=f"{n}")
+            ax.plot(s, hi, ls=ls, color=colors[n], marker=".", ms=3)
+            c = sweep.critical[n]
+            if c.strain_c is not None:
+                ax.plot([], [], color=colors[n], ls=":", lw=0.9, label=f"{n}: $s_c$ = {c.strain_c:.4g}")
+        ax.set_xlabel(sweep.table.strain_label)
+        ax.set_ylabel(f"μ [{sweep.table.unit}]")
+        ax.set_title(f"{sweep.fraction} plateau (shaded: solid)", fontsize=8)
+        ax.legend(frameon=False, loc="best")
+    return fig
+
+
+def _mu_index(sweep, mu):
+    if mu is None:
+        r = sweep.plateaus[sweep.names[0]]
+        ok = r.exists & np.isfinite(r.mu_lo) & np.isfinite(r.mu_hi)
+        mu = 0.5 * (r.mu_lo[ok][0] + r.mu_hi[ok][0]) if ok.any() else sweep.mu[len(sweep.mu) // 2]
+    return int(np.argmin(np.abs(sweep.mu - mu))), mu
+
+
+def plot_order_parameters(sweep, mu=None) -> Figure:
+    """S(Q) and condensate at a fixed mu (grid point nearest to ``mu``), and width/V, versus strain."""
+    k, mu = _mu_index(sweep, mu)
+    mu_k = float(sweep.mu[k])
+    u = sweep.table.unit
+    vref = np.abs(sweep.table.params(sweep.strains)["V"]).max(1)
+    with rc_context(_style()):
+        fig = _fig(SINGLE, 4.2)
+        axes = fig.subplots(3, 1, sharex=True)
+        colors = method_colors(sweep.names)
+        for i, n in enumerate(sweep.names):
+            g = sweep.plateaus[n].grid
+            ls = _STYLES[i % len(_STYLES)]
+            conv = g["converged"][:, k]
+            sq = np.where(conv, g["sq_max"][:, k], np.nan)
+            cd = np.where(conv, g["condensate_max"][:, k], np.nan)
+            axes[0].plot(sweep.strains, sq, ls=ls, color=colors[n], marker=".", ms=3, label=n)
+            axes[1].plot(sweep.strains, cd, ls=ls, color=colors[n], marker=".", ms=3, label=n)
+            r = sweep.plateaus[n]
+            axes[2].plot(sweep.strains, r.width / vref, ls=ls, color=colors[n], marker=".", ms=3, label=n)
+            if (~conv).any():
+                axes[0].plot(sweep.strains[~conv], np.zeros((~conv).sum()), "x", color=colors[n], ms=4,
+                             label=f"{n}: not converged")
+        for ax in axes:
+            _mark_critical(ax, sweep, colors)
+        axes[0].set_ylabel("S(Q) (solid order)")
+        axes[1].set_ylabel("max |⟨b⟩|")
+        axes[2].set_ylabel("plateau width / V")
+        axes[2].set_xlabel(sweep.table.strain_label)
+        axes[0].set_title(f"order parameters at μ = {mu_k:.3g} {u}", fontsize=8)
+        axes[0].legend(frameon=False, loc="best")
+    return fig
+
+
+def plot_phase_map(sweep) -> Figure:
+    """(strain, mu) phase map, one panel per method, with the plateau edges overlaid."""
+    from ..plot import phase_colors, sort_labels
+
+    names = sweep.names
+    labels = sort_labels(np.unique(np.concatenate([sweep.plateaus[n].grid["label"].ravel() for n in names])))
+    colors = phase_colors(labels)
+    idx = {lab: i for i, lab in enumerate(labels)}
+    cmap = ListedColormap([colors[lab] for lab in labels])
+    norm = BoundaryNorm(np.arange(len(labels) + 1) - 0.5, len(labels))
+    w = SINGLE if len(names) == 1 else DOUBLE
+    with rc_context(_style()):
+        fig = _fig(w, 2.8)
+        axes = np.atleast_1d(fig.subplots(1, len(names), sharey=True))
+        s, mu = sweep.strains, sweep.mu
+        for ax, n in zip(axes, names):
+            lab = sweep.plateaus[n].grid["label"]
+            codes = np.vectorize(idx.get)(lab)
+            ax.pcolormesh(_edges(s), _edges(mu), codes.T, cmap=cmap, norm=norm, shading="flat", rasterized=True)
+            r = sweep.plateaus[n]
+            ok = r.exists
+            ax.plot(s[ok], r.mu_lo[ok], "k-", lw=0.7)
+            ax.plot(s[ok], r.mu_hi[ok], "k-", lw=0.7)
+            c = sweep.critical[n]
+            if c.strain_c is not None:
+                ax.axvline(c.strain_c, color="k", ls=":", lw=0.8)
+            ax.set_title(n, fontsize=8)
+            ax.set_xlabel(sweep.table.strain_label)
+        axes[0].set_ylabel(f"μ [{sweep.table.unit}]")
+        handles = [Patch(facecolor=colors[lab], edgecolor="0.4", lw=0.3, label=lab) for lab in labels]
+        fig.legend(handles=handles, loc="outside right upper", frameon=False, fontsize=6)
+    return fig
+
+
+def _edges(c):
+    c = np.asarray(c, float)
+    if len(c) == 1:
+        return np.array([c[0] - 0.5, c[0] + 0.5])
+    mid = 0.5 * (c[1:] + c[:-1])
+    return np.concatenate([[c[0] - (mid[0] - c[0])], mid, [c[-1] + (c[-1] - mid[-1])]])
+
+
+def plot_critical_vs_lambda(sweep) -> Figure | None:
+    """Critical strain versus lambda for every method; the region outside the table hatched."""
+    if not sweep.lambdas:
+        return None
+    lo, hi = sweep.table.span
+    with rc_context(_style()):
+        fig = _fig(SINGLE, 2.6)
+        ax = fig.add_subplot()
+        colors = method_colors(sweep.names)
+        for i, n in enumerate(sweep.names):
+            L = sweep.lambdas.get(n)
+            if L is None:
+                continue
+            ax.errorbar(L.lambdas, L.strain_c, yerr=L.uncertainty, color=colors[n], ls=_STYLES[i % len(_STYLES)],
+                        marker="o", ms=3, capsize=1.5, label=n)
+            for e in L.entry:
+                ax.plot([e["lambda"]], [e["strain"]], marker="*", color=colors[n], ms=6)
+        ax.axhline(lo, color="0.5", lw=0.6)
+        ax.axhline(hi, color="0.5", lw=0.6)
+        ax.set_ylim(lo - 0.05 * (hi - lo), hi + 0.05 * (hi - lo))
+        p = next(iter(sweep.lambdas.values())).param
+        what = "V, V₂" if p == "V" else p
+        ax.set_xlabel(f"λ ({what} → λ·{what})")
+        ax.set_ylabel(f"critical {sweep.table.strain_label}")
+        ax.set_title("critical strain vs interaction scale (★: crosses table end)", fontsize=7)
+        ax.legend(frameon=False, loc="best")
+    return fig
+
+
+def save_all(sweep, outdir, formats=("png", "pdf")) -> list:
+    """Write every figure of ``sweep`` into ``outdir`` (PNG + PDF); returns the paths."""
+    from pathlib import Path
+
+    from ..plot import save_figure
+
+    out = Path(outdir)
+    paths = []
+    figs = {"plateau_edges": plot_plateau_edges(sweep), "order_parameters": plot_order_parameters(sweep),
+            "phase_map": plot_phase_map(sweep), "critical_vs_lambda": plot_critical_vs_lambda(sweep)}
+    for name, fig in figs.items():
+        if fig is not None:
+            paths += save_figure(fig, out / f"strain_{name}", formats=formats)
+    return paths

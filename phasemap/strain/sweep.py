@@ -1,0 +1,268 @@
+"""Strain sweep for several methods: plateau edges, (strain, mu) phase map, critical strain, lambda scan.
+
+:func:`strain_sweep` solves, per method, every strain of the path on one common chemical-
+potential grid in one batched call (the phase map), locates the plateau edges at every
+strain, and polishes the critical strain with brentq from those samples (so the sweep's
+critical strain *is* the root-finding answer). :meth:`StrainSweep.save` writes labelled
+data (NetCDF + CSV with metadata + JSON) atomically; :mod:`phasemap.strain.plots` draws it.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from ..classify import Thresholds
+from .analysis import CAUTION
+from .critical import CriticalResult, coarse_strains, critical_band, critical_strain
+from .engine import MethodSpec, PlateauResult, default_window, fixed_filling, locate_plateaus, parse_fraction, parse_methods
+from .sensitivity import LambdaScan, critical_vs_lambda
+from .table import StrainTable
+
+__all__ = ["StrainSweep", "strain_sweep"]
+
+
+@dataclass
+class StrainSweep:
+    """Everything a strain sweep computed (see :func:`strain_sweep`)."""
+
+    table: StrainTable
+    methods: list
+    fraction: str
+    strains: np.ndarray
+    mu: np.ndarray
+    plateaus: dict  # method name -> PlateauResult (with grid)
+    critical: dict  # method name -> CriticalResult
+    band: dict
+    lambdas: dict = field(default_factory=dict)  # method name -> LambdaScan
+    seconds: dict = field(default_factory=dict)
+
+    @property
+    def names(self) -> list[str]:
+        return [m.name for m in self.methods]
+
+    def plateau_table(self) -> dict:
+        """Long-format columns: one row per (method, strain)."""
+        cols = {k: [] for k in ("method", "strain", "t_over_V", "mu_lo", "mu_hi", "width", "width_over_V",
+                                "plateau", "fixed_filling_state", "fixed_filling_label", "lower_edge_jump",
+                                "upper_edge_jump", "converged")}
+        ratio = self.table.ratio(self.strains)
+        vref = np.abs(self.table.params(self.strains)["V"]).max(1)
+        for name in self.names:
+            r = self.plateaus[name]
+            for i, s in enumerate(self.strains):
+                ff = fixed_filling(r, i)
+                cols["method"].append(name)
+                cols["strain"].append(float(s))
+                cols["t_over_V"].append(float(ratio[i]))
+                cols["mu_lo"].append(float(r.mu_lo[i]))
+                cols["mu_hi"].append(float(r.mu_hi[i]))
+                cols["width"].append(float(r.width[i]))
+                cols["width_over_V"].append(float(r.width[i] / vref[i]) if vref[i] > 0 else float("nan"))
+                cols["plateau"].append(bool(r.exists[i]))
+                cols["fixed_filling_state"].append(ff.get("state", ""))
+                cols["fixed_filling_label"].append(ff.get("label", ""))
+                cols["lower_edge_jump"].append(float(r.jump_lo[i]))
+                cols["upper_edge_jump"].append(float(r.jump_hi[i]))
+                cols["converged"].append(bool(r.ok(i)))
+        return cols
+
+    def metadata(self) -> dict:
+        from .. import __version__
+
+        return {
+            "title": f"phasemap strain sweep, {self.fraction} plateau",
+            "table": self.table.path or "", "table_description": self.table.meta.get("description", ""),
+            "table_invented": self.table.meta.get("invented", ""), "energy_unit": self.table.unit,
+            "lattice": self.table.lattice, "hardcore": int(self.table.hardcore), "fraction": self.fraction,
+            "methods": json.dumps(self.names), "critical": json.dumps({k: v.to_dict() for k, v in self.critical.items()}),
+            "band": json.dumps(self.band), "caution": CAUTION, "phasemap_version": __version__,
+            "table_rows": json.dumps(self.table.to_dict()),
+        }
+
+    def to_dataset(self) -> xr.Dataset:
+        """Labelled arrays: (method, strain, mu) map and (method, strain) plateau data."""
+        from ..api import phase_codes
+
+        codes = phase_codes()
+        names = self.names
+        shp = (len(names), len(self.strains), len(self.mu))
+        fill = np.full(shp, np.nan)
+        sq = np.full(shp, np.nan)
+        cond = np.full(shp, np.nan)
+        conv = np.zeros(shp, bool)
+        code = np.full(shp, -1, np.int8)
+        label = np.empty(shp, dtype=object)
+        per = {k: np.full(shp[:2], np.nan) for k in ("mu_lo", "mu_hi", "width", "jump_lo", "jump_hi")}
+        exists = np.zeros(shp[:2], bool)
+        for a, n in enumerate(names):
+            r = self.plateaus[n]
+            g = r.grid
+            fill[a], sq[a], cond[a] = g["filling"], g["sq_max"], g["condensate_max"]
+            conv[a] = g["converged"]
+            code[a] = np.vectorize(lambda x: codes.get(x, -1))(g["phase"])
+            label[a] = g["label"]
+            for k in per:
+                per[k][a] = getattr(r, k)
+            exists[a] = r.exists
+        p = self.table.params(self.strains)
+        fams = list(self.table.families)
+        u = self.table.unit
+        ds = xr.Dataset(
+            {
+                "filling": (("method", "strain", "mu"), fill, {"long_name": "filling per site"}),
+                "sq_max": (("method", "strain", "mu"), sq, {"long_name": "largest S(Q) at nonzero Q (solid order)"}),
+                "condensate_max": (("method", "strain", "mu"), cond, {"long_name": "max |<b>| (condensate)"}),
+                "converged": (("method", "strain", "mu"), conv),
+                "phase_code": (("method", "strain", "mu"), code,
+                               {"flag_values": list(codes.values()), "flag_meanings": " ".join(codes)}),
+                "label": (("method", "strain", "mu"), label.astype(str)),
+                "mu_lo": (("method", "strain"), per["mu_lo"], {"units": u, "long_name": f"{self.fraction} plateau lower edge"}),
+                "mu_hi": (("method", "strain"), per["mu_hi"], {"units": u, "long_name": f"{self.fraction} plateau upper edge"}),
+                "width": (("method", "strain"), per["width"], {"units": u, "long_name": "plateau width"}),
+                "jump_lo": (("method", "strain"), per["jump_lo"], {"long_name": "filling jump at the lower edge"}),
+                "jump_hi": (("method", "strain"), per["jump_hi"], {"long_name": "filling jump at the upper edge"}),
+                "plateau": (("method", "strain"), exists),
+                "t": (("strain", "family"), p["t"], {"units": u, "long_name": "hopping (PCHIP)"}),
+                "V": (("strain", "family"), p["V"], {"units": u, "long_name": "NN repulsion (PCHIP)"}),
+                "V2": (("strain",), p["V2"], {"units": u}),
+                "t_over_V": (("strain",), self.table.ratio(self.strains), {"long_name": "max t / max V"}),
+            },
+            coords={"method": names, "strain": self.strains, "mu": self.mu, "family": fams},
+            attrs=self.metadata(),
+        )
+        ds["mu"].attrs["units"] = u
+        ds["strain"].attrs["long_name"] = self.table.strain_label
+        return ds
+
+    def lambda_dataset(self) -> xr.Dataset | None:
+        if not self.lambdas:
+            return None
+        names = [n for n in self.names if n in self.lambdas]
+        lam = self.lambdas[names[0]].lambdas
+        sc = np.array([self.lambdas[n].strain_c for n in names])
+        unc = np.array([self.lambdas[n].uncertainty for n in names])
+        return xr.Dataset({"strain_c": (("method", "lambda"), sc), "uncertainty": (("method", "lambda"), unc)},
+                          coords={"method": names, "lambda": lam},
+                          attrs={"param": self.lambdas[names[0]].param,
+                                 "scans": json.dumps({n: self.lambdas[n].to_dict() for n in names})})
+
+    def summary(self) -> dict:
+        """Plain-JSON summary (critical strains, band, lambda scans, timings)."""
+        return {
+            "table": self.table.path, "unit": self.table.unit, "fraction": self.fraction, "methods": self.names,
+            "critical": {k: v.to_dict() for k, v in self.critical.items()},
+            "band": self.band,
+            "lambda": {k: v.to_dict() for k, v in self.lambdas.items()},
+            "seconds": self.seconds, "caution": CAUTION,
+        }
+
+    def text(self) -> str:
+        lines = [f"strain sweep of {self.table.path or 'table'} ({self.table.describe()})"]
+        for n in self.names:
+            lines.append("  " + self.critical[n].summary())
+            if n in self.lambdas:
+                lines.append("  " + self.lambdas[n].summary())
+        lines.append("  " + self.band["text"])
+        lines.append(f"  caution: {CAUTION}")
+        return "\n".join(lines)
+
+    def save(self, outdir, figures: bool = True, formats=("png", "pdf")) -> list[Path]:
+        """Write sweep.nc, plateau.csv, critical.csv, summary.json (+ lambda.csv/nc, figures) atomically."""
+        from ..store import atomic_write_text, save_csv, save_netcdf
+        from ..cli._common import dumps_json
+
+        out = Path(outdir)
+        paths = [save_netcdf(self.to_dataset(), out / "sweep.nc")]
+        meta = {k: v for k, v in self.metadata().items() if k not in ("critical", "table_rows")}
+        paths.append(save_csv(out / "plateau.csv", self.plateau_table(), meta))
+        crit = {k: [] for k in ("method", "status", "strain_c", "xtol", "interpolation_uncertainty", "t_over_V_c",
+                                "closest_strain", "closest_width", "band_lo", "band_hi")}
+        for n in self.names:
+            c = self.critical[n]
+            crit["method"].append(n)
+            crit["status"].append(c.status)
+            crit["strain_c"].append(c.strain_c if c.strain_c is not None else float("nan"))
+            crit["xtol"].append(c.xtol)
+            crit["interpolation_uncertainty"].append(c.interpolation_uncertainty or float("nan"))
+            crit["t_over_V_c"].append(c.t_over_V_c if c.t_over_V_c is not None else float("nan"))
+            crit["closest_strain"].append(c.closest["strain"])
+            crit["closest_width"].append(c.closest["value"])
+            crit["band_lo"].append(self.band["lo"] if self.band["lo"] is not None else float("nan"))
+            crit["band_hi"].append(self.band["hi"] if self.band["hi"] is not None else float("nan"))
+        paths.append(save_csv(out / "critical.csv", crit, meta))
+        lds = self.lambda_dataset()
+        if lds is not None:
+            paths.append(save_netcdf(lds, out / "lambda.nc"))
+            cols = {"method": [], "lambda": [], "strain_c": [], "uncertainty": []}
+            sc, un = lds["strain_c"].values, lds["uncertainty"].values
+            for a, n in enumerate(lds["method"].values):
+                for j, x in enumerate(lds["lambda"].values):
+                    cols["method"].append(str(n))
+                    cols["lambda"].append(float(x))
+                    cols["strain_c"].append(float(sc[a, j]))
+                    cols["uncertainty"].append(float(un[a, j]))
+            paths.append(save_csv(out / "lambda.csv", cols, {**meta, "param": lds.attrs["param"]}))
+        paths.append(atomic_write_text(out / "summary.json", dumps_json(self.summary()) + "\n"))
+        if figures:
+            from .plots import save_all
+
+            paths += save_all(self, out, formats=formats)
+        return paths
+
+
+def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int | None = None, mu=None,
+                 n_mu: int = 121, fraction="1/3", lambdas=None, param: str = "V", xtol: float | None = None,
+                 width_floor: float = 1e-3, thresholds=Thresholds(), **locate_kw) -> StrainSweep:
+    """Sweep the strain path for every method.
+
+    Parameters
+    ----------
+    table : StrainTable
+    methods : str or list
+        ``"mf,cmf:tri12"`` or a list of names / :class:`MethodSpec`.
+    strains : array, optional
+        Strain path (default :func:`~phasemap.strain.critical.coarse_strains`).
+    mu : array, optional
+        Common absolute chemical-potential grid (default ``n_mu`` points over the union of
+        the default windows along the path).
+    lambdas : array or str, optional
+        Also scan the critical strain versus the scale factor of ``param``.
+
+    Returns
+    -------
+    StrainSweep
+    """
+    import time
+
+    specs = parse_methods(methods)
+    lab, f = parse_fraction(fraction)
+    S = coarse_strains(table, n_strain) if strains is None else np.asarray(strains, float)
+    table.check_range(S)
+    models = table.models(S)
+    if mu is None:
+        w = np.array([default_window(m, f) for m in models])
+        mu = np.linspace(w[:, 0].min(), w[:, 1].max(), int(n_mu))
+    mu = np.asarray(mu, float)
+    plate, crit, lams, secs = {}, {}, {}, {}
+    for sp in specs:
+        t0 = time.perf_counter()
+        r = locate_plateaus(models, lab, sp, mu=mu, keep_grid=True, width_floor=width_floor, thresholds=thresholds,
+                            **locate_kw)
+        floor = np.array([width_floor * m.scale for m in models])
+        H = np.where(r.reached, r.width, 0.0) - floor
+        plate[sp.name] = r
+        crit[sp.name] = critical_strain(table, sp, lab, "width", coarse=(S, H, r), xtol=xtol,
+                                        width_floor=width_floor, thresholds=thresholds, **locate_kw)
+        secs[sp.name] = time.perf_counter() - t0
+        if lambdas is not None:
+            t1 = time.perf_counter()
+            lams[sp.name] = critical_vs_lambda(table, sp, lambdas, param, lab, n_strain=n_strain,
+                                               width_floor=width_floor, thresholds=thresholds, **locate_kw)
+            secs[f"{sp.name} lambda"] = time.perf_counter() - t1
+    return StrainSweep(table=table, methods=specs, fraction=lab, strains=S, mu=mu, plateaus=plate, critical=crit,
+                       band=critical_band(list(crit.values())), lambdas=lams, seconds=secs)
