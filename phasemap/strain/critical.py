@@ -277,6 +277,8 @@ def _interp_uncertainty(table: StrainTable, s: float) -> float | None:
     ds = 1e-3 * (table.span[1] - table.span[0])
     a, b = max(table.span[0], s - ds), min(table.span[1], s + ds)
     r = table.ratio([a, s, b])
+    if not np.all(np.isfinite(r)):
+        return None
     slope = (r[2] - r[0]) / (b - a)
     if slope == 0 or not np.isfinite(slope):
         return None

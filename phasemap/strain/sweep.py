@@ -114,25 +114,25 @@ class StrainSweep:
         u = self.table.unit
         ds = xr.Dataset(
             {
-                "filling": (("method", "strain", "mu"), fill, {"long_name": "filling per site"}),
-                "sq_max": (("method", "strain", "mu"), sq, {"long_name": "largest S(Q) at nonzero Q (solid order)"}),
-                "condensate_max": (("method", "strain", "mu"), cond, {"long_name": "max |<b>| (condensate)"}),
-                "converged": (("method", "strain", "mu"), conv),
-                "phase_code": (("method", "strain", "mu"), code,
+                "filling": (("solver", "strain", "mu"), fill, {"long_name": "filling per site"}),
+                "sq_max": (("solver", "strain", "mu"), sq, {"long_name": "largest S(Q) at nonzero Q (solid order)"}),
+                "condensate_max": (("solver", "strain", "mu"), cond, {"long_name": "max |<b>| (condensate)"}),
+                "converged": (("solver", "strain", "mu"), conv),
+                "phase_code": (("solver", "strain", "mu"), code,
                                {"flag_values": list(codes.values()), "flag_meanings": " ".join(codes)}),
-                "label": (("method", "strain", "mu"), label.astype(str)),
-                "mu_lo": (("method", "strain"), per["mu_lo"], {"units": u, "long_name": f"{self.fraction} plateau lower edge"}),
-                "mu_hi": (("method", "strain"), per["mu_hi"], {"units": u, "long_name": f"{self.fraction} plateau upper edge"}),
-                "width": (("method", "strain"), per["width"], {"units": u, "long_name": "plateau width"}),
-                "jump_lo": (("method", "strain"), per["jump_lo"], {"long_name": "filling jump at the lower edge"}),
-                "jump_hi": (("method", "strain"), per["jump_hi"], {"long_name": "filling jump at the upper edge"}),
-                "plateau": (("method", "strain"), exists),
+                "label": (("solver", "strain", "mu"), label.astype(str)),
+                "mu_lo": (("solver", "strain"), per["mu_lo"], {"units": u, "long_name": f"{self.fraction} plateau lower edge"}),
+                "mu_hi": (("solver", "strain"), per["mu_hi"], {"units": u, "long_name": f"{self.fraction} plateau upper edge"}),
+                "width": (("solver", "strain"), per["width"], {"units": u, "long_name": "plateau width"}),
+                "jump_lo": (("solver", "strain"), per["jump_lo"], {"long_name": "filling jump at the lower edge"}),
+                "jump_hi": (("solver", "strain"), per["jump_hi"], {"long_name": "filling jump at the upper edge"}),
+                "plateau": (("solver", "strain"), exists),
                 "t": (("strain", "family"), p["t"], {"units": u, "long_name": "hopping (PCHIP)"}),
                 "V": (("strain", "family"), p["V"], {"units": u, "long_name": "NN repulsion (PCHIP)"}),
                 "V2": (("strain",), p["V2"], {"units": u}),
                 "t_over_V": (("strain",), self.table.ratio(self.strains), {"long_name": "max t / max V"}),
             },
-            coords={"method": names, "strain": self.strains, "mu": self.mu, "family": fams},
+            coords={"solver": names, "strain": self.strains, "mu": self.mu, "family": fams},
             attrs=self.metadata(),
         )
         ds["mu"].attrs["units"] = u
@@ -146,8 +146,8 @@ class StrainSweep:
         lam = self.lambdas[names[0]].lambdas
         sc = np.array([self.lambdas[n].strain_c for n in names])
         unc = np.array([self.lambdas[n].uncertainty for n in names])
-        return xr.Dataset({"strain_c": (("method", "lambda"), sc), "uncertainty": (("method", "lambda"), unc)},
-                          coords={"method": names, "lambda": lam},
+        return xr.Dataset({"strain_c": (("solver", "lambda"), sc), "uncertainty": (("solver", "lambda"), unc)},
+                          coords={"solver": names, "lambda": lam},
                           attrs={"param": self.lambdas[names[0]].param,
                                  "scans": json.dumps({n: self.lambdas[n].to_dict() for n in names})})
 
@@ -200,7 +200,7 @@ class StrainSweep:
             paths.append(save_netcdf(lds, out / "lambda.nc"))
             cols = {"method": [], "lambda": [], "strain_c": [], "uncertainty": []}
             sc, un = lds["strain_c"].values, lds["uncertainty"].values
-            for a, n in enumerate(lds["method"].values):
+            for a, n in enumerate(lds["solver"].values):
                 for j, x in enumerate(lds["lambda"].values):
                     cols["method"].append(str(n))
                     cols["lambda"].append(float(x))

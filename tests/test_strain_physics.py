@@ -1,0 +1,99 @@
+"""Strain workflow against closed-form mean-field answers, verdict text vs JSON, sweep vs root-finding."""
+
+import json
+
+import numpy as np
+import pytest
+
+from phasemap import Model
+from phasemap.cli import main
+from phasemap.strain import check_strain, critical_strain, locate_plateaus
+from phasemap.strain.engine import fixed_filling
+from phasemap.strain.table import StrainTable
+
+Z = 6  # triangular lattice coordination
+
+
+def _linear_t_table(t0=0.1, slope=1.0, V=0.0):
+    # hard-core isotropic, t(s) = t0 + slope * s (linear: PCHIP reproduces it exactly)
+    s = np.linspace(0.0, 0.4, 5)
+    return StrainTable.from_columns({"strain": s, "t": t0 + slope * s, "V": np.full(5, V)}, unit="K")
+
+
+def test_t0_plateau_edges_exact():
+    # exact (t = 0 classical limit, DESIGN.md §4): hard-core triangular plateaus 1/3 on mu/V in (0, 3)
+    # and 2/3 on (3, 6); the product state reproduces them exactly
+    m = Model(t=0.0, V=1.0)
+    r = locate_plateaus([m], "1/3", tol=1e-4, n_mu=41)
+    assert r.exists[0] and r.label_center[0] == "solid 1/3"
+    assert r.mu_lo[0] == pytest.approx(0.0, abs=2e-4) and r.mu_hi[0] == pytest.approx(3.0, abs=2e-4)
+    r2 = locate_plateaus([m], "2/3", tol=1e-4, n_mu=41)
+    assert r2.mu_lo[0] == pytest.approx(3.0, abs=2e-4) and r2.mu_hi[0] == pytest.approx(6.0, abs=2e-4)
+
+
+def test_empty_edge_and_critical_strain_closed_form():
+    # exact for the product state at V = 0: the empty state is stable for mu < -z t, and for
+    # |mu| < z t the filling is n = (1 + mu/(z t))/2. With t(s) = t0 + a s a fixed mu = -m leaves
+    # the empty state where z t(s) = m, i.e. at s_c = (m/z - t0)/a.
+    t0, a, m = 0.1, 1.0, 1.5
+    tab = _linear_t_table(t0, a)
+    s = np.array([0.0, 0.2, 0.4])
+    r = locate_plateaus(tab.models(s), "0", tol=1e-6)
+    np.testing.assert_allclose(r.mu_hi, -Z * (t0 + a * s), atol=1e-5)
+    assert np.all(np.isinf(r.mu_lo))
+    # the filling passes 1/2 at mu = 0 continuously (closed form n = (1 + mu/(zt))/2)
+    h = locate_plateaus(tab.models(s), "1/2", tol=1e-6)
+    np.testing.assert_allclose(0.5 * (h.mu_lo + h.mu_hi), 0.0, atol=1e-5)
+    assert not h.exists.any() and fixed_filling(h, 0)["state"] == "superfluid"
+    s_c = (m / Z - t0) / a  # = 0.15
+    c = critical_strain(tab, "mf", fraction="0", criterion="mu", mu=-m, n_strain=5, xtol=1e-5, tol=1e-6)
+    assert c.status == "found" and c.direction == "leaves the plateau with increasing strain"
+    assert c.strain_c == pytest.approx(s_c, abs=2e-5)
+
+
+def test_verdict_text_and_json_agree(capsys, tmp_path):
+    # common practice, no source: the text is written from the JSON data, so every number agrees
+    s = np.linspace(0.0, 0.1, 4)
+    tab = StrainTable.from_columns({"strain": s, "t": 0.3 + 3 * s, "V": np.full(4, 6.0)}, unit="K")
+    p = tmp_path / "t.csv"
+    p.write_text("# unit = K\nstrain,t,V\n" + "".join(f"{a:g},{0.3 + 3 * a:g},6\n" for a in s))
+    args = [str(p), "--strain", "0.05", "--mu", "9", "--no-melt"]
+    assert main(["strain-check", *args, "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert main(["strain-check", *args]) == 0
+    text = capsys.readouterr().out
+    assert d["verdict"] == "holds" and "the 1/3 solid holds" in text
+    w = d["plateau"]["width"]
+    assert f"plateau width {w:.3g} K ({d['plateau']['width_over_V']:.2g} V)" in text
+    assert f"mu from {d['plateau']['mu_lo']:.4g} K to {d['plateau']['mu_hi']:.4g} K" in text
+    assert f"at mu = 9 K the state is {d['at_mu']['label']}" in text
+    # same answer through the Python API
+    api = check_strain(tab, 0.05, "mf", mu=9.0, melt=False).data
+    assert api["plateau"]["width"] == pytest.approx(w, rel=1e-12)
+
+
+def test_sweep_critical_strain_is_a_root():
+    # the sweep's critical strain brackets a sign change of the plateau width criterion within xtol
+    from phasemap.strain.sweep import strain_sweep
+
+    s = np.linspace(0.0, 0.1, 3)
+    tab = StrainTable.from_columns({"strain": s, "t": 0.15 + 1.5 * s, "V": np.ones(3)}, unit="V")
+    sw = strain_sweep(tab, "mf", n_strain=3, n_mu=41, xtol=1e-3)
+    c = sw.critical["mf"]
+    assert c.status == "found" and 0.0 < c.strain_c < 0.1
+    r = locate_plateaus(tab.models([c.strain_c - 2 * c.xtol, c.strain_c + 2 * c.xtol]), "1/3")
+    assert r.exists[0] and not r.exists[1]
+    ds = sw.to_dataset()
+    assert ds["width"].sel(solver="mf").values[0] > 0 and ds.attrs["energy_unit"] == "V"
+
+
+@pytest.mark.slow
+def test_sweep_equals_independent_root_finding():
+    # the critical strain from the sweep equals brentq on an independent coarse path within tolerance
+    from phasemap.strain.sweep import strain_sweep
+
+    s = np.linspace(0.0, 0.1, 3)
+    tab = StrainTable.from_columns({"strain": s, "t": 0.15 + 1.5 * s, "V": np.ones(3)}, unit="V")
+    sw = strain_sweep(tab, "mf", n_strain=3, n_mu=41)
+    c2 = critical_strain(tab, "mf", n_strain=7)
+    assert sw.critical["mf"].strain_c == pytest.approx(c2.strain_c, abs=2 * c2.xtol)
