@@ -29,7 +29,7 @@ def _random_models(rng, n, hardcore):
 @pytest.mark.parametrize("hardcore", [True, False])
 def test_one_site_cluster_equals_site_decoupled(hardcore):
     rng = np.random.default_rng(5 if hardcore else 6)
-    batch = ParamBatch.from_models(_random_models(rng, 6, hardcore))
+    batch = ParamBatch.from_models(_random_models(rng, 4, hardcore))
     res = solve_cmf_batch(batch, cluster="tri1", n_random=2, continuation=False, tol=1e-11, anderson=5)
     ref = solve_batch(batch, MFOptions(tol=1e-11, anderson=5), seeds=res.seeds)  # same iteration scheme
     both = res.converged & ref.converged
