@@ -198,8 +198,10 @@ def plot_phase_map(ds, width="single", title=None, boundaries=True, region_names
                          hatch=UNCONVERGED_HATCH if n == "unconverged" else None, label=n) for n in names]
         bx, by = f"boundary_{xn}", f"boundary_{yn}"
         if boundaries and bx in ds and ds[bx].size:
-            jump = np.asarray(ds["boundary_jump"].values if "boundary_jump" in ds else np.zeros(ds[bx].size))
-            first = jump > 1e-3
+            if "boundary_first_order" in ds:
+                first = np.asarray(ds["boundary_first_order"].values, bool)
+            else:  # files written before the halving test existed
+                first = np.asarray(ds["boundary_jump"].values if "boundary_jump" in ds else np.zeros(ds[bx].size)) > 1e-3
             ax.plot(ds[bx].values[~first], ds[by].values[~first], ".", ms=1.2, color="k", mew=0)
             ax.plot(ds[bx].values[first], ds[by].values[first], "o", ms=1.6, mfc="none", mec="#b2182b", mew=0.4)
             handles += [Line2D([], [], ls="", marker=".", color="k", label="boundary (continuous)"),

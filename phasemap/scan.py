@@ -31,12 +31,12 @@ __all__ = ["phase_map", "filling_curve", "FillingCurve", "refine_boundaries", "e
 INCOMPRESSIBLE = ("empty", "full", "mott", "solid")
 
 
-def _progress(iterable, total, desc, enabled):
+def _progress(iterable, total, desc, enabled, unit="chunk"):
     if not enabled:
         return iterable
     from tqdm.auto import tqdm
 
-    return tqdm(iterable, total=total, desc=desc, unit="chunk", leave=False)
+    return tqdm(iterable, total=total, desc=desc, unit=unit, leave=False)
 
 
 def evaluate(batch: ParamBatch, method="mf", options=None, thresholds=Thresholds(), chunk=4096,
@@ -200,7 +200,7 @@ def refine_boundaries(model, ds, relative=True, method="mf", options=None, thres
 
     Returns a Dataset with dimension ``bpoint`` and variables ``boundary_<x>``, ``boundary_<y>``,
     ``boundary_from``, ``boundary_to`` (labels), ``boundary_jump`` (filling jump across the
-    refined bracket: > 0 for a first-order transition).
+    refined bracket), ``boundary_first_order`` (the jump survives halving the bracket).
     """
     xn, yn = ds.attrs["x_axis"], ds.attrs["y_axis"]
     lab = ds["label"].values
@@ -223,13 +223,14 @@ def refine_boundaries(model, ds, relative=True, method="mf", options=None, thres
     la = np.array([p[2] for p in pairs])
     lb = np.array([p[3] for p in pairs])
     span = max(np.ptp(X) if len(X) > 1 else 1.0, np.ptp(Y) if len(Y) > 1 else 1.0)
-    lo, hi, flo, fhi = bisect_labels(model, names, a, b, la, relative, method, options, thresholds,
-                                     tol * span, progress)
+    lo, hi, flo, fhi, first = bisect_labels(model, names, a, b, la, relative, method, options, thresholds,
+                                            tol * span, progress)
     mid = 0.5 * (lo + hi)
     return xr.Dataset({
         f"boundary_{xn}": ("bpoint", mid[:, 0]), f"boundary_{yn}": ("bpoint", mid[:, 1]),
         "boundary_from": ("bpoint", la.astype(str)), "boundary_to": ("bpoint", lb.astype(str)),
         "boundary_jump": ("bpoint", np.abs(fhi["filling"] - flo["filling"])),
+        "boundary_first_order": ("bpoint", first),
         "boundary_bracket": ("bpoint", np.abs(hi - lo).max(1)),
     })
 
@@ -239,37 +240,52 @@ def _empty_boundaries(names):
     e = np.zeros(0)
     return xr.Dataset({f"boundary_{xn}": ("bpoint", e), f"boundary_{yn}": ("bpoint", e),
                        "boundary_from": ("bpoint", e.astype(str)), "boundary_to": ("bpoint", e.astype(str)),
-                       "boundary_jump": ("bpoint", e), "boundary_bracket": ("bpoint", e)})
+                       "boundary_jump": ("bpoint", e), "boundary_first_order": ("bpoint", e.astype(bool)),
+                       "boundary_bracket": ("bpoint", e)})
 
 
 def _points(model, names, pts, relative):
     return points(model, {n: pts[:, i] for i, n in enumerate(names)}, relative)
 
 
+def _pick(mask, a, b):
+    """Per-segment choice between two flats: a where mask, else b."""
+    return {k: np.where(mask.reshape((-1,) + (1,) * (a[k].ndim - 1)), a[k], b[k]) for k in a}
+
+
 def bisect_labels(model, names, a, b, label_a, relative, method, options, thresholds, tol, progress,
-                  key="label", ref_b=None):
+                  key="label", ref_b=None, jump_tol=1e-3):
     """Bisect segments a -> b (axis coordinates) on "same state as the a-end".
 
     ``key="label"``: same phase label as ``label_a``. ``key="filling"``: filling closer to
     the a-end's filling ``label_a`` than to ``ref_b``. Unconverged midpoints count as the
-    b side and are flagged in the returned flats (``converged``). Returns lo, hi brackets and
-    the evaluated flats at both final ends.
+    b side (their flats keep ``converged=False``).
+
+    Returns ``lo, hi, flo, fhi, first_order``: final brackets, the evaluated flats at both
+    ends, and whether the transition is first order — the filling jump across the bracket
+    exceeds ``jump_tol`` and did not shrink with the last halving of the bracket (a continuous
+    change halves with it).
     """
     lo, hi = a.astype(float).copy(), b.astype(float).copy()
     span = np.abs(b - a).max(1)
-    steps = int(max(0, math.ceil(math.log2(max(span.max(), 1e-300) / tol))))
-    for _ in _progress(range(steps), steps, "refining boundaries", progress):
+    steps = int(max(1, math.ceil(math.log2(max(span.max(), 1e-300) / tol))))
+    flo = evaluate(_points(model, names, lo, relative), method, options, thresholds)
+    fhi = evaluate(_points(model, names, hi, relative), method, options, thresholds)
+    jump_prev = np.abs(fhi["filling"] - flo["filling"])
+    for _ in _progress(range(steps), steps, "refining boundaries", progress, unit="step"):
         mid = 0.5 * (lo + hi)
         flat = evaluate(_points(model, names, mid, relative), method, options, thresholds)
         if key == "label":
             same = flat["label"] == label_a
         else:
             same = np.abs(flat["filling"] - label_a) < np.abs(flat["filling"] - ref_b)
+        jump_prev = np.abs(fhi["filling"] - flo["filling"])
         lo = np.where(same[:, None], mid, lo)
         hi = np.where(same[:, None], hi, mid)
-    flo = evaluate(_points(model, names, lo, relative), method, options, thresholds)
-    fhi = evaluate(_points(model, names, hi, relative), method, options, thresholds)
-    return lo, hi, flo, fhi
+        flo, fhi = _pick(same, flat, flo), _pick(same, fhi, flat)
+    jump = np.abs(fhi["filling"] - flo["filling"])
+    first_order = (jump > jump_tol) & (jump > 0.8 * jump_prev)
+    return lo, hi, flo, fhi, first_order
 
 
 # -- filling curves ------------------------------------------------------------------------
@@ -362,8 +378,8 @@ def filling_curve(model: Model, mu=None, relative=True, method="mf", options=Non
             seg_a.append(mu[e]), seg_b.append(mu[e + 1]), seg_lab.append(labels[e])
     edges = {}
     if refine and seg_a:
-        lo, hi, _, _ = bisect_labels(model, names, np.array(seg_a)[:, None], np.array(seg_b)[:, None],
-                                     np.array(seg_lab), relative, method, options, thresholds, tol, progress)
+        lo, hi, _, _, _ = bisect_labels(model, names, np.array(seg_a)[:, None], np.array(seg_b)[:, None],
+                                        np.array(seg_lab), relative, method, options, thresholds, tol, progress)
         for k, (x, yv) in enumerate(zip(seg_a, seg_b)):
             edges[(x, yv)] = 0.5 * (lo[k, 0] + hi[k, 0])
     for s, e in runs:
@@ -381,11 +397,11 @@ def filling_curve(model: Model, mu=None, relative=True, method="mf", options=Non
                       (slope > 4 * np.median(slope[slope > 0]) if np.any(slope > 0) else False))[0]
     if refine and len(cand):
         a, b = mu[cand][:, None], mu[cand + 1][:, None]
-        lo, hi, flo, fhi = bisect_labels(model, names, a, b, n[cand], relative, method, options, thresholds,
-                                         tol, progress, key="filling", ref_b=n[cand + 1])
+        lo, hi, flo, fhi, first = bisect_labels(model, names, a, b, n[cand], relative, method, options,
+                                                thresholds, tol, progress, key="filling", ref_b=n[cand + 1],
+                                                jump_tol=jump_tol)
         for k, i in enumerate(cand):
-            gap = abs(fhi["filling"][k] - flo["filling"][k])
-            if gap > jump_tol:
+            if first[k]:
                 curve.jumps.append({"mu": float(0.5 * (lo[k, 0] + hi[k, 0])), "n_below": float(flo["filling"][k]),
                                     "n_above": float(fhi["filling"][k]), "from": str(flo["label"][k]),
                                     "to": str(fhi["label"][k])})
