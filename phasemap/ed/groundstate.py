@@ -1,0 +1,141 @@
+"""Ground state at fixed particle number: loop over momentum classes, keep the lowest.
+
+References
+----------
+.. [1] A. Weiße and H. Fehske, Lect. Notes Phys. 739, 529 (2008).
+.. [2] P. Weinberg and M. Bukov, SciPost Phys. 2, 003 (2017) (QuSpin).
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..lattice import Supercell
+from ..model import ConfigError, Model
+from .clusters import check_bonds, get_cluster, momentum_classes, point_group
+from .guard import DEFAULT_BUDGET_GIB, check_budget, estimate
+from .sector import Sector
+
+__all__ = ["GroundState", "ground_state", "check_particles"]
+
+#: Levels closer than this (relative) count as degenerate across momenta.
+DEGENERACY_TOL = 1e-8
+
+
+@dataclass
+class GroundState:
+    """Lowest state at fixed N.
+
+    Attributes
+    ----------
+    e0 : float
+        Ground-state energy (of the model's Hamiltonian, including ``-mu N``).
+    q : ndarray (2,)
+        Momentum of the ground state (units of the reciprocal vectors); ``q_name`` its label.
+    degenerate : list of str
+        All momenta whose sector energy is within ``DEGENERACY_TOL`` of ``e0``.
+    sector_e0 : dict
+        Lowest energy of every diagonalised momentum class (key: representative label).
+    dims, times : dict
+        Dimension and solve time (s) of each diagonalised sector; ``build_time`` for the basis.
+    """
+
+    cell: Supercell
+    model: Model
+    N: int
+    e0: float
+    q: np.ndarray
+    q_name: str
+    vec: np.ndarray
+    sector: Sector
+    degenerate: list = field(default_factory=list)
+    sector_e0: dict = field(default_factory=dict)
+    dims: dict = field(default_factory=dict)
+    times: dict = field(default_factory=dict)
+    build_time: float = 0.0
+    residual: float = 0.0
+
+    @property
+    def L(self) -> int:
+        return self.cell.n_sites
+
+
+def check_particles(N, L: int, n_max: int, name: str = "particles") -> int:
+    """Validate a particle number ``0 <= N <= n_max L``."""
+    if isinstance(N, bool) or not float(N).is_integer():
+        raise ConfigError(f"{name}: expected an integer number of bosons, got {N!r}")
+    N = int(N)
+    if not 0 <= N <= n_max * L:
+        raise ConfigError(f"{name}: must be between 0 and n_max * sites = {n_max * L}, got {N}")
+    return N
+
+
+def n_hop_dirs(model: Model) -> int:
+    return 2 * sum(1 for t in model.t if t != 0)
+
+
+def ground_state(model: Model, cluster, N: int, *, symmetric: bool = True, point_group_reduce: bool = True,
+                 budget_gib: float | None = DEFAULT_BUDGET_GIB, tol: float = 1e-10, lookup: str = "auto",
+                 momenta=None) -> GroundState:
+    """Exact ground state with N bosons on a periodic cluster.
+
+    Parameters
+    ----------
+    model : Model
+    cluster : str, Supercell or (2, 2) vectors
+    N : int
+    symmetric : bool
+        Use translation blocks (default); ``False`` diagonalises the whole N sector.
+    point_group_reduce : bool
+        Diagonalise one momentum per class of momenta related by the point-group operations
+        that respect the couplings and by time reversal (degenerate sectors).
+    budget_gib : float or None
+        Memory budget of the sector; ``None`` disables the guard.
+    tol : float
+        Lanczos (ARPACK) relative residual tolerance; energies are accurate to ~tol^2.
+    momenta : list of int, optional
+        Restrict to these momentum indices (``cell.momenta``); then no class reduction.
+
+    Raises
+    ------
+    ConfigError
+        Bad cluster or particle number, doubled bonds, or over the memory budget.
+    """
+    cell = get_cluster(cluster, model.lattice)
+    check_bonds(cell, model)
+    N = check_particles(N, cell.n_sites, model.n_max)
+    est = estimate(cell.n_sites, N, model.n_max, n_hop_dirs(model), cell.n_sites if symmetric else 1)
+    check_budget(est, budget_gib, what=f"ED sector N={N} on {cell!r}")
+    t0 = time.perf_counter()
+    sec = Sector(cell, model, N, symmetric=symmetric, lookup=lookup)
+    if not symmetric:
+        classes = [[0]]
+        qs = np.zeros((1, 2))
+    else:
+        qs = cell.momenta
+        if momenta is not None:
+            classes = [[int(k)] for k in momenta]
+        else:
+            classes = momentum_classes(cell, point_group(cell, model) if point_group_reduce else [])
+    best, sector_e0, dims, times = None, {}, {}, {}
+    for cls in classes:
+        k = cls[0]
+        r = sec.solve(qs[k], tol=tol, q_index=k)
+        name = cell.momentum_name(qs[k]) if symmetric else "all"
+        sector_e0[name], dims[name], times[name] = r.e0, r.dim, r.time
+        r.members = cls
+        if r.dim and (best is None or r.e0 < best.e0 - DEGENERACY_TOL * max(1.0, abs(r.e0))):
+            best = r
+    scale = DEGENERACY_TOL * max(1.0, abs(best.e0))
+    degenerate = [cell.momentum_name(qs[m]) if symmetric else "all"
+                  for cls in classes if sector_e0[cell.momentum_name(qs[cls[0]]) if symmetric else "all"] - best.e0 < scale
+                  for m in cls]
+    vec = best.vectors[:, 0]
+    H = sec.matrix(qs[best.q_index])
+    residual = float(np.linalg.norm(H @ vec - best.e0 * vec))
+    q = qs[best.q_index]
+    return GroundState(cell, model, N, float(best.e0), q, cell.momentum_name(q) if symmetric else "all", vec, sec,
+                       degenerate, sector_e0, dims, times, build_time=sec.build_time, residual=residual)

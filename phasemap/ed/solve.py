@@ -1,0 +1,224 @@
+"""Front door of exact diagonalization: ``solve_ed(model, cluster=..., particles=N) -> Solution``.
+
+What the :class:`phasemap.solution.Solution` fields mean for ED (finite cluster, canonical):
+
+* ``energy`` = E0(N) / L (model Hamiltonian including ``-mu N``), ``filling`` = N / L;
+* ``densities`` = N / L on every site (a momentum eigenstate is translation invariant;
+  density order shows up in S(Q), not in site densities);
+* ``condensate`` = sqrt(n_max(k) / L) on every site, with n_max(k) the largest eigenvalue
+  of the one-body density matrix (equals |<b>| of a uniform condensate for large L);
+* ``order``: ``S(K)/N`` (S(K)/L), ``sq_max``/``q_max`` (largest S(Q)/L at Q != 0),
+  ``condensate_fraction``, ``stiffness`` (mean over families) and ``stiffness_<family>``,
+  ``gap`` (mu+ - mu-);
+* ``phase``: a finite-size indicator (see :class:`EDThresholds`), never a thermodynamic
+  statement; ``flags`` record degeneracies and the thresholds used;
+* ``residual`` = ||H psi - E0 psi||; ``iterations`` = number of momentum sectors solved;
+* ``extra``: cluster, N, E0, momentum, every sector energy, dimensions, times, S(Q) at all
+  momenta, n(k), mu+(N), mu-(N).
+
+References
+----------
+.. [1] A. Weiße and H. Fehske, Lect. Notes Phys. 739, 529 (2008).
+.. [2] S. Wessel and M. Troyer, Phys. Rev. Lett. 95, 127205 (2005); D. Heidarian and
+   K. Damle, Phys. Rev. Lett. 95, 127206 (2005) (finite-size indicators: S(K)/N, stiffness).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass
+from fractions import Fraction
+
+import numpy as np
+
+from ..lattice import patterns_for
+from ..model import ConfigError, Model, check_keys
+from ..solution import Solution
+from .groundstate import ground_state
+from .observables import one_body, stiffness, structure_factor
+
+__all__ = ["EDThresholds", "solve_ed", "observables", "indicator"]
+
+
+@dataclass(frozen=True)
+class EDThresholds:
+    """Finite-size phase indicator thresholds.
+
+    sq : float, default 0.05
+        Density order if max_{Q != 0} S(Q)/L exceeds this (perfect √3×√3 solid at 1/3: 1/9).
+    stiffness : float, default 0.1
+        Superfluid response if the mean stiffness exceeds ``stiffness * max(t)`` (free
+        bosons at density n have rho = 3 n t on the triangular lattice, 2 n t on the square).
+    gap : float, default 1e-9
+        Incompressible if mu+ - mu- exceeds ``gap * scale`` (finite clusters are always
+        gapped; this only separates exact level crossings).
+    """
+
+    sq: float = 0.05
+    stiffness: float = 0.1
+    gap: float = 1e-9
+
+
+def observables(gs, which=("sq", "condensate", "stiffness"), phi: float = 1e-2, tol: float = 1e-12) -> dict:
+    """Measure ground-state observables; returns a dict (see module notes)."""
+    out = {}
+    allowed = {"sq", "condensate", "stiffness"}
+    bad = set(which) - allowed
+    if bad:
+        raise ConfigError(f"observables: unknown {sorted(bad)}; allowed: {sorted(allowed)}")
+    sec, q, vec, cell = gs.sector, gs.q, gs.vec, gs.cell
+    if "sq" in which:
+        mom, sq = structure_factor(sec, q, vec)
+        sq_n = sq / cell.n_sites
+        nz = np.any(np.abs(np.mod(mom + 0.5, 1) - 0.5) > 1e-9, axis=1)
+        out["momenta"], out["sq"] = mom, sq
+        if nz.any():
+            k = int(np.argmax(np.where(nz, sq_n, -np.inf)))
+            out["sq_max"], out["q_max"] = float(sq_n[k]), cell.momentum_name(mom[k])
+        if "K" in cell.lattice.special_q:
+            Kq = np.array(cell.lattice.special_q["K"], float)
+            hit = np.all(np.abs(np.mod(mom - Kq + 0.5, 1) - 0.5) < 1e-9, axis=1)
+            out["S(K)/N"] = float(sq_n[hit][0]) if hit.any() else math.nan
+    if "condensate" in which and sec.group.orders:
+        ob = one_body(sec, q, vec)
+        out["condensate_fraction"] = ob["condensate_fraction"]
+        out["nk"], out["k_condensate"] = ob["nk"], cell.momentum_name(ob["k_max"])
+        out["lambda_max"] = float(np.max(ob["nk"]))
+    if "stiffness" in which:
+        st = stiffness(sec, q, gs.e0, vec, phi=phi, tol=tol)
+        out["stiffness_families"] = st
+        out["stiffness"] = float(np.mean(list(st.values())))
+    return out
+
+
+def _pattern(cell, q_name: str) -> str:
+    for name, p in sorted(patterns_for(cell.lattice).items(), key=lambda kv: kv[1].n_sub):
+        if name != "uniform" and q_name in p.q:
+            return name
+    return ""
+
+
+def indicator(model: Model, cell, N: int, obs: dict, gap: float | None, th: EDThresholds) -> tuple[str, str, str, list]:
+    """Finite-size phase indicator -> (phase, label, pattern, flags)."""
+    L = cell.n_sites
+    frac = Fraction(N, L)
+    flags = []
+    if N == 0:
+        return "empty", "empty", "", flags
+    if N == model.n_max * L:
+        return "full", "full", "", flags
+    ordered = obs.get("sq_max", 0.0) > th.sq
+    tmax = max(model.t) if max(model.t) > 0 else 1.0
+    sf = obs.get("stiffness", 0.0) > th.stiffness * tmax if "stiffness" in obs else obs.get("condensate_fraction", 0) > 0.5
+    pattern = _pattern(cell, obs.get("q_max", "")) if ordered else "uniform"
+    if ordered and sf:
+        return "supersolid", f"supersolid {frac} ({obs.get('q_max')})", pattern, flags
+    if ordered:
+        return "solid", f"solid {frac} ({obs.get('q_max')})", pattern, flags
+    if sf:
+        return "superfluid", f"superfluid n={float(frac):.4g}", "uniform", flags
+    if frac.denominator == 1 and gap is not None and gap > th.gap * model.scale:
+        return "mott", f"mott n={frac}", "uniform", flags
+    flags.append("no-order-no-stiffness")
+    return "solid", f"insulating {frac} (no density order on this cluster)", "", flags
+
+
+_OPTIONS = {"symmetric", "point_group_reduce", "budget_gib", "tol", "lookup", "observables", "phi",
+            "neighbors", "thresholds"}
+
+
+def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Solution:
+    """Exact ground state of ``model`` on a periodic cluster at fixed particle number.
+
+    Parameters
+    ----------
+    model : Model
+    cluster : str, Supercell or (2, 2) vectors, default "tri12"
+        Library name (:data:`phasemap.ed.clusters.CLUSTERS`), supercell or superlattice vectors.
+    particles : int, optional
+        Number of bosons N. Default: the grand-canonical ground state of the cluster at
+        ``model.mu`` (the N minimising E0(N); this diagonalises every N).
+    symmetric, point_group_reduce, budget_gib, tol, lookup
+        See :func:`phasemap.ed.groundstate.ground_state`.
+    observables : tuple, default ("sq", "condensate", "stiffness")
+    phi : float, default 1e-2
+        Twist used for the stiffness (finite difference).
+    neighbors : bool, default True
+        Also solve N-1 and N+1 for mu-(N), mu+(N) and the gap.
+    thresholds : EDThresholds or dict
+
+    Returns
+    -------
+    Solution
+        ``method="ed"``; field meanings in the module notes.
+
+    Raises
+    ------
+    ConfigError
+        Unknown options, bad cluster/particles, doubled bonds or over the memory budget.
+
+    Examples
+    --------
+    >>> from phasemap import Model
+    >>> sol = solve_ed(Model("triangular", t=0.1, V=1), cluster="tri12", particles=4)
+    >>> round(sol.order["S(K)/N"], 3) > 0.05
+    True
+    """
+    check_keys("ed options", options, _OPTIONS)
+    th = options.pop("thresholds", EDThresholds())
+    if isinstance(th, dict):
+        check_keys("thresholds", th, EDThresholds.__dataclass_fields__)
+        th = EDThresholds(**th)
+    which = tuple(options.pop("observables", ("sq", "condensate", "stiffness")))
+    phi = float(options.pop("phi", 1e-2))
+    neighbors = bool(options.pop("neighbors", True))
+    gs_opts = options
+    if particles is None:
+        from .staircase import staircase
+
+        ds = staircase(model, cluster, **{k: v for k, v in gs_opts.items() if k != "symmetric"})
+        particles = int(ds["N"].values[int(np.nanargmin(ds["E0"].values))])
+    gs = ground_state(model, cluster, particles, **gs_opts)
+    cell, N, L = gs.cell, gs.N, gs.L
+    obs = observables(gs, which, phi=phi)
+    mu_p = mu_m = gap = None
+    e_side = {}
+    if neighbors:
+        for dn in (-1, 1):
+            if 0 <= N + dn <= model.n_max * L:
+                e_side[dn] = ground_state(model, cell, N + dn, **gs_opts).e0
+        if 1 in e_side:
+            mu_p = e_side[1] - gs.e0 + model.mu
+        if -1 in e_side:
+            mu_m = gs.e0 - e_side[-1] + model.mu
+        if mu_p is not None and mu_m is not None:
+            gap = mu_p - mu_m
+    phase, label, pattern, flags = indicator(model, cell, N, obs, gap, th)
+    if len(gs.degenerate) > 1:
+        flags.append("degenerate-momenta " + ",".join(gs.degenerate))
+    lam = obs.get("lambda_max", math.nan)
+    order = {k: obs[k] for k in ("S(K)/N", "sq_max", "q_max", "condensate_fraction", "stiffness") if k in obs}
+    for f, v in obs.get("stiffness_families", {}).items():
+        order[f"stiffness_{f}"] = v
+    if gap is not None:
+        order["gap"] = gap
+    extra = {
+        "cluster": cell.vectors.tolist(), "n_sites": L, "N": N, "E0": gs.e0, "momentum": gs.q.tolist(),
+        "momentum_name": gs.q_name, "degenerate": gs.degenerate, "sector_e0": gs.sector_e0,
+        "sector_dims": gs.dims, "sector_times_s": gs.times, "build_time_s": gs.build_time,
+        "mu_plus": mu_p, "mu_minus": mu_m, "thresholds": asdict(th), "twist_phi": phi,
+    }
+    if "sq" in obs:
+        extra["momenta"], extra["sq"] = obs["momenta"], obs["sq"]
+    if "nk" in obs:
+        extra["nk"] = obs["nk"]
+    comp = None
+    if gap is not None:
+        comp = math.inf if gap <= 0 else 1.0 / (L * gap)
+    return Solution(
+        model=model, method="ed", phase=phase, label=label, filling=N / L,
+        densities=np.full(L, N / L), condensate=np.full(L, math.sqrt(max(lam, 0.0) / L) if lam == lam else math.nan),
+        energy=gs.e0 / L, converged=True, iterations=len(gs.sector_e0), residual=gs.residual,
+        seed=f"Q={gs.q_name}", pattern=pattern, order=order, flags=flags, sites=cell.sites.copy(),
+        compressibility=comp, extra=extra,
+    )

@@ -1,0 +1,201 @@
+r"""Canonical staircase E0(N), mu+-(N), charge gaps and n(mu); parameter scans.
+
+Chemical potentials are canonical differences of the energies *without* the chemical
+potential term, :math:`E_c(N) = E_0(N) + \mu N`:
+:math:`\mu_+(N) = E_c(N+1) - E_c(N)`, :math:`\mu_-(N) = E_c(N) - E_c(N-1)`, the charge gap
+:math:`\Delta(N) = \mu_+(N) - \mu_-(N)`. The cluster's grand-canonical filling at chemical
+potential :math:`\mu` is :math:`N^*(\mu)/L` with :math:`N^* = \arg\min_N [E_c(N) - \mu N]`
+(a staircase; steps at the lower convex hull of :math:`E_c(N)`). Finite clusters always
+have steps; only their size dependence tells plateaus from a compressible phase.
+
+Hard-core particle-hole symmetry (exact): :math:`n_i \to 1 - n_i` maps the hopping onto
+itself and gives :math:`E_0(L-N) = E_0(N) + (L-2N)(W - \mu)`, with
+:math:`W = \sum_f V_f + n_{nnn} V_2` the interaction summed over the bonds of one site
+(each bond once; :math:`n_{nnn}` = number of next-nearest-neighbour families). With
+``particle_hole=True`` only :math:`N \le L/2` is diagonalised.
+
+References
+----------
+.. [1] T. Matsubara and H. Matsuda, Prog. Theor. Phys. 16, 569 (1956) (hard-core bosons as
+   spins 1/2; particle-hole symmetry).
+.. [2] S. Wessel and M. Troyer, Phys. Rev. Lett. 95, 127205 (2005) (triangular-lattice
+   hard-core bosons: 1/3 and 2/3 solids).
+"""
+
+from __future__ import annotations
+
+import json
+import time
+
+import numpy as np
+
+from .. import __version__
+from ..model import ConfigError, Model
+from .clusters import get_cluster
+from .groundstate import check_particles, ground_state
+from .guard import DEFAULT_BUDGET_GIB
+
+__all__ = ["staircase", "filling_from_staircase", "particle_hole_shift", "scan_ed"]
+
+
+def particle_hole_shift(model: Model, L: int, N: int) -> float:
+    """E0(L-N) - E0(N) for hard-core bosons (see module notes)."""
+    from ..lattice import get_lattice
+
+    W = sum(model.V) + len(get_lattice(model.lattice).nnn) * model.V2
+    return (L - 2 * N) * (W - model.mu)
+
+
+def _n_range(n_range, L, n_max):
+    if n_range is None:
+        return list(range(0, n_max * L + 1))
+    if isinstance(n_range, str):
+        try:
+            a, b = (int(x) for x in n_range.split(":"))
+        except ValueError:
+            raise ConfigError(f"particles: range must look like 'a:b' (inclusive), got {n_range!r}") from None
+        n_range = range(a, b + 1)
+    ns = sorted({check_particles(n, L, n_max, "particles") for n in n_range})
+    if not ns:
+        raise ConfigError("particles: empty particle-number range")
+    return ns
+
+
+def staircase(model: Model, cluster="tri12", n_range=None, particle_hole: bool = True,
+              observables=("sq",), budget_gib: float | None = DEFAULT_BUDGET_GIB, tol: float = 1e-10,
+              point_group_reduce: bool = True, lookup: str = "auto", progress=None):
+    """E0(N) and derived canonical quantities over a range of particle numbers.
+
+    Parameters
+    ----------
+    n_range : iterable of int or "a:b", optional
+        Particle numbers (default all, 0..n_max L).
+    particle_hole : bool
+        Hard-core only: obtain E0(L-N) from E0(N) (exact, see module notes); observables of
+        the mapped points are copied (S(Q) of holes equals that of particles for Q != 0).
+    observables : tuple
+        Per-N observables: "sq" (cheap), "condensate", "stiffness" (costly).
+    progress : callable, optional
+        Called as ``progress(N, seconds)`` after each diagonalised N.
+
+    Returns
+    -------
+    xarray.Dataset
+        Dimension ``N`` with coordinate ``filling``; variables ``E0``, ``E0_per_site``,
+        ``E_canonical``, ``mu_plus``, ``mu_minus``, ``gap``, ``q1``, ``q2``, ``q_name``,
+        ``dim`` (ground-state sector), ``time_s``, ``from_particle_hole`` and the requested
+        observables; attrs ``model`` (JSON), ``method`` = "ed", ``version``, ``cluster``,
+        ``n_sites``, ``gap_1_3``, ``gap_2_3``.
+    """
+    import xarray as xr
+
+    from .solve import observables as measure
+
+    cell = get_cluster(cluster, model.lattice)
+    L = cell.n_sites
+    ns = _n_range(n_range, L, model.n_max)
+    use_ph = bool(particle_hole and model.hardcore)
+    rec = {}
+    for N in ns:
+        if use_ph and N > L - N and (L - N) in rec:
+            continue
+        t0 = time.perf_counter()
+        gs = ground_state(model, cell, N, budget_gib=budget_gib, tol=tol,
+                          point_group_reduce=point_group_reduce, lookup=lookup)
+        obs = measure(gs, observables) if observables and N not in (0, model.n_max * L) else {}
+        dt = time.perf_counter() - t0
+        rec[N] = dict(E0=gs.e0, q=gs.q, q_name=gs.q_name, dim=gs.dims.get(gs.q_name, 0), time_s=dt,
+                      ph=False, obs=obs, degenerate=",".join(gs.degenerate))
+        if progress:
+            progress(N, dt)
+    if use_ph:
+        for N in ns:
+            if N not in rec and (L - N) in rec:
+                src = rec[L - N]
+                rec[N] = dict(src, E0=src["E0"] + particle_hole_shift(model, L, L - N), ph=True, time_s=0.0)
+    E0 = np.array([rec[N]["E0"] for N in ns])
+    Ec = E0 + model.mu * np.array(ns)
+    mu_p = np.full(len(ns), np.nan)
+    mu_m = np.full(len(ns), np.nan)
+    for a, N in enumerate(ns):
+        if a + 1 < len(ns) and ns[a + 1] == N + 1:
+            mu_p[a] = Ec[a + 1] - Ec[a]
+        if a > 0 and ns[a - 1] == N - 1:
+            mu_m[a] = Ec[a] - Ec[a - 1]
+    data = {
+        "E0": ("N", E0, {"long_name": "ground-state energy (incl. -mu N)", "units": model.unit}),
+        "E0_per_site": ("N", E0 / L, {"units": model.unit}),
+        "E_canonical": ("N", Ec, {"long_name": "E0 + mu N", "units": model.unit}),
+        "mu_plus": ("N", mu_p, {"long_name": "E_c(N+1) - E_c(N)", "units": model.unit}),
+        "mu_minus": ("N", mu_m, {"long_name": "E_c(N) - E_c(N-1)", "units": model.unit}),
+        "gap": ("N", mu_p - mu_m, {"long_name": "charge gap mu+ - mu-", "units": model.unit}),
+        "q1": ("N", np.array([rec[N]["q"][0] for N in ns])),
+        "q2": ("N", np.array([rec[N]["q"][1] for N in ns])),
+        "q_name": ("N", np.array([rec[N]["q_name"] for N in ns], dtype=object).astype(str)),
+        "degenerate": ("N", np.array([rec[N]["degenerate"] for N in ns], dtype=object).astype(str)),
+        "dim": ("N", np.array([rec[N]["dim"] for N in ns], dtype=np.int64)),
+        "time_s": ("N", np.array([rec[N]["time_s"] for N in ns])),
+        "from_particle_hole": ("N", np.array([rec[N]["ph"] for N in ns])),
+    }
+    for key in ("S(K)/N", "sq_max", "condensate_fraction", "stiffness"):
+        if any(key in rec[N]["obs"] for N in ns):
+            name = {"S(K)/N": "SK_per_site"}.get(key, key)
+            data[name] = ("N", np.array([rec[N]["obs"].get(key, np.nan) for N in ns], float))
+    gaps = {}
+    for p, q in ((1, 3), (2, 3)):
+        n13 = L * p / q
+        gaps[f"gap_{p}_{q}"] = float(data["gap"][1][ns.index(int(n13))]) if n13.is_integer() and int(n13) in ns else np.nan
+    ds = xr.Dataset(data, coords={"N": ns, "filling": ("N", np.array(ns) / L)})
+    ds.attrs.update({
+        "model": json.dumps(model.to_dict()), "method": "ed", "version": __version__,
+        "kind": "canonical staircase", "cluster": json.dumps(cell.vectors.tolist()),
+        "lattice": cell.lattice.name, "n_sites": L, "unit": model.unit,
+        "particle_hole": int(use_ph), **gaps,
+        "conventions": "mu+-(N) from E_c = E0 + mu N; S(K)/N = <|rho_K|^2>; see docs/ed.md",
+    })
+    return ds
+
+
+def filling_from_staircase(ds, mu) -> np.ndarray:
+    """Grand-canonical filling N*(mu)/L of the cluster from a staircase Dataset.
+
+    Only the particle numbers in ``ds`` compete (use the full range for a true staircase).
+    """
+    mu = np.atleast_1d(np.asarray(mu, float))
+    Ec = ds["E_canonical"].values
+    N = ds["N"].values
+    k = np.argmin(Ec[None, :] - mu[:, None] * N[None, :], axis=1)
+    return N[k] / int(ds.attrs["n_sites"])
+
+
+def scan_ed(model: Model, param: str, values, cluster="tri12", particles=None, **options):
+    """Solve ED at each value of one model parameter; returns an xarray Dataset.
+
+    ``param`` is any Model field (``t``, ``V``, ``U``, ``V2``, ``mu``); per-family parameters
+    take a scalar (isotropic) or a tuple per value. Variables: ``energy`` (per site), ``N``,
+    ``SK_per_site``, ``sq_max``, ``condensate_fraction``, ``stiffness``, ``gap``, ``phase``.
+    """
+    import xarray as xr
+
+    from .solve import solve_ed
+
+    fields = set(model.to_dict())
+    if param not in fields or param in ("lattice", "unit", "n_max"):
+        raise ConfigError(f"scan: parameter must be one of t, V, U, V2, mu, got {param!r}")
+    values = list(values)
+    rows = []
+    for v in values:
+        sol = solve_ed(model.replace(**{param: v}), cluster=cluster, particles=particles, **options)
+        rows.append(sol)
+    coord = np.array([np.mean(v) if np.ndim(v) else v for v in values], float)
+    get = lambda k: np.array([s.order.get(k, np.nan) for s in rows], float)  # noqa: E731
+    ds = xr.Dataset({
+        "energy": (param, np.array([s.energy for s in rows]), {"units": model.unit}),
+        "N": (param, np.array([s.extra["N"] for s in rows])),
+        "SK_per_site": (param, get("S(K)/N")), "sq_max": (param, get("sq_max")),
+        "condensate_fraction": (param, get("condensate_fraction")), "stiffness": (param, get("stiffness")),
+        "gap": (param, get("gap")), "phase": (param, np.array([s.phase for s in rows]).astype(str)),
+    }, coords={param: coord})
+    ds.attrs.update({"model": json.dumps(model.to_dict()), "method": "ed", "version": __version__,
+                     "kind": f"ED scan over {param}", "cluster": json.dumps(rows[0].extra["cluster"])})
+    return ds
