@@ -36,8 +36,13 @@ def select_winners(result, thresholds: Thresholds = Thresholds()):
     r = np.arange(P)
     ok = best >= 0
     k = np.where(ok, best, np.argmin(result.residual, axis=1))
+    orbits = None
+    if getattr(result, "method", "mf") == "cmf":  # open cluster: only equivalent sites must agree
+        from .lattice import tile_orbits
+
+        orbits = tile_orbits(result.cell, result.batch.t, result.batch.V)
     cls = lambda kk, okk: classify_arrays(result.batch.base, result.cell, result.n[r, kk],  # noqa: E731
-                                          np.abs(result.phi[r, kk]), okk, thresholds)
+                                          np.abs(result.phi[r, kk]), okk, thresholds, orbits)
     phase, label, pattern = cls(k, ok)
     unstable = np.zeros(P, bool)
     if getattr(result, "method", "mf") == "mf":

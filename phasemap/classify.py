@@ -3,7 +3,7 @@
 Decision table (DESIGN.md §3), with documented thresholds (:class:`Thresholds`):
 
 * ``max |<b>| > condensate_tol``: compressible; *superfluid* if the density contrast
-  ``max n - min n <= contrast_tol``, else *supersolid*.
+  (largest difference between symmetry-equivalent sites) ``<= contrast_tol``, else *supersolid*.
 * otherwise (no condensate): *empty* if n = 0, *full* if n = n_max for hard-core,
   *mott* if uniform with integer n, *solid* if density-modulated. A state with zero
   condensate whose pattern is not one of the named ones keeps its actual pattern
@@ -40,12 +40,18 @@ class Thresholds:
         Distance of the mean density from an integer for a Mott insulator / empty / full.
     max_denominator : int, default 12
         Largest denominator of a solid's filling fraction label.
+    cluster_sublattice_tol : float, default 0.1
+        Cluster mean field only: a named pattern whose sublattice-averaged densities differ by
+        more than this is a density wave even if it respects the cluster's own symmetry
+        (heuristic: edge effects of the open cluster are smaller; see
+        :func:`density_wave_contrast`).
     """
 
     condensate_tol: float = 1e-5
     contrast_tol: float = 1e-5
     integer_tol: float = 1e-6
     max_denominator: int = 12
+    cluster_sublattice_tol: float = 0.1
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -80,9 +86,37 @@ def order_parameters(cell: Supercell, densities, condensate) -> dict:
     return out
 
 
+def density_wave_contrast(cell: Supercell, n, orbits, sublattice_tol: float) -> np.ndarray:
+    """Density-wave measure per state (rows of ``n``), compared with ``contrast_tol``.
+
+    Without ``orbits`` (periodic mean-field cells, all sites equivalent): ``max n - min n``.
+    With ``orbits`` (an open cluster tile): the largest difference between symmetry-equivalent
+    sites; and, because a density wave can respect the tile symmetry (then no equivalent sites
+    differ), also any named pattern whose sublattice averages differ by more than
+    ``sublattice_tol`` — a size criterion: edge effects of an open cluster are smaller.
+    """
+    if orbits is None:
+        return np.ptp(n, axis=1)
+    orbits = np.asarray(orbits)
+    out = np.max([np.ptp(n[:, orbits == o], axis=1) for o in np.unique(orbits)], axis=0)
+    for name, pat in patterns_for(cell.lattice).items():
+        if name == "uniform":
+            continue
+        sub = np.asarray(pat.label(cell.sites[:, 0], cell.sites[:, 1])) % pat.n_sub
+        avg = np.stack([n[:, sub == k].mean(1) for k in range(pat.n_sub) if np.any(sub == k)], axis=1)
+        big = np.ptp(avg, axis=1) > sublattice_tol
+        out = np.where(big, np.maximum(out, np.ptp(avg, axis=1)), out)
+    return out
+
+
 def classify_arrays(model, cell: Supercell, densities, condensate, converged,
-                    thresholds: Thresholds = Thresholds()):
+                    thresholds: Thresholds = Thresholds(), orbits=None):
     """Vectorized classification of P states on ``cell``.
+
+    ``orbits``: symmetry orbits of the sites (see :func:`phasemap.lattice.tile_orbits`); a
+    density wave is a density difference *within* an orbit. Default: all sites equivalent
+    (periodic mean-field cells). Cluster mean field passes the tile's orbits, so the
+    edge-induced density differences of an open cluster are not mistaken for a solid.
 
     Returns ``(phase, label, pattern)``: three object arrays of shape (P,).
     """
@@ -91,7 +125,7 @@ def classify_arrays(model, cell: Supercell, densities, condensate, converged,
     phi = np.atleast_2d(np.asarray(condensate, float))
     conv = np.broadcast_to(np.asarray(converged, bool), n.shape[:1])
     nbar = n.mean(1)
-    contrast = np.ptp(n, axis=1)
+    contrast = density_wave_contrast(cell, n, orbits, th.cluster_sublattice_tol)
     cond = phi.max(1) > th.condensate_tol
     modulated = contrast > th.contrast_tol
     # simplest named pattern with constant density on each sublattice
@@ -134,18 +168,19 @@ def classify_arrays(model, cell: Supercell, densities, condensate, converged,
             else:
                 phase[p], label[p] = "mott", f"mott n={k}"
         elif not modulated[p]:
-            # uniform, no condensate, non-integer filling: only at degenerate points (t = 0 edges)
-            phase[p], label[p] = "solid", f"solid {filling_label(nbar[p], th.max_denominator)} (degenerate)"
+            # no condensate, no density wave, non-integer filling: a degenerate point (t = 0 edge)
+            # or a cluster's resonating number eigenstate (DESIGN.md §6) — labelled as what it is
+            phase[p], label[p] = "solid", f"solid {filling_label(nbar[p], th.max_denominator)} (no named pattern)"
         else:
             phase[p], label[p] = "solid", f"solid {filling_label(nbar[p], th.max_denominator)}{pname}"
     return phase, label, pattern
 
 
 def classify(model, cell: Supercell, densities, condensate, converged: bool = True,
-             thresholds: Thresholds = Thresholds()) -> tuple[str, str, str]:
+             thresholds: Thresholds = Thresholds(), orbits=None) -> tuple[str, str, str]:
     """Return ``(phase, label, pattern)`` for one state on ``cell``."""
     ph, lab, pat = classify_arrays(model, cell, np.asarray(densities)[None], np.asarray(condensate)[None],
-                                   np.array([converged]), thresholds)
+                                   np.array([converged]), thresholds, orbits)
     return ph[0], lab[0], pat[0]
 
 

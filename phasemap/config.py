@@ -57,7 +57,8 @@ _SOLVER_RANGES = {
     "continuation": ("bool",), "patterns": ("strings",),
 }
 _THRESHOLD_RANGES = {"condensate_tol": ("float", 0.0, 1.0, True), "contrast_tol": ("float", 0.0, 1.0, True),
-                     "integer_tol": ("float", 0.0, 0.5, True), "max_denominator": ("int", 1, 1000, False)}
+                     "integer_tol": ("float", 0.0, 0.5, True), "max_denominator": ("int", 1, 1000, False),
+                     "cluster_sublattice_tol": ("float", 0.0, 1.0, True)}
 
 
 @dataclass

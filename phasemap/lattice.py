@@ -26,6 +26,7 @@ __all__ = [
     "PATTERNS",
     "patterns_for",
     "search_cell",
+    "tile_orbits",
 ]
 
 
@@ -295,3 +296,66 @@ def search_cell(lattice) -> Supercell:
     """Smallest supercell commensurate with all named patterns (12 sites triangular, 4 square)."""
     lat = get_lattice(lattice)
     return Supercell(lat, _SEARCH_CELLS[lat.name])
+
+
+# -- point-group symmetry of a cluster tile ---------------------------------------------------
+def _point_group(lat: Lattice) -> list[np.ndarray]:
+    """Integer matrices (acting on (i, j) row vectors) of the lattice's point group."""
+    if lat.name == "triangular":
+        rot = np.array([[0, 1], [-1, 1]])  # (i, j) -> (-j, i + j): rotation by 60 degrees
+    else:
+        rot = np.array([[0, 1], [-1, 0]])  # (i, j) -> (-j, i): rotation by 90 degrees
+    mirror = np.array([[0, 1], [1, 0]])  # (i, j) -> (j, i)
+    ops, R = [], np.eye(2, dtype=np.int64)
+    for _ in range(6 if lat.name == "triangular" else 4):
+        ops += [R.copy(), R @ mirror]
+        R = R @ rot
+    return ops
+
+
+def tile_orbits(cell: Supercell, t, V) -> np.ndarray:
+    """Orbit index of every site of ``cell`` seen as a cluster tile (cluster mean field).
+
+    The symmetry operations are lattice point-group elements followed by a translation that
+    map the tile's own site set onto itself, map the superlattice onto itself (so the tiling,
+    hence every decoupled bond, is preserved) and only exchange bond families with equal
+    couplings (``t``, ``V``: arrays (P, F) or (F,); families must agree at every point).
+    Sites in one orbit are equivalent in the cluster problem, so only density differences
+    *within* an orbit signal a density wave; differences between orbits can be edge effects
+    of the open cluster.
+    """
+    lat = cell.lattice
+    t, V = np.atleast_2d(t), np.atleast_2d(V)
+    nn = np.array(lat.nn)
+    sites = [tuple(s) for s in cell.sites]
+    site_set = set(sites)
+    parent = list(range(cell.n_sites))
+
+    def find(a):
+        while parent[a] != a:
+            parent[a] = parent[parent[a]]
+            a = parent[a]
+        return a
+
+    for R in _point_group(lat):
+        # bond families must map onto families with identical couplings
+        img = nn @ R
+        perm = []
+        for d in img:
+            f2 = [f for f, e in enumerate(nn) if np.array_equal(d, e) or np.array_equal(d, -e)]
+            perm.append(f2[0] if f2 else -1)
+        if -1 in perm or any(not (np.array_equal(t[:, f], t[:, g]) and np.array_equal(V[:, f], V[:, g]))
+                             for f, g in enumerate(perm)):
+            continue
+        if np.any(cell._keys(cell.vectors @ R) != 0):
+            continue  # the superlattice is not mapped onto itself
+        rot = cell.sites @ R
+        for c in {tuple(sites[0] - r) for r in rot}:
+            moved = [tuple(r + c) for r in rot]
+            if set(moved) == site_set:
+                for a, m in enumerate(moved):
+                    b = sites.index(m)
+                    parent[find(a)] = find(b)
+    roots = [find(a) for a in range(cell.n_sites)]
+    _, orbit = np.unique(roots, return_inverse=True)
+    return orbit

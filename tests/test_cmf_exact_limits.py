@@ -94,11 +94,14 @@ def test_resonating_zero_condensate_state_is_classified_by_what_it_is():
         assert res.energy[0, k] <= res.energy[0][res.converged[0]].min() + 1e-9
 
 
-@pytest.mark.xfail(strict=True, reason="classify.py judges density waves by max-min contrast; an open "
-                   "cluster's superfluid has edge-induced density differences and is labelled "
-                   "'supersolid (other)' — needs a cluster-aware contrast in classify (reported)")
 def test_cmf_superfluid_with_edge_inhomogeneity_is_superfluid():
     from phasemap import solve
 
+    # V = 0 hard-core bosons with t > 0 are uniform superfluids (exact: no density-wave term); the
+    # open tri6 cluster has edge-induced density differences between inequivalent sites, which the
+    # tile-orbit contrast (phasemap.lattice.tile_orbits) must not mistake for a supersolid.
     sol = solve(Model("triangular", t=0.3, V=0.0, mu=0.5), method="cmf", cluster="tri6")
     assert sol.phase == "superfluid"
+    # while a genuine √3×√3 solid (t = 0 limit, plateau 0 < mu/V < 3: exact classical) is still found
+    sol = solve(Model("triangular", t=0.01, V=1.0, mu=1.5), method="cmf", cluster="tri6")
+    assert sol.phase == "solid" and sol.label == "solid 1/3"

@@ -119,6 +119,7 @@ class CMFBatchResult(MFBatchResult):
 
     cluster: Cluster | None = None
     seconds: float = 0.0
+    method: str = "cmf"
 
 
 def cluster_seeds(model, cluster: Cluster, n_random: int = 1, rng=0, patterns=None) -> list[Seed]:
