@@ -14,7 +14,8 @@ Conventions (L sites, N bosons, translation-invariant ground state :math:`|\psi\
 * superfluid stiffness along bond family f: with a uniform vector potential
   :math:`A = \phi\,\hat e_f` (:math:`\hat e_f` the unit vector of the bond, phase
   :math:`e^{iA\cdot D}` per hop by D), :math:`\rho_f = \frac1L\,\partial^2E_0/\partial\phi^2`,
-  evaluated by the central difference :math:`[E_0(\phi)+E_0(-\phi)-2E_0(0)]/(L\phi^2)` inside
+  evaluated by central differences :math:`[E_0(h)+E_0(-h)-2E_0(0)]/(Lh^2)` at
+  :math:`h = \phi, 2\phi` combined by Richardson extrapolation (error :math:`O(\phi^4)`) inside
   the ground-state momentum sector (the symmetric difference removes a possible linear term
   from a current-carrying degenerate level). Free bosons at k = 0 give
   :math:`\rho_f = \frac2L\sum_g t_g(\hat e_f\cdot D_g)^2` per boson, i.e.
@@ -98,7 +99,10 @@ def stiffness(sector: Sector, q, e0: float, vec, phi: float = 1e-2, tol: float =
     out = {}
     for f, name in enumerate(lat.families):
         e = D[f] / np.linalg.norm(D[f])
-        ep = sector.solve(q, A=phi * e, v0=vec, tol=tol).e0
-        em = sector.solve(q, A=-phi * e, v0=vec, tol=tol).e0
-        out[name] = float((ep + em - 2 * e0) / (sector.L * phi**2))
+        curv = []
+        for h in (phi, 2 * phi):
+            ep = sector.solve(q, A=h * e, v0=vec, tol=tol).e0
+            em = sector.solve(q, A=-h * e, v0=vec, tol=tol).e0
+            curv.append((ep + em - 2 * e0) / (sector.L * h**2))
+        out[name] = float((4 * curv[0] - curv[1]) / 3)  # Richardson: error O(phi^4)
     return out

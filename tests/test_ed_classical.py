@@ -1,0 +1,61 @@
+"""t = 0: the exact ground state is the classical lattice-gas minimum."""
+
+import itertools
+
+import numpy as np
+import pytest
+from _ed_dense import bonds
+
+from phasemap import Model
+from phasemap.ed import get_cluster, ground_state, solve_ed
+
+
+def classical_minima(lattice, vectors, V, V2, mu, L):
+    """Brute-force min over all 2^L occupations of sum_b V_b n n + V2 sum_nnn n n - mu N."""
+    conf = np.array(list(itertools.product((0, 1), repeat=L)), dtype=np.int8)
+    E = -mu * conf.sum(1).astype(float)
+    for f, a, b in bonds(lattice, vectors):
+        E += V[f] * conf[:, a] * conf[:, b]
+    if V2:
+        for _, a, b in bonds(lattice, vectors, "nnn"):
+            E += V2 * conf[:, a] * conf[:, b]
+    N = conf.sum(1)
+    return {n: E[N == n].min() for n in range(L + 1)}
+
+
+def test_t0_equals_classical_minimum_anisotropic_12_sites():
+    # exact: with t = 0 the Hamiltonian is diagonal in occupations
+    vec = ((2, 2), (-2, 4))
+    V, mu = (1.0, 0.7, 1.3), 0.2
+    m = Model("triangular", t=0, V=V, mu=mu)
+    ref = classical_minima("triangular", vec, V, 0.0, mu, 12)
+    for N in range(13):
+        assert abs(ground_state(m, vec, N).e0 - ref[N]) < 1e-12, N
+
+
+def test_t0_equals_classical_minimum_with_V2_21_sites():
+    vec = ((4, 1), (-1, 5))
+    V, V2 = (1.0, 1.0, 1.0), 0.35
+    m = Model("triangular", t=0, V=V, V2=V2)
+    ref = classical_minima("triangular", vec, V, V2, 0.0, 21)
+    for N in (7, 10):
+        assert abs(ground_state(m, vec, N).e0 - ref[N]) < 1e-12, N
+
+
+def test_t0_solid_structure_factor_and_zero_stiffness():
+    # perfect sqrt3 x sqrt3 solid at 1/3: |rho_K|^2 = (1/3)^2 = 1/9 exactly; no hopping -> the
+    # twisted-boundary energy does not depend on the twist: stiffness exactly zero
+    sol = solve_ed(Model("triangular", t=0, V=1), cluster="tri12", particles=4)
+    assert abs(sol.order["S(K)/N"] - 1 / 9) < 1e-12
+    for f in ("d1", "d2", "d3"):
+        assert abs(sol.order[f"stiffness_{f}"]) < 1e-12
+    assert sol.phase == "solid" and sol.pattern == "sqrt3"
+    # charge gap of the classical 1/3 plateau on the cluster: mu+ - mu- = 3V - 0 (DESIGN.md §4)
+    assert abs(sol.order["gap"] - 3.0) < 1e-12
+
+
+def test_small_t_solid_stiffness_tiny_compared_with_superfluid():
+    solid = solve_ed(Model("triangular", t=0.05, V=1), cluster="tri12", particles=4, neighbors=False)
+    sf = solve_ed(Model("triangular", t=0.05, V=0), cluster="tri12", particles=4, neighbors=False)
+    assert sf.order["stiffness"] > 0
+    assert solid.order["stiffness"] < 0.05 * sf.order["stiffness"]
