@@ -82,101 +82,129 @@ def _map(x, g, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, S, H):
         g[S + s] = ph
 
 
+@njit(cache=True)
+def _one_row(r, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
+             out, iters, resid, conv):
+    """Iterate row ``r`` of ``x0`` to self-consistency, writing into out/iters/resid/conv."""
+    D = x0.shape[1]
+    S = D // 2
+    mm = max(m, 1)
+    x = x0[r].copy()
+    g = np.empty(D)
+    f = np.empty(D)
+    px = np.zeros(D)
+    pf = np.zeros(D)
+    hx = np.zeros((mm, D))
+    hf = np.zeros((mm, D))
+    A = np.zeros((mm, mm))
+    G = np.zeros((mm, mm))
+    H = np.zeros((nmax + 1, nmax + 1))
+    bb = np.zeros(mm)
+    best = np.inf
+    last = 0
+    it = 0
+    res = np.inf
+    while it < max_iter:
+        it += 1
+        _map(x, g, t[r], V[r], V2[r], mu[r], U[r], nmax, plus, minus, nplus, nminus, S, H)
+        res = 0.0
+        for d in range(D):
+            f[d] = g[d] - x[d]
+            if abs(f[d]) > res:
+                res = abs(f[d])
+        if res < tol:
+            out[r] = g
+            conv[r] = True
+            break
+        if res < 0.999 * best:
+            best = res
+            last = it
+        insulating = True  # a seed with no condensate anywhere can only flip occupations
+        for d in range(S, D):
+            if x[d] != 0.0 or g[d] != 0.0:
+                insulating = False
+                break
+        if it - last > (3 if insulating else patience):
+            out[r] = x
+            break
+        k = min(it - 1, m)
+        if k > 0:
+            slot = (it - 2) % m
+            for d in range(D):
+                hx[slot, d] = x[d] - px[d]
+                hf[slot, d] = f[d] - pf[d]
+            for a in range(k):  # Gram matrix: only the new slot's row/column changes
+                s3 = 0.0
+                for d in range(D):
+                    s3 += hf[a, d] * hf[slot, d]
+                G[a, slot] = s3
+                G[slot, a] = s3
+            tr = 0.0
+            for a in range(k):
+                s2 = 0.0
+                for d in range(D):
+                    s2 += hf[a, d] * f[d]
+                bb[a] = s2
+                tr += G[a, a]
+            reg = 1e-10 * max(tr, 1e-30)
+            for a in range(k):
+                for c in range(k):
+                    A[a, c] = G[a, c]
+                A[a, a] += reg
+            ok = _solve_small(A, bb, k)
+        else:
+            ok = False
+        for d in range(D):
+            px[d] = x[d]
+            pf[d] = f[d]
+            step = x[d] + mixing * f[d]
+            if ok:
+                for a in range(k):
+                    step -= bb[a] * (hx[a, d] + mixing * hf[a, d])
+            if not np.isfinite(step):
+                step = x[d] + mixing * f[d]
+            if d < S:
+                step = min(max(step, 0.0), float(nmax))
+            elif step < 0.0:  # halve instead of clipping: phi = 0 would be a trap
+                step = 0.5 * x[d]
+            x[d] = step
+    else:
+        out[r] = x
+    iters[r] = it
+    resid[r] = res
+
+
+@njit(cache=True)
+def _rows_serial(t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
+                 out, iters, resid, conv):
+    for r in range(x0.shape[0]):
+        _one_row(r, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
+                 out, iters, resid, conv)
+
+
 @njit(parallel=True, cache=True)
+def _rows_parallel(t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
+                   out, iters, resid, conv):
+    for r in prange(x0.shape[0]):
+        _one_row(r, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
+                 out, iters, resid, conv)
+
+
+#: below this many rows the threads' start-up costs more than they save
+PARALLEL_MIN_ROWS = 20000
+
+
 def iterate_rows(t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience):
     """Iterate every row of ``x0`` (rows, 2S: densities then condensates) to self-consistency.
 
-    Returns (x, iterations, residual, converged).
+    Returns (x, iterations, residual, converged). Large batches run on all cores.
     """
-    rows, D = x0.shape
-    S = D // 2
+    rows = x0.shape[0]
     out = x0.copy()
     iters = np.zeros(rows, np.int64)
     resid = np.full(rows, np.inf)
     conv = np.zeros(rows, np.bool_)
-    mm = max(m, 1)
-    for r in prange(rows):
-        x = x0[r].copy()
-        g = np.empty(D)
-        f = np.empty(D)
-        px = np.zeros(D)
-        pf = np.zeros(D)
-        hx = np.zeros((mm, D))
-        hf = np.zeros((mm, D))
-        A = np.zeros((mm, mm))
-        G = np.zeros((mm, mm))
-        H = np.zeros((nmax + 1, nmax + 1))
-        bb = np.zeros(mm)
-        best = np.inf
-        last = 0
-        it = 0
-        res = np.inf
-        while it < max_iter:
-            it += 1
-            _map(x, g, t[r], V[r], V2[r], mu[r], U[r], nmax, plus, minus, nplus, nminus, S, H)
-            res = 0.0
-            for d in range(D):
-                f[d] = g[d] - x[d]
-                if abs(f[d]) > res:
-                    res = abs(f[d])
-            if res < tol:
-                out[r] = g
-                conv[r] = True
-                break
-            if res < 0.999 * best:
-                best = res
-                last = it
-            insulating = True  # a seed with no condensate anywhere can only flip occupations
-            for d in range(S, D):
-                if x[d] != 0.0 or g[d] != 0.0:
-                    insulating = False
-                    break
-            if it - last > (3 if insulating else patience):
-                out[r] = x
-                break
-            k = min(it - 1, m)
-            if k > 0:
-                slot = (it - 2) % m
-                for d in range(D):
-                    hx[slot, d] = x[d] - px[d]
-                    hf[slot, d] = f[d] - pf[d]
-                for a in range(k):  # Gram matrix: only the new slot's row/column changes
-                    s3 = 0.0
-                    for d in range(D):
-                        s3 += hf[a, d] * hf[slot, d]
-                    G[a, slot] = s3
-                    G[slot, a] = s3
-                tr = 0.0
-                for a in range(k):
-                    s2 = 0.0
-                    for d in range(D):
-                        s2 += hf[a, d] * f[d]
-                    bb[a] = s2
-                    tr += G[a, a]
-                reg = 1e-10 * max(tr, 1e-30)
-                for a in range(k):
-                    for c in range(k):
-                        A[a, c] = G[a, c]
-                    A[a, a] += reg
-                ok = _solve_small(A, bb, k)
-            else:
-                ok = False
-            for d in range(D):
-                px[d] = x[d]
-                pf[d] = f[d]
-                step = x[d] + mixing * f[d]
-                if ok:
-                    for a in range(k):
-                        step -= bb[a] * (hx[a, d] + mixing * hf[a, d])
-                if not np.isfinite(step):
-                    step = x[d] + mixing * f[d]
-                if d < S:
-                    step = min(max(step, 0.0), float(nmax))
-                elif step < 0.0:  # halve instead of clipping: phi = 0 would be a trap
-                    step = 0.5 * x[d]
-                x[d] = step
-        else:
-            out[r] = x
-        iters[r] = it
-        resid[r] = res
+    run = _rows_parallel if rows >= PARALLEL_MIN_ROWS else _rows_serial
+    run(t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
+        out, iters, resid, conv)
     return out, iters, resid, conv
