@@ -118,3 +118,18 @@ def test_bad_input_is_refused_clearly():
         ground_state(m, "tri13", 1)
     with pytest.raises(ConfigError, match="lattice"):
         ground_state(m, "sq16", 1)
+
+
+@pytest.mark.parametrize("model,N", [
+    (Model("triangular", t=(0.3, 0.1, 0.2), V=(1.0, 0.5, 1.5)), 5),
+    (Model("triangular", t=0.05, V=1.0), 4),
+    (Model("triangular", t=(0.2, 0.4, 0.1), V=0.3, U=1.5, n_max=2), 7),
+])
+def test_perron_frobenius_gamma_holds_the_ground_state(model, N):
+    # Perron-Frobenius (t >= 0: off-diagonal elements <= 0): a ground state lies at Q = 0,
+    # so the default Gamma-only E0 equals the minimum over every momentum sector
+    full = ground_state(model, "tri12", N, momenta=range(12))  # every momentum, no reduction
+    gamma = ground_state(model, "tri12", N)
+    assert len(full.sector_e0) == 12 and list(gamma.sector_e0) == ["Gamma"]
+    assert abs(full.e0 - gamma.e0) < 1e-10
+    assert "Gamma" in full.degenerate

@@ -44,6 +44,8 @@ def register(sub) -> None:
                    help="memory budget per sector in GiB; bigger sectors are refused (default 8)")
     p.add_argument("--observables", default="sq", help="per-N observables in a staircase: comma list of "
                    "sq,condensate,stiffness (default sq)")
+    p.add_argument("--all-momenta", action="store_true", help="diagonalise every momentum class (lists "
+                   "ground-state momenta/degeneracies; default: Q=0 only, exact for t>=0 by Perron-Frobenius)")
     p.add_argument("--no-particle-hole", action="store_true", help="diagonalise every N (no hard-core mapping)")
     p.add_argument("--no-figure", action="store_true", help="do not draw the staircase figure")
     p.add_argument("--mf-methods", default="mf", help="filling curves to overlay: comma list of mf,cmf "
@@ -96,7 +98,7 @@ def run(args) -> int:
     out = Path(args.out) if args.out else None
     if N is not None:
         t0 = time.perf_counter()
-        sol = solve_ed(model, cluster=cluster, particles=N, budget_gib=args.budget_gib)
+        sol = solve_ed(model, cluster=cluster, particles=N, budget_gib=args.budget_gib, all_momenta=args.all_momenta)
         d = sol.to_dict()
         d["wall_time_s"] = time.perf_counter() - t0
         if out:
@@ -109,7 +111,7 @@ def run(args) -> int:
     t0 = time.perf_counter()
     log = (lambda n, dt: None) if args.json else (lambda n, dt: print(f"  N={n:3d} solved in {dt:7.2f} s", flush=True))
     ds = staircase(model, cluster, n_range=rng, particle_hole=not args.no_particle_hole, observables=obs,
-                   budget_gib=args.budget_gib, progress=log)
+                   budget_gib=args.budget_gib, all_momenta=args.all_momenta, progress=log)
     wall = time.perf_counter() - t0
     files, notes = [], []
     if out:

@@ -79,7 +79,7 @@ def n_hop_dirs(model: Model) -> int:
 
 def ground_state(model: Model, cluster, N: int, *, symmetric: bool = True, point_group_reduce: bool = True,
                  budget_gib: float | None = DEFAULT_BUDGET_GIB, tol: float = 1e-10, lookup: str = "auto",
-                 momenta=None) -> GroundState:
+                 momenta=None, all_momenta: bool = False) -> GroundState:
     """Exact ground state with N bosons on a periodic cluster.
 
     Parameters
@@ -98,6 +98,17 @@ def ground_state(model: Model, cluster, N: int, *, symmetric: bool = True, point
         Lanczos (ARPACK) relative residual tolerance; energies are accurate to ~tol^2.
     momenta : list of int, optional
         Restrict to these momentum indices (``cell.momenta``); then no class reduction.
+    all_momenta : bool, default False
+        Diagonalise every momentum class. By default only Q = 0 is diagonalised: with
+        t >= 0 every off-diagonal element is <= 0 in the occupation basis, so by the
+        Perron-Frobenius theorem a ground state with non-negative amplitudes exists; its
+        translation average is a Q = 0 ground state. E0(N) is therefore exact either way;
+        ``all_momenta`` additionally lists degenerate momenta and every sector energy.
+
+    Notes
+    -----
+    The Perron-Frobenius argument needs t >= 0 (enforced by :class:`phasemap.Model`) and no
+    twist; ``all_momenta`` is the check (tests/test_ed_symmetry.py).
 
     Raises
     ------
@@ -118,6 +129,9 @@ def ground_state(model: Model, cluster, N: int, *, symmetric: bool = True, point
         qs = cell.momenta
         if momenta is not None:
             classes = [[int(k)] for k in momenta]
+        elif not all_momenta and min(model.t) >= 0:
+            gamma = int(np.argmin(np.abs(np.mod(qs + 0.5, 1) - 0.5).sum(1)))
+            classes = [[gamma]]
         else:
             classes = momentum_classes(cell, point_group(cell, model) if point_group_reduce else [])
     best, sector_e0, dims, times = None, {}, {}, {}

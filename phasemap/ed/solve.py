@@ -124,7 +124,7 @@ def indicator(model: Model, cell, N: int, obs: dict, gap: float | None, th: EDTh
 
 
 _OPTIONS = {"symmetric", "point_group_reduce", "budget_gib", "tol", "lookup", "observables", "phi",
-            "neighbors", "thresholds"}
+            "neighbors", "thresholds", "all_momenta"}
 
 
 def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Solution:
@@ -138,8 +138,9 @@ def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Soluti
     particles : int, optional
         Number of bosons N. Default: the grand-canonical ground state of the cluster at
         ``model.mu`` (the N minimising E0(N); this diagonalises every N).
-    symmetric, point_group_reduce, budget_gib, tol, lookup
-        See :func:`phasemap.ed.groundstate.ground_state`.
+    symmetric, point_group_reduce, budget_gib, tol, lookup, all_momenta
+        See :func:`phasemap.ed.groundstate.ground_state` (``all_momenta=True`` lists every
+        momentum sector's energy and the degenerate ground-state momenta).
     observables : tuple, default ("sq", "condensate", "stiffness")
     phi : float, default 1e-2
         Twist used for the stiffness (finite difference).
@@ -176,7 +177,7 @@ def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Soluti
     if particles is None:
         from .staircase import staircase
 
-        ds = staircase(model, cluster, **{k: v for k, v in gs_opts.items() if k != "symmetric"})
+        ds = staircase(model, cluster, observables=(), **{k: v for k, v in gs_opts.items() if k != "symmetric"})
         particles = int(ds["N"].values[int(np.nanargmin(ds["E0"].values))])
     gs = ground_state(model, cluster, particles, **gs_opts)
     cell, N, L = gs.cell, gs.N, gs.L
@@ -186,7 +187,8 @@ def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Soluti
     if neighbors:
         for dn in (-1, 1):
             if 0 <= N + dn <= model.n_max * L:
-                e_side[dn] = ground_state(model, cell, N + dn, **gs_opts).e0
+                side = {k: v for k, v in gs_opts.items() if k != "all_momenta"}
+                e_side[dn] = ground_state(model, cell, N + dn, **side).e0
         if 1 in e_side:
             mu_p = e_side[1] - gs.e0 + model.mu
         if -1 in e_side:

@@ -63,7 +63,7 @@ def _n_range(n_range, L, n_max):
 
 def staircase(model: Model, cluster="tri12", n_range=None, particle_hole: bool = True,
               observables=("sq",), budget_gib: float | None = DEFAULT_BUDGET_GIB, tol: float = 1e-10,
-              point_group_reduce: bool = True, lookup: str = "auto", progress=None):
+              point_group_reduce: bool = True, lookup: str = "auto", all_momenta: bool = False, progress=None):
     """E0(N) and derived canonical quantities over a range of particle numbers.
 
     Parameters
@@ -75,6 +75,10 @@ def staircase(model: Model, cluster="tri12", n_range=None, particle_hole: bool =
         the mapped points are copied (S(Q) of holes equals that of particles for Q != 0).
     observables : tuple
         Per-N observables: "sq" (cheap), "condensate", "stiffness" (costly).
+    all_momenta : bool
+        Diagonalise every momentum class (ground-state momenta and degeneracies); by default
+        only Q = 0, which holds a ground state for t >= 0 (Perron-Frobenius, see
+        :func:`phasemap.ed.groundstate.ground_state`).
     progress : callable, optional
         Called as ``progress(N, seconds)`` after each diagonalised N.
 
@@ -101,7 +105,7 @@ def staircase(model: Model, cluster="tri12", n_range=None, particle_hole: bool =
             continue
         t0 = time.perf_counter()
         gs = ground_state(model, cell, N, budget_gib=budget_gib, tol=tol,
-                          point_group_reduce=point_group_reduce, lookup=lookup)
+                          point_group_reduce=point_group_reduce, lookup=lookup, all_momenta=all_momenta)
         obs = measure(gs, observables) if observables and N not in (0, model.n_max * L) else {}
         dt = time.perf_counter() - t0
         rec[N] = dict(E0=gs.e0, q=gs.q, q_name=gs.q_name, dim=gs.dims.get(gs.q_name, 0), time_s=dt,
