@@ -123,10 +123,10 @@ class CellOps:
 
 
 # -- local problems -----------------------------------------------------------------------
-def _local_hardcore(Phi, eps):
+def _local_hardcore(Phi, eps, n_in):
     r = np.sqrt(eps * eps + 4.0 * Phi * Phi)
     safe = np.where(r > 0, r, 1.0)
-    n = np.where(r > 0, 0.5 * (1.0 - eps / safe), 0.5)
+    n = np.where(r > 0, 0.5 * (1.0 - eps / safe), n_in)  # zero field: keep the occupation
     phi = np.where(r > 0, Phi / safe, 0.0)
     return n, phi, np.zeros_like(n), np.zeros_like(n)
 
@@ -209,7 +209,7 @@ def _iterate(ops: CellOps, batch: ParamBatch, n0, phi0, opt: MFOptions):
     def G(xa, sel):
         Phi, eps = ops.fields(t[sel], V[sel], V2[sel], mu[sel], xa[:, :S], xa[:, S:])
         if hard:
-            n, ph, nn1, top = _local_hardcore(Phi, eps)
+            n, ph, nn1, top = _local_hardcore(Phi, eps, xa[:, :S])
         else:
             n, ph, nn1, top = _local_softcore(Phi, eps, U[sel][:, None], batch.n_max)
         return np.concatenate([n, ph], axis=1), nn1, top

@@ -60,8 +60,8 @@ def _map(x, g, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, S, H):
             if r > 0.0:
                 g[s] = 0.5 * (1.0 - eps / r)
                 g[S + s] = Phi / r
-            else:
-                g[s] = 0.5
+            else:  # zero field (t = 0 at a degenerate point): keep the occupation
+                g[s] = x[s]
                 g[S + s] = 0.0
             continue
         for a in range(d):
