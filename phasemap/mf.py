@@ -50,7 +50,7 @@ class MFOptions:
         Linear mixing x <- x + mixing (G(x) - x) between Anderson steps.
     anderson : int, default 5
         Anderson (type II) acceleration memory; 0 disables.
-    n_random : int, default 2
+    n_random : int, default 1
         Random seeds on the search cell.
     rng : int, default 0
         Seed of the random seeds (results are reproducible).
@@ -68,7 +68,7 @@ class MFOptions:
     max_iter: int = 3000
     mixing: float = 0.6
     anderson: int = 5
-    n_random: int = 2
+    n_random: int = 1
     rng: int = 0
     weight_warn: float = 1e-3
     patience: int = 25
