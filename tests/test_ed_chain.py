@@ -22,7 +22,7 @@ def heis_from_boson(e_boson, L):
     return e_boson / (2 * T) - L / 4
 
 
-@pytest.mark.parametrize("L", [4, 6, 8, 10])
+@pytest.mark.parametrize("L", [4, 6, 8, pytest.param(10, marks=pytest.mark.slow)])
 def test_heisenberg_ring_small_L_against_dense_kron(L):
     # independent dense diagonalisation of sum S_i.S_{i+1} built with numpy Kronecker products
     e_dense = np.linalg.eigvalsh(heisenberg_ring(L))[0]

@@ -8,7 +8,6 @@ References
 
 from __future__ import annotations
 
-import time
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -120,7 +119,6 @@ def ground_state(model: Model, cluster, N: int, *, symmetric: bool = True, point
     N = check_particles(N, cell.n_sites, model.n_max)
     est = estimate(cell.n_sites, N, model.n_max, n_hop_dirs(model), cell.n_sites if symmetric else 1)
     check_budget(est, budget_gib, what=f"ED sector N={N} on {cell!r}")
-    t0 = time.perf_counter()
     sec = Sector(cell, model, N, symmetric=symmetric, lookup=lookup)
     if not symmetric:
         classes = [[0]]
@@ -140,7 +138,6 @@ def ground_state(model: Model, cluster, N: int, *, symmetric: bool = True, point
         r = sec.solve(qs[k], tol=tol, q_index=k)
         name = cell.momentum_name(qs[k]) if symmetric else "all"
         sector_e0[name], dims[name], times[name] = r.e0, r.dim, r.time
-        r.members = cls
         if r.dim and (best is None or r.e0 < best.e0 - DEGENERACY_TOL * max(1.0, abs(r.e0))):
             best = r
     scale = DEGENERACY_TOL * max(1.0, abs(best.e0))

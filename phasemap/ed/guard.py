@@ -75,10 +75,11 @@ def estimate(L: int, N: int, n_max: int, n_hop_dirs: int, n_group: int | None = 
     -----
     Hops per representative = ``n_hop_dirs * L * p`` with ``p`` the probability that the
     source is occupied and the target not full; for hard-core ``p = N (L-N) / (L (L-1))``,
-    for soft-core a uniform-density estimate. Bytes: lookup table (13 per Fock state),
-    hopping table (18 per entry), one complex sparse matrix with its assembly temporaries
-    (~44 per entry), Lanczos vectors (``2 ncv + 8`` real vectors of twice the sector
-    dimension) and the representative data (~(L + 40) bytes per state).
+    for soft-core a uniform-density estimate. Bytes: hopping table (22 per entry), one
+    complex sparse matrix with its assembly temporaries (~60 per entry), Lanczos vectors (``2 ncv + 8`` real vectors of twice the sector
+    dimension) and the representative data (~(L + 40) bytes per state). The lookup table
+    is the one :class:`phasemap.ed.sector.Sector` picks: 6 bytes per integer code
+    (``sps**L``) when that is small, else ~40 bytes per Fock state.
     """
     G = n_group or L
     fock = fock_dimension(L, N, n_max)
@@ -89,8 +90,9 @@ def estimate(L: int, N: int, n_max: int, n_hop_dirs: int, n_group: int | None = 
         nbar = N / L
         p = min(1.0, nbar) * (1.0 - (nbar / (1 + nbar)) ** n_max)
     hops = int(sector * n_hop_dirs * L * p)
-    b = (13 * fock if table else 0) + 18 * hops + 44 * hops + 8 * 2 * sector * (2 * ncv + 8) \
-        + (L + 40) * sector
+    direct = 6.0 * float(n_max + 1) ** L
+    tab = (direct if direct < min(4 * 2**30, 40 * fock + 2**28) else 40.0 * fock) if table else 0.0
+    b = tab + 22 * hops + 60 * hops + 8 * 2 * sector * (2 * ncv + 8) + (L + 40) * sector
     return Estimate(L, N, n_max, fock, sector, hops, float(b))
 
 

@@ -1,0 +1,36 @@
+"""`phasemap exact`: one command gives the staircase, S(K), data files and the figure."""
+
+import json
+
+from phasemap.cli import main
+
+
+def test_exact_single_sector_json(capsys):
+    rc = main(["exact", "--t", "0.1", "--V", "1", "--hardcore", "--cluster", "tri9", "--particles", "3", "--json"])
+    assert rc == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["method"] == "ed" and abs(d["filling"] - 1 / 3) < 1e-12
+    assert d["extra"]["N"] == 3 and "S(K)/N" in d["order"]
+
+
+def test_exact_staircase_writes_data_and_figure(tmp_path, capsys):
+    out = tmp_path / "ed"
+    rc = main(["exact", "--t", "0.1", "--V", "1", "--cluster", "tri9", "--out", str(out), "--json"])
+    assert rc == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["N"] == list(range(10)) and d["gap_1_3"] > 0
+    for name in ("staircase.nc", "staircase.csv", "staircase.png", "staircase.pdf", "summary.json"):
+        assert (out / name).exists(), name
+    import xarray as xr
+
+    ds = xr.load_dataset(out / "staircase.nc")
+    assert ds.attrs["method"] == "ed" and "model" in ds.attrs and "version" in ds.attrs
+
+
+def test_exact_bad_input_exit_2(capsys):
+    assert main(["exact", "--t", "0.1", "--V", "1", "--cluster", "tri13"]) == 2
+    assert "cluster" in capsys.readouterr().err
+    assert main(["exact", "--t", "0.1", "--V", "1", "--cluster", "tri12", "--particles", "20"]) == 2
+    assert "particles" in capsys.readouterr().err
+    assert main(["exact", "--t", "0.1", "--V", "1", "--cluster", "tri36", "--particles", "12"]) == 2
+    assert "GiB" in capsys.readouterr().err
