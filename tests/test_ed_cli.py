@@ -34,3 +34,15 @@ def test_exact_bad_input_exit_2(capsys):
     assert "particles" in capsys.readouterr().err
     assert main(["exact", "--t", "0.1", "--V", "1", "--cluster", "tri36", "--particles", "12"]) == 2
     assert "GiB" in capsys.readouterr().err
+
+
+def test_scan_ed_dataset_matches_direct_solves():
+    from phasemap import Model
+    from phasemap.ed import scan_ed, solve_ed
+
+    m = Model("triangular", t=0.2, V=1.0)
+    ds = scan_ed(m, "V", [0.0, 1.0, 2.0], cluster="tri9", particles=3, neighbors=False)
+    assert list(ds["V"].values) == [0.0, 1.0, 2.0] and ds.attrs["method"] == "ed"
+    direct = solve_ed(m.replace(V=2.0), cluster="tri9", particles=3, neighbors=False)
+    assert abs(ds["energy"].values[-1] - direct.energy) < 1e-12
+    assert abs(ds["SK_per_site"].values[-1] - direct.order["S(K)/N"]) < 1e-12

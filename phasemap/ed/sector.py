@@ -39,7 +39,7 @@ import time
 
 import numpy as np
 import scipy.sparse as sp
-from scipy.sparse.linalg import LinearOperator, eigsh
+from scipy.sparse.linalg import ArpackNoConvergence, LinearOperator, eigsh
 
 from ..lattice import Supercell
 from ..model import Model
@@ -60,8 +60,15 @@ def _lowest(H, k, tol, v0):
     n = H.shape[0]
     if v0 is not None and len(v0) != n:
         v0 = None
+
+    def arpack(op, kk, x0):
+        try:
+            return eigsh(op, k=kk, which="SA", tol=tol, v0=x0, ncv=max(20, 2 * kk + 1))
+        except ArpackNoConvergence:  # retry once with a larger Krylov space and more restarts
+            return eigsh(op, k=kk, which="SA", tol=tol, v0=x0, ncv=max(40, 4 * kk + 1), maxiter=100 * op.shape[0])
+
     if not np.iscomplexobj(H.data):
-        w, v = eigsh(H, k=k, which="SA", tol=tol, v0=None if v0 is None else np.real(v0), ncv=max(20, 2 * k + 1))
+        w, v = arpack(H, k, None if v0 is None else np.real(v0))
     else:
         def mv(x):
             z = H @ (x[:n] + 1j * x[n:]) if x.ndim == 1 else H @ (x[:n, 0] + 1j * x[n:, 0])
@@ -71,7 +78,7 @@ def _lowest(H, k, tol, v0):
         x0 = None if v0 is None else np.concatenate([np.real(v0), np.imag(v0)])
         if x0 is not None and not np.any(x0):
             x0 = None
-        w2, v2 = eigsh(op, k=k, which="SA", tol=tol, v0=x0, ncv=max(20, 2 * k + 1))
+        w2, v2 = arpack(op, k, x0)
         o = np.argsort(w2)
         w2, v2 = w2[o], v2[:, o]
         z = v2[:n] + 1j * v2[n:]
