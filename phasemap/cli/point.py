@@ -38,7 +38,7 @@ def register(sub) -> None:
     p.add_argument("--method", default="mf", choices=("mf", "cmf", "ed"),
                    help="mf: site-decoupled mean field; cmf: cluster mean field; ed: exact diagonalization")
     p.add_argument("--cluster", default=None, help="cluster name for cmf / ed (e.g. tri3, tri12, sq2x2)")
-    p.add_argument("--particles", type=int, default=None, metavar="N", help="particle number (ed only)")
+    p.add_argument("--particles", type=int, default=None, metavar="N", help="particle number (ed only; default: the N minimising E0(N) - mu N)")
     p.add_argument("--json", action="store_true", help="print the Solution as JSON")
     p.set_defaults(func=run)
 
@@ -66,9 +66,7 @@ def run(args) -> int:
         if args.cluster is not None:
             opts["cluster"] = args.cluster
         if args.method == "ed":
-            if args.particles is None:
-                raise ConfigError("--particles: required with --method ed (fixed particle number)")
-            opts["particles"] = args.particles
+            opts["particles"] = args.particles  # None: the N that minimises E0(N) - mu N on the cluster
         elif args.particles is not None:
             raise ConfigError("--particles: only used with --method ed")
     try:
