@@ -16,11 +16,13 @@ __all__ = ["register"]
 CHECK_EPILOG = """examples:
   phasemap strain-check demo --strain 0.08
   phasemap strain-check examples/strain_demo.csv --strain 0.08 --mu 8 --json
-  phasemap strain-check examples/strain_demo.csv --strain 0.1 --method cmf --cluster tri12"""
+  phasemap strain-check examples/strain_demo.csv --strain 0.1 --method cmf --cluster tri12
+  phasemap strain-check examples/strain_demo.csv --strain 0.1 --method ed:tri21 --mu 8"""
 
 SWEEP_EPILOG = """examples:
   phasemap strain-sweep examples/strain_demo.csv --out strain-out
-  phasemap strain-sweep examples/strain_demo.csv --out strain-out --methods mf,cmf:tri6 --lambda 0.7:1.0:4"""
+  phasemap strain-sweep examples/strain_demo.csv --out strain-out --methods mf,cmf:tri6 --lambda 0.7:1.0:4
+  phasemap strain-sweep examples/strain_demo.csv --out strain-out --methods mf,ed:tri21"""
 
 
 def register(sub) -> None:
@@ -32,10 +34,11 @@ def register(sub) -> None:
     c.add_argument("table", help="strain table (.csv or .toml), or 'demo' for the invented demo table")
     c.add_argument("--strain", type=finite_float, required=True, help="strain at which to judge")
     c.add_argument("--mu", type=finite_float, default=None, help="chemical potential (table unit) to report the phase at")
-    c.add_argument("--method", default="mf", help="mf, cmf or cmf:<cluster> (default mf)")
-    c.add_argument("--cluster", default=None, help="cluster for cmf (e.g. tri3, tri6, tri12)")
+    c.add_argument("--method", default="mf", help="mf, cmf[:<cluster>] or ed[:<cluster>] (exact diagonalization, canonical finite cluster "
+                   "containing K: tri12 (default, no V2), tri21, tri27) (default mf)")
+    c.add_argument("--cluster", default=None, help="cluster for cmf (e.g. tri3, tri6, tri12) or ed (tri12, tri21, tri27)")
     c.add_argument("--fraction", default="1/3", help="plateau filling (default 1/3)")
-    c.add_argument("--no-melt", action="store_true", help="skip the melt-factor root-finding (faster)")
+    c.add_argument("--no-melt", action="store_true", help="skip the melt-factor root-finding (faster; ED has none)")
     c.add_argument("--melt-max", type=finite_float, default=10.0, help="largest t/V growth factor searched (default 10)")
     c.add_argument("--extrapolate", action="store_true", help="allow a strain outside the table (warned)")
     c.add_argument("--json", action="store_true", help="print the answer as JSON (same data as the text)")
@@ -46,7 +49,7 @@ def register(sub) -> None:
                        "data (NetCDF, CSV, JSON) and figures into --out.", epilog=SWEEP_EPILOG, formatter_class=fmt)
     s.add_argument("table", help="strain table (.csv or .toml), or 'demo'")
     s.add_argument("--out", required=True, help="output folder (created; files written atomically)")
-    s.add_argument("--methods", default="mf", help="comma list: mf, cmf:<cluster> (default mf)")
+    s.add_argument("--methods", default="mf", help="comma list: mf, cmf:<cluster>, ed:<cluster> (default mf)")
     s.add_argument("--lambda", dest="lambdas", default=None,
                    help="also scan interactions V -> lambda V: start:stop:count or comma list (e.g. 0.7:1.0:4)")
     s.add_argument("--scale", default="V", choices=("V", "t", "U", "V2"),
@@ -65,13 +68,10 @@ def _spec(method: str, cluster):
     from ..strain.engine import MethodSpec
 
     if cluster is not None:
-        if ":" in method or method.strip() != "cmf":
-            raise ConfigError(f"--cluster: only with --method cmf (got --method {method!r})")
-        method = f"cmf:{cluster}"
-    spec = MethodSpec.parse(method)
-    if spec.method == "ed":
-        raise ConfigError("--method ed: the strain check needs a grand-canonical method (mf or cmf)")
-    return spec
+        if ":" in method or method.strip().lower() not in ("cmf", "ed"):
+            raise ConfigError(f"--cluster: only with --method cmf or --method ed (got --method {method!r})")
+        method = f"{method.strip().lower()}:{cluster}"
+    return MethodSpec.parse(method)
 
 
 def run_check(args) -> int:
@@ -85,6 +85,10 @@ def run_check(args) -> int:
     parse_fraction(args.fraction)
     table = read_table(args.table)
     table.check_range(args.strain, args.extrapolate)  # refuse before any solving
+    if spec.method == "ed":
+        from ..strain.ed_method import ed_setup
+
+        ed_setup(spec, [table.model(args.strain, extrapolate=args.extrapolate)], args.fraction)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         res = check_strain(table, args.strain, spec, mu=args.mu, fraction=args.fraction,
@@ -111,9 +115,6 @@ def run_sweep(args) -> int:
     specs = parse_methods(args.methods)
     from ..model import ConfigError
 
-    for sp in specs:
-        if sp.method == "ed":
-            raise ConfigError(f"--methods: {sp.name!r} is canonical; the sweep needs mf or cmf[:cluster]")
     parse_fraction(args.fraction)
     lam = parse_lambdas(args.lambdas) if args.lambdas is not None else None
     table = read_table(args.table)

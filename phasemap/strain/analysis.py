@@ -167,7 +167,10 @@ def check_strain(table: StrainTable, strain: float, spec="mf", mu: float | None 
     strain : float
         Must lie inside the table unless ``extrapolate``.
     spec : str or MethodSpec
-        "mf", "cmf:<cluster>".
+        "mf", "cmf:<cluster>", or "ed[:<cluster>]" (exact diagonalization on a periodic cluster
+        containing K, default tri12: the finite-cluster step mu-(N), mu+(N) at N = f L, its
+        charge gap and S(K)/N; no melt factor and no sharp edge, see
+        :mod:`phasemap.strain.ed_method`).
     mu : float, optional
         Chemical potential (table unit) at which to report the phase and its distance to
         the plateau edges.
@@ -188,6 +191,8 @@ def check_strain(table: StrainTable, strain: float, spec="mf", mu: float | None 
         mu = float(mu)
         if not math.isfinite(mu):
             raise ConfigError(f"mu: must be a finite number, got {mu}")
+    if spec.method == "ed":
+        return _check_strain_ed(table, strain, spec, model, mu, lab)
     kw = dict(tol=tol, width_floor=width_floor, jump_tol=jump_tol, thresholds=thresholds, n_mu=n_mu)
     res = locate_plateaus([model], lab, spec, **kw)
     Vref = max(abs(v) for v in model.V)
@@ -245,8 +250,85 @@ def check_strain(table: StrainTable, strain: float, spec="mf", mu: float | None 
     return StrainCheck(data)
 
 
+def _check_strain_ed(table: StrainTable, strain: float, spec: MethodSpec, model: Model, mu, lab: str) -> StrainCheck:
+    """ED branch of :func:`check_strain`: the finite-cluster step at N = f L (no melt factor, no sharp edge)."""
+    from .ed_method import ED_CAUTION, ed_plateaus
+
+    r = ed_plateaus([model], spec, lab)
+    Vref = max(abs(v) for v in model.V)
+    rel = (lambda x: x / Vref) if Vref > 0 else (lambda x: None)  # noqa: E731
+    lo, hi, gap = float(r.mu_minus[0]), float(r.mu_plus[0]), float(r.gap[0])
+    sk = float(r.sk[0])
+    data = {
+        "strain": float(strain), "method": spec.name, "kind": "ed", "ensemble": "canonical (finite periodic cluster)",
+        "cluster": r.cluster, "n_sites": r.n_sites, "N": r.N, "unit": table.unit, "fraction": lab,
+        "table": table.path, "extrapolated": bool(not (table.span[0] <= strain <= table.span[1])),
+        "parameters": {"t": list(model.t), "V": list(model.V), "U": "inf" if model.hardcore else model.U,
+                       "V2": model.V2, "t_over_V": max(model.t) / Vref if Vref > 0 else math.inf,
+                       "families": list(model.families)},
+        "plateau": {
+            "fraction": lab, "N": r.N, "n_sites": r.n_sites, "mu_lo": lo, "mu_hi": hi, "width": gap,
+            "mu_lo_over_V": rel(lo), "mu_hi_over_V": rel(hi), "width_over_V": rel(gap),
+            "edges": "canonical mu-(N) = E_c(N) - E_c(N-1), mu+(N) = E_c(N+1) - E_c(N); width = charge gap",
+            "E_canonical": {str(r.N - 1): float(r.e_canonical[0, 0]), str(r.N): float(r.e_canonical[0, 1]),
+                            str(r.N + 1): float(r.e_canonical[0, 2])},
+        },
+        "order": {"S(K)/N": sk, "threshold": r.threshold, "above_threshold": bool(sk > r.threshold),
+                  "perfect_solid": 1.0 / 9.0 if lab == "1/3" else None, "sq_max": float(r.sq_max[0]),
+                  "q_max": r.q_max[0],
+                  "threshold_source": "phasemap.ed.EDThresholds.sq (finite-size density-order indicator)"},
+        "critical": {"sharp": False,
+                     "text": "on a finite cluster the charge gap never closes exactly, so ED gives no sharp "
+                             "critical strain (compare clusters: only the scaling with size decides)"},
+        "residual": float(r.residual[0]), "seconds": float(r.seconds[0]),
+        "flags": list(r.flags[0]), "caution": ED_CAUTION, "converged": True,
+    }
+    if mu is not None:
+        m = min(mu - lo, hi - mu)
+        data["at_mu"] = {"mu": mu, "inside_step": bool(lo <= mu <= hi), "margin_mu": float(m),
+                         "margin_mu_over_V": rel(float(m)),
+                         "nearest_edge": "lower" if abs(mu - lo) <= abs(mu - hi) else "upper",
+                         "compared": f"N = {r.N - 1}, {r.N}, {r.N + 1} only"}
+    data["verdict"] = "ordered-on-cluster" if sk > r.threshold else "no-order-on-cluster"
+    return StrainCheck(data)
+
+
+def _verdict_text_ed(d: dict) -> str:
+    u = d["unit"]
+    p, o = d["plateau"], d["order"]
+    frac = d["fraction"]
+    rel = (lambda k: f" ({p[k]:.3g} V)" if (p.get(k) is not None and u != "V") else "")  # noqa: E731
+    lines = [f"at strain {d['strain']:g} ({d['method']}: exact diagonalization, {d['n_sites']}-site periodic "
+             f"cluster, canonical, N = {d['N']}) the finite-cluster {frac} step runs from "
+             f"mu- = {_fmt(p['mu_lo'], u, 4)}{rel('mu_lo_over_V')} to mu+ = {_fmt(p['mu_hi'], u, 4)}"
+             f"{rel('mu_hi_over_V')}; width = charge gap {_fmt(p['width'], u, 4)}{rel('width_over_V')}."]
+    ref = f"; perfect sqrt3 x sqrt3 solid: {o['perfect_solid']:.4g}" if o.get("perfect_solid") else ""
+    word = "above" if o["above_threshold"] else "not above"
+    lines.append(f"S(K)/N = {o['S(K)/N']:.4g} is {word} the density-order indicator {o['threshold']:g} of "
+                 f"phasemap.ed (EDThresholds.sq{ref}).")
+    lines.append(f"{d['critical']['text']}.")
+    a = d.get("at_mu")
+    if a:
+        mrel = f" ({a['margin_mu_over_V']:.3g} V)" if (a.get("margin_mu_over_V") is not None and u != "V") else ""
+        if a["inside_step"]:
+            lines.append(f"at mu = {_fmt(a['mu'], u, 4)} the cluster holds N = {d['N']} "
+                         f"({a['compared']} compared), {_fmt(a['margin_mu'], u)}{mrel} inside the {a['nearest_edge']} edge.")
+        else:
+            orel = f" ({-a['margin_mu_over_V']:.3g} V)" if (a.get("margin_mu_over_V") is not None and u != "V") else ""
+            lines.append(f"mu = {_fmt(a['mu'], u, 4)} lies outside the cluster's N = {d['N']} step, "
+                         f"{_fmt(-a['margin_mu'], u)}{orel} beyond the {a['nearest_edge']} edge.")
+    for f in d.get("flags", []):
+        lines.append(f"flag: {f}")
+    if d.get("extrapolated"):
+        lines.append("warning: this strain lies outside the table; parameters were extrapolated.")
+    lines.append(f"caution: {d['caution']}.")
+    return "\n".join(lines)
+
+
 def verdict_text(d: dict) -> str:
     """Plain-language verdict from a :func:`check_strain` dictionary."""
+    if d.get("kind") == "ed":
+        return _verdict_text_ed(d)
     u = d["unit"]
     p = d["plateau"]
     frac = d["fraction"]

@@ -72,7 +72,7 @@ class MethodSpec:
 
     @classmethod
     def parse(cls, text) -> "MethodSpec":
-        """``"mf"``, ``"cmf"`` (cluster tri12), ``"cmf:tri6"``, ``"ed:tri12"``."""
+        """``"mf"``, ``"cmf"`` (cluster tri12), ``"cmf:tri6"``, ``"ed"`` (cluster tri12), ``"ed:tri21"``."""
         if isinstance(text, MethodSpec):
             return text
         s = str(text).strip()
@@ -80,17 +80,17 @@ class MethodSpec:
         method = method.strip().lower()
         allowed = ("mf", "cmf", "ed")
         if method not in allowed:
-            raise ConfigError(f"method: unknown method {s!r}; allowed: mf, cmf[:cluster], ed:cluster "
-                              "(e.g. 'mf', 'cmf:tri12')")
+            raise ConfigError(f"method: unknown method {s!r}; allowed: mf, cmf[:cluster], ed[:cluster] "
+                              "(e.g. 'mf', 'cmf:tri12', 'ed:tri12')")
         if method == "mf":
             if cluster:
                 raise ConfigError(f"method {s!r}: site-decoupled mean field takes no cluster (use 'cmf:{cluster}')")
             return cls("mf", ())
         if method == "cmf":
             return cls("cmf", (("cluster", cluster.strip() or "tri12"),))
-        if not cluster.strip():
-            raise ConfigError("method 'ed': needs a periodic cluster, e.g. 'ed:tri12'")
-        return cls("ed", (("cluster", cluster.strip()),))
+        # ed: canonical exact diagonalization on a K-compatible periodic cluster (default tri12),
+        # see phasemap.strain.ed_method
+        return cls("ed", (("cluster", cluster.strip() or "tri12"),))
 
 
 def parse_methods(text) -> list[MethodSpec]:
@@ -184,7 +184,9 @@ def evaluate_points(models: list[Model], mu, spec: MethodSpec = MethodSpec(), th
     from ..scan import evaluate
 
     if spec.method not in _GC_METHODS:
-        raise ConfigError(f"method {spec.name!r}: grand-canonical scans need mf or cmf")
+        raise ConfigError(f"method {spec.name!r}: grand-canonical scans need mf or cmf; ED is canonical "
+                          "(use check_strain / strain_sweep, which give its finite-cluster step, or "
+                          "phasemap.strain.ed_method.ed_plateaus)")
     mu = np.asarray(mu, float)
     P, M = mu.shape
     tag = (spec.name, json.dumps(thresholds.to_dict(), sort_keys=True))

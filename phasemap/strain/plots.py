@@ -7,6 +7,11 @@
 * :func:`plot_phase_map` — (strain, mu) phase map, one panel per method;
 * :func:`plot_critical_vs_lambda` — critical strain versus the interaction scale factor.
 
+ED methods (``ed:<cluster>``, canonical finite cluster) appear as their own lines: the
+cluster's step edges mu-(N), mu+(N) at N = f L (open markers, not shaded: a finite-cluster
+gap is not a plateau), S(K)/N with the indicator threshold, and gap/V; their steepest-drop
+strain is marked as an indicator (triangle), never as a critical strain.
+
 Sized for journal columns (3.4 in single, 7.0 in double), axis labels with units; written as
 PNG + PDF by :func:`save_all` through :func:`phasemap.plot.save_figure` (atomic).
 """
@@ -41,6 +46,19 @@ def method_colors(names) -> dict:
     return {n: _CYCLE[i % len(_CYCLE)] for i, n in enumerate(names)}
 
 
+def _all_names(sweep) -> list:
+    return list(getattr(sweep, "all_names", sweep.names))
+
+
+def _ed_names(sweep) -> list:
+    return list(getattr(sweep, "ed_names", []))
+
+
+def _ed_label(sweep, n) -> str:
+    e = sweep.ed[n]
+    return f"{n} (ED, {e.n_sites} sites, N={e.N})"
+
+
 def _fig(w, h):
     fig = Figure(figsize=(w, h), constrained_layout=True)
     FigureCanvasAgg(fig)
@@ -62,7 +80,7 @@ def plot_plateau_edges(sweep) -> Figure:
     with rc_context(_style()):
         fig = _fig(SINGLE, 2.6)
         ax = fig.add_subplot()
-        colors = method_colors(sweep.names)
+        colors = method_colors(_all_names(sweep))
         _mark_critical(ax, sweep, colors)
         s = sweep.strains
         for i, n in enumerate(sweep.names):
@@ -77,14 +95,24 @@ def plot_plateau_edges(sweep) -> Figure:
             c = sweep.critical[n]
             if c.strain_c is not None:
                 ax.plot([], [], color=colors[n], ls=":", lw=0.9, label=f"{n}: $s_c$ = {c.strain_c:.4g}")
+        for n in _ed_names(sweep):
+            e = sweep.ed[n]
+            ax.plot(s, e.mu_minus, ls="--", color=colors[n], marker="o", mfc="none", ms=3, lw=0.9,
+                    label=f"{_ed_label(sweep, n)}: μ∓(N)")
+            ax.plot(s, e.mu_plus, ls="--", color=colors[n], marker="o", mfc="none", ms=3, lw=0.9)
         ax.set_xlabel(sweep.table.strain_label)
         ax.set_ylabel(f"μ [{sweep.table.unit}]")
-        ax.set_title(f"{sweep.fraction} plateau (shaded: solid)", fontsize=8)
-        ax.legend(frameon=False, loc="best")
+        title = f"{sweep.fraction} plateau (shaded: solid)"
+        if _ed_names(sweep):
+            title = f"{sweep.fraction} plateau (shaded: solid; ED: finite-cluster step)"
+        ax.set_title(title, fontsize=8 if not _ed_names(sweep) else 7)
+        ax.legend(frameon=False, loc="best", fontsize=5 if _ed_names(sweep) else None)
     return fig
 
 
 def _mu_index(sweep, mu):
+    if not sweep.names:
+        return None, mu
     if mu is None:
         r = sweep.plateaus[sweep.names[0]]
         ok = r.exists & np.isfinite(r.mu_lo) & np.isfinite(r.mu_hi)
@@ -95,13 +123,13 @@ def _mu_index(sweep, mu):
 def plot_order_parameters(sweep, mu=None) -> Figure:
     """S(Q) and condensate at a fixed mu (grid point nearest to ``mu``), and width/V, versus strain."""
     k, mu = _mu_index(sweep, mu)
-    mu_k = float(sweep.mu[k])
+    mu_k = float(sweep.mu[k]) if k is not None else None
     u = sweep.table.unit
     vref = np.abs(sweep.table.params(sweep.strains)["V"]).max(1)
     with rc_context(_style()):
         fig = _fig(SINGLE, 4.2)
         axes = fig.subplots(3, 1, sharex=True)
-        colors = method_colors(sweep.names)
+        colors = method_colors(_all_names(sweep))
         for i, n in enumerate(sweep.names):
             g = sweep.plateaus[n].grid
             ls = _STYLES[i % len(_STYLES)]
@@ -115,14 +143,34 @@ def plot_order_parameters(sweep, mu=None) -> Figure:
             if (~conv).any():
                 axes[0].plot(sweep.strains[~conv], np.zeros((~conv).sum()), "x", color=colors[n], ms=4,
                              label=f"{n}: not converged")
+        eds = _ed_names(sweep)
+        for n in eds:
+            e = sweep.ed[n]
+            axes[0].plot(sweep.strains, e.sk, ls="--", color=colors[n], marker="o", mfc="none", ms=3, lw=0.9,
+                         label=f"{_ed_label(sweep, n)}: S(K)/N")
+            axes[2].plot(sweep.strains, e.gap / vref, ls="--", color=colors[n], marker="o", mfc="none", ms=3, lw=0.9,
+                         label=f"{n}: gap/V")
+            d = sweep.ed_critical[n].get("indicator_SK_drop")
+            if d:
+                axes[0].plot([d["strain"]], [np.interp(d["strain"], sweep.strains, e.sk)], marker="v", color=colors[n],
+                             ms=5, ls="none", label=f"{n}: steepest S(K)/N drop {d['strain']:.3g} (indicator)")
+        if eds:
+            thr = sweep.ed[eds[0]].threshold
+            axes[0].axhline(thr, color="0.4", lw=0.6, ls=":", label=f"ED order indicator {thr:g}")
         for ax in axes:
             _mark_critical(ax, sweep, colors)
-        axes[0].set_ylabel("S(Q) (solid order)")
+        axes[0].set_ylabel("S(Q) (solid order)" if not eds else "S(Q), ED: S(K)/N")
         axes[1].set_ylabel("max |⟨b⟩|")
-        axes[2].set_ylabel("plateau width / V")
+        axes[2].set_ylabel("plateau width / V" if not eds else "width / V (ED: gap / V)")
         axes[2].set_xlabel(sweep.table.strain_label)
-        axes[0].set_title(f"order parameters at μ = {mu_k:.3g} {u}", fontsize=8)
-        axes[0].legend(frameon=False, loc="best")
+        if mu_k is not None:
+            title = f"order parameters at μ = {mu_k:.3g} {u}" + ("; ED at N = f L" if eds else "")
+        else:
+            title = "ED: order at N = f L"
+        axes[0].set_title(title, fontsize=8)
+        axes[0].legend(frameon=False, loc="best", fontsize=5 if eds else None)
+        if eds:
+            axes[2].legend(frameon=False, loc="best", fontsize=5)
     return fig
 
 
@@ -131,6 +179,8 @@ def plot_phase_map(sweep) -> Figure:
     from ..plot import phase_colors, sort_labels
 
     names = sweep.names
+    if not names:
+        return None  # ED only: canonical, no (strain, mu) map
     labels = sort_labels(np.unique(np.concatenate([sweep.plateaus[n].grid["label"].ravel() for n in names])))
     colors = phase_colors(labels)
     idx = {lab: i for i, lab in enumerate(labels)}
@@ -176,7 +226,7 @@ def plot_critical_vs_lambda(sweep) -> Figure | None:
     with rc_context(_style()):
         fig = _fig(SINGLE, 2.6)
         ax = fig.add_subplot()
-        colors = method_colors(sweep.names)
+        colors = method_colors(_all_names(sweep))
         for i, n in enumerate(sweep.names):
             L = sweep.lambdas.get(n)
             if L is None:
