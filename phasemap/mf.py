@@ -220,7 +220,7 @@ def _iterate(ops: CellOps, batch: ParamBatch, n0, phi0, opt: MFOptions):
         x_out, iters, resid, conv = iterate_rows(
             t, V, V2, mu, np.where(np.isfinite(U), U, 0.0), batch.n_max, ops.plus, ops.minus, ops.nnn_plus,
             ops.nnn_minus, x_out, opt.tol, opt.max_iter, opt.mixing, max(opt.anderson, 0), opt.patience)
-        return _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, P, K, S)
+        return _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, P, K, S, mapped=hard)
     # compact state
     idx = np.arange(rows)
     x = x_out.copy()
@@ -277,10 +277,17 @@ def _iterate(ops: CellOps, batch: ParamBatch, n0, phi0, opt: MFOptions):
     return _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, P, K, S)
 
 
-def _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, P, K, S):
-    """Energies from the local states built from the final fields."""
+def _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, P, K, S, mapped=False):
+    """Energies from the local states built from the final fields.
+
+    ``mapped``: ``x_out`` already holds the local states' values (hard-core kernel), so the
+    map need not be applied again (hard-core states carry no <n(n-1)> and no cut-off weight).
+    """
     hard = batch.hardcore
-    gx, nn1, top = G(x_out, np.arange(P * K))
+    if mapped:
+        gx, nn1, top = x_out, None, np.zeros((P * K, S))
+    else:
+        gx, nn1, top = G(x_out, np.arange(P * K))
     n, ph = gx[:, :S], gx[:, S:]
     onsite = (0.0 if hard else 0.5 * U * nn1.mean(1)) - mu * n.mean(1)
     E = ops.bond_energy(t, V, V2, n, ph) + onsite

@@ -125,7 +125,7 @@ def _one_row(r, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_
                 insulating = False
                 break
         if it - last > (3 if insulating else patience):
-            out[r] = x
+            out[r] = g  # the map of the last iterate: a consistent product state
             break
         k = min(it - 1, m)
         if k > 0:
@@ -169,7 +169,8 @@ def _one_row(r, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_
                 step = 0.5 * x[d]
             x[d] = step
     else:
-        out[r] = x
+        _map(x, g, t[r], V[r], V2[r], mu[r], U[r], nmax, plus, minus, nplus, nminus, S, H)
+        out[r] = g
     iters[r] = it
     resid[r] = res
 
@@ -197,7 +198,8 @@ PARALLEL_MIN_ROWS = 20000
 def iterate_rows(t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience):
     """Iterate every row of ``x0`` (rows, 2S: densities then condensates) to self-consistency.
 
-    Returns (x, iterations, residual, converged). Large batches run on all cores.
+    Returns (g, iterations, residual, converged), ``g`` the densities and condensates of the
+    local ground states in the fields of each row's last iterate. Large batches run on all cores.
     """
     rows = x0.shape[0]
     out = x0.copy()
