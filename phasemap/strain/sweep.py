@@ -381,6 +381,8 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
     if ed_specs and lambdas is not None:
         notes.append(f"lambda scan not done for {', '.join(sp.name for sp in ed_specs)}: ED has no sharp critical strain")
     band = critical_band(list(crit.values()))
+    if not specs:
+        band["text"] = "no grand-canonical method (mf, cmf) in the sweep, so no critical-strain band"
     if ed_specs:
         band["text"] += (f"; {', '.join(sp.name for sp in ed_specs)} not in the band (finite cluster: no sharp "
                          "transition; steepest-drop strains are indicators only)")
