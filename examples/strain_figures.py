@@ -2,7 +2,9 @@
 
     /work/venv/bin/python examples/strain_figures.py [OUTDIR] [METHODS]
 
-METHODS defaults to "mf"; e.g. "mf,cmf:tri3" adds cluster mean field (much slower).
+METHODS defaults to "mf"; e.g. "mf,cmf:tri3" adds cluster mean field (much slower), and
+"mf,ed:tri21" adds the exact-diagonalization finite-cluster step (no critical strain; the demo
+table has V2 != 0, which tri12 cannot hold).
 The demo numbers are INVENTED (see the header of examples/strain_demo.csv).
 """
 

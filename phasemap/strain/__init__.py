@@ -13,6 +13,9 @@ critical
 sensitivity
     Interactions scaled (V -> lambda V, optionally t, U): critical strain versus lambda,
     local derivatives of the plateau width.
+ed_method
+    Exact diagonalization (``ed:<cluster>``, canonical): finite-cluster step mu-(N), mu+(N),
+    charge gap and S(K)/N at N = f L; no sharp critical strain (indicators only).
 sweep
     Strain sweep for several methods: labelled data on disk.
 plots
