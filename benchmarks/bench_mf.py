@@ -24,7 +24,6 @@ import numpy as np
 import scipy.linalg
 
 import phasemap
-from phasemap.lattice import search_cell
 from phasemap.mf import MFOptions, solve_batch
 from phasemap.params import grid
 from phasemap.seeds import make_seeds

@@ -22,8 +22,7 @@ import xarray as xr
 from .api import phase_codes, select_winners
 from .classify import Thresholds, filling_label
 from .model import ConfigError, Model
-from .params import grid, points
-from .solution import PHASES, UNCONVERGED
+from .params import ParamBatch, grid, points
 from .solvers import batch_solver
 
 __all__ = ["phase_map", "filling_curve", "FillingCurve", "refine_boundaries", "evaluate"]

@@ -7,7 +7,6 @@ triangular lattice, 3N - ceil(sqrt(12N - 3)) (Harary & Harborth 1976).
 
 from fractions import Fraction
 
-import numpy as np
 import pytest
 
 from phasemap import ConfigError, Model

@@ -3,11 +3,10 @@
 import itertools
 
 import numpy as np
-import pytest
 from _ed_dense import bonds
 
 from phasemap import Model
-from phasemap.ed import get_cluster, ground_state, solve_ed
+from phasemap.ed import ground_state, solve_ed
 
 
 def classical_minima(lattice, vectors, V, V2, mu, L):

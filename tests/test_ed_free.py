@@ -1,7 +1,6 @@
 """V = 0 hard-core bosons and twist observables against independent references."""
 
 import numpy as np
-import pytest
 from _ed_dense import dense_hamiltonian
 
 from phasemap import Model

@@ -42,7 +42,7 @@ D. G. Anderson, J. ACM 12, 547 (1965) (Anderson mixing).
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass, field, fields
+from dataclasses import dataclass, fields
 
 import numpy as np
 import scipy.linalg as sla
@@ -378,7 +378,7 @@ def solve_cmf_batch(batch: ParamBatch, cluster="tri12", seeds: list[Seed] | None
         raise ConfigError("cmf: frustrated hopping t < 0 is not supported")
     if seeds is None:
         seeds = cluster_seeds(model, cl, n_random=opt.n_random, rng=opt.rng, patterns=opt.patterns)
-    P, K, S = batch.size, len(seeds), cl.n_sites
+    K = len(seeds)
     check_budget(cl, batch.n_max, opt.memory_mb, opt.max_dim, n_rows=K)
     with blas_threads(opt.blas_threads):
         ops = cluster_operators(cl, batch.n_max)

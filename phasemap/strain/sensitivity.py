@@ -17,14 +17,13 @@ table end) are found by batched multi-section to ``xtol``.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from ..classify import Thresholds
 from ..model import ConfigError
-from .critical import coarse_strains, criterion_values
+from .critical import coarse_strains
 from .engine import MethodSpec, locate_plateaus, parse_fraction
 from .roots import multisection
 from .table import StrainTable

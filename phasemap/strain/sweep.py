@@ -22,9 +22,9 @@ import xarray as xr
 from ..classify import Thresholds
 from .analysis import CAUTION
 from .ed_method import ED_CAUTION
-from .critical import CriticalResult, coarse_strains, critical_band, critical_strain
-from .engine import MethodSpec, PlateauResult, default_window, fixed_filling, locate_plateaus, parse_fraction, parse_methods
-from .sensitivity import LambdaScan, critical_vs_lambda
+from .critical import coarse_strains, critical_band, critical_strain
+from .engine import default_window, fixed_filling, locate_plateaus, parse_fraction, parse_methods
+from .sensitivity import critical_vs_lambda
 from .table import StrainTable
 
 __all__ = ["StrainSweep", "strain_sweep"]
