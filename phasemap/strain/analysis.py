@@ -317,12 +317,16 @@ def _verdict_text_ed(d: dict) -> str:
             orel = f" ({-a['margin_mu_over_V']:.3g} V)" if (a.get("margin_mu_over_V") is not None and u != "V") else ""
             lines.append(f"mu = {_fmt(a['mu'], u, 4)} lies outside the cluster's N = {d['N']} step, "
                          f"{_fmt(-a['margin_mu'], u)}{orel} beyond the {a['nearest_edge']} edge.")
-    for f in d.get("flags", []):
-        lines.append(f"flag: {f}")
+    return "\n".join(lines + _closing_lines(d))
+
+
+def _closing_lines(d: dict) -> list[str]:
+    """Flags, the extrapolation warning and the method's caution, shared by every verdict."""
+    out = [f"flag: {f}" for f in d.get("flags", [])]
     if d.get("extrapolated"):
-        lines.append("warning: this strain lies outside the table; parameters were extrapolated.")
-    lines.append(f"caution: {d['caution']}.")
-    return "\n".join(lines)
+        out.append("warning: this strain lies outside the table; parameters were extrapolated.")
+    out.append(f"caution: {d['caution']}.")
+    return out
 
 
 def verdict_text(d: dict) -> str:
@@ -376,9 +380,4 @@ def verdict_text(d: dict) -> str:
         else:
             dist = f", {_fmt(-a['margin_mu'], u)} from the plateau" if a["margin_mu"] is not None else ""
             lines.append(f"at mu = {_fmt(a['mu'], u, 4)} the state is {a['label']} (n = {a['filling']:.4f}){dist}.")
-    for f in d.get("flags", []):
-        lines.append(f"flag: {f}")
-    if d.get("extrapolated"):
-        lines.append("warning: this strain lies outside the table; parameters were extrapolated.")
-    lines.append(f"caution: {d['caution']}.")
-    return "\n".join(lines)
+    return "\n".join(lines + _closing_lines(d))
