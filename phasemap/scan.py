@@ -159,14 +159,11 @@ def phase_map(model: Model, x=("t", None), y=("mu", None), relative=True, method
     batch, shape = grid(model, {xn: xv, yn: yv}, relative=relative)
     flat = evaluate(batch, method, options, thresholds, chunk=chunk, progress=progress, desc="phase map",
                     checkpoint=checkpoint)
-    from .lattice import search_cell
-
-    cell = _cell_of(method, options, batch)
     attrs = _attrs(batch.base, method, thresholds, options, relative, "phase map",
                    {"x_axis": xn, "y_axis": yn, "x_label": _axis_label(xn, model, relative),
                     "y_label": _axis_label(yn, model, relative)})
     ds = _dataset(flat, (xn, yn), {xn: np.asarray(xv, float), yn: np.asarray(yv, float)},
-                  cell.sites if cell is not None else search_cell(model.lattice).sites, attrs)
+                  _sites_of(method, options, batch), attrs)
     if yn == "mu" or xn == "mu":
         axis = 1 if yn == "mu" else 0
         mu = np.asarray(yv if yn == "mu" else xv, float) * (model.scale if relative else 1.0)
@@ -181,16 +178,15 @@ def phase_map(model: Model, x=("t", None), y=("mu", None), relative=True, method
     return ds
 
 
-def _cell_of(method, options, batch):
-    from .lattice import search_cell
-
-    if method == "mf":
-        return search_cell(batch.base.lattice)
+def _sites_of(method, options, batch):
+    """Lattice coordinates of the sites the per-site arrays refer to."""
     if method == "cmf":  # arrays live on the cluster's sites
         from .cmf import get_cluster
 
-        return get_cluster((options or {}).get("cluster", "tri12"), batch.base.lattice).cell
-    return None  # taken from the solver result (cluster) when needed
+        return get_cluster((options or {}).get("cluster", "tri12"), batch.base.lattice).cell.sites
+    from .lattice import search_cell
+
+    return search_cell(batch.base.lattice).sites
 
 
 def refine_boundaries(model, ds, relative=True, method="mf", options=None, thresholds=Thresholds(),
@@ -351,13 +347,9 @@ def filling_curve(model: Model, mu=None, relative=True, method="mf", options=Non
         raise ConfigError("mu: the filling curve needs at least 2 strictly increasing chemical potentials")
     batch, _ = grid(model, {"mu": mu}, relative=relative)
     flat = evaluate(batch, method, options, thresholds, progress=progress, desc="filling curve")
-    from .lattice import search_cell
-
     attrs = _attrs(batch.base, method, thresholds, options, relative, "filling curve",
                    {"x_axis": "mu", "x_label": _axis_label("mu", model, relative)})
-    cell = search_cell(model.lattice)
-    sites = cell.sites if flat["densities"].shape[1] == cell.n_sites else np.zeros((flat["densities"].shape[1], 2), int)
-    ds = _dataset(flat, ("mu",), {"mu": mu}, sites, attrs)
+    ds = _dataset(flat, ("mu",), {"mu": mu}, _sites_of(method, options, batch), attrs)
     curve = FillingCurve(mu=mu, filling=flat["filling"], dataset=ds)
     labels, phases, conv, n = flat["label"], flat["phase"], flat["converged"], flat["filling"]
     names = ("mu",)
