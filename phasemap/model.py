@@ -89,8 +89,9 @@ class Model:
     n_max : int, optional
         Occupation cut-off for soft-core bosons (>= 1). Default: ``max(3, ceil(mu/U) + 2)``.
         Solvers warn when the top occupation carries weight. Ignored (=1) for hard-core.
-    unit : str, default "V"
-        Label of the energy unit of t, V, U, V2, mu (e.g. "K", "meV", "V" for dimensionless).
+    unit : str, optional
+        Label of the energy unit of t, V, U, V2, mu (e.g. "K", "meV"). Default: "V" for
+        hard-core and "U" for soft-core bosons (dimensionless work).
     """
 
     lattice: str = "triangular"
@@ -100,7 +101,7 @@ class Model:
     V2: float = 0.0
     mu: float = 0.0
     n_max: int | None = None
-    unit: str = "V"
+    unit: str | None = None
     _auto_n_max: bool = field(default=False, repr=False, compare=False)
 
     def __post_init__(self):
@@ -123,6 +124,8 @@ class Model:
         set_("U", _finite("U", U, lo=0.0, allow_inf=True))
         set_("V2", _finite("V2", self.V2))
         set_("mu", _finite("mu", self.mu))
+        if self.unit is None:  # dimensionless work: energies in units of V (hard-core) or U
+            set_("unit", "V" if self.hardcore else "U")
         if not isinstance(self.unit, str) or not self.unit.strip():
             raise ConfigError(f"unit: expected a non-empty label such as 'K', 'meV' or 'V', got {self.unit!r}")
         if self.hardcore:

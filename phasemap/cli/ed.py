@@ -36,7 +36,7 @@ def register(sub) -> None:
     p.add_argument("--V2", type=finite_float, default=0.0, help="next-nearest-neighbour repulsion (default 0)")
     p.add_argument("--mu", type=finite_float, default=0.0, help="chemical potential included in E0 (default 0)")
     p.add_argument("--n-max", type=positive_int, default=None, dest="n_max", help="occupation cut-off (soft-core)")
-    p.add_argument("--unit", default="V", help="energy unit label (default 'V')")
+    p.add_argument("--unit", default=None, help="energy unit label (default: V for hard-core, U for soft-core)")
     p.add_argument("--cluster", default="tri12", help="library name or vectors 'i1,j1;i2,j2' (default tri12)")
     p.add_argument("--particles", default=None, metavar="N|A:B",
                    help="particle number N, or inclusive range A:B (default: all N = staircase)")

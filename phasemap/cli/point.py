@@ -34,7 +34,7 @@ def register(sub) -> None:
     p.add_argument("--mu", type=finite_float, default=0.0, help="chemical potential (default 0)")
     p.add_argument("--n-max", type=positive_int, default=None, dest="n_max",
                    help="occupation cut-off for soft-core bosons (default chosen from mu/U)")
-    p.add_argument("--unit", default="V", help="energy unit label of all energies (default 'V')")
+    p.add_argument("--unit", default=None, help="energy unit label of all energies (default: V for hard-core, U for soft-core)")
     p.add_argument("--method", default="mf", choices=("mf", "cmf", "ed"),
                    help="mf: site-decoupled mean field; cmf: cluster mean field; ed: exact diagonalization")
     p.add_argument("--cluster", default=None, help="cluster name for cmf / ed (e.g. tri3, tri12, sq2x2)")
