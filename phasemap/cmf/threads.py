@@ -26,7 +26,8 @@ def _find():
 
     found = []
     try:
-        paths = {line.split()[-1] for line in open("/proc/self/maps") if "openblas" in line.lower()}
+        with open("/proc/self/maps") as maps:
+            paths = {line.split()[-1] for line in maps if "openblas" in line.lower()}
     except OSError:  # pragma: no cover - not Linux
         paths = set()
     for p in sorted(paths):

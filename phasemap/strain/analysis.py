@@ -38,6 +38,13 @@ __all__ = ["check_strain", "StrainCheck", "melt_factor", "strain_filling_curve",
 
 CAUTION = ("mean field overestimates the solid (site-decoupled badly so on the triangular lattice): "
            "its plateau widths and critical strains are bound-like estimates; compare cluster mean field")
+CMF_CAUTION = ("cluster mean field still overestimates the solid, less so for larger clusters: compare "
+               "clusters (phasemap cluster-scaling) before trusting a critical strain")
+
+
+def method_caution(spec) -> str:
+    """The caution that goes with a grand-canonical method spec ("mf" or "cmf:<cluster>")."""
+    return CMF_CAUTION if str(getattr(spec, "name", spec)).startswith("cmf") else CAUTION
 
 
 def _jsonable(v):
@@ -216,7 +223,7 @@ def check_strain(table: StrainTable, strain: float, spec="mf", mu: float | None 
         "plateau": plateau,
         "fixed_filling": fixed_filling(res, 0, jump_tol),
         "flags": list(res.flags[0]),
-        "caution": CAUTION,
+        "caution": method_caution(spec),
     }
     if mu is not None:
         pt = evaluate_points([model], np.array([[mu]]), spec, thresholds)
