@@ -101,7 +101,7 @@ def solutions_from_batch(result, thresholds: Thresholds = Thresholds(), method: 
 
 
 def _solve_meanfield(model: Model, method: str, options: dict) -> Solution:
-    from .classify import Thresholds
+    from .solvers import batch_solver
 
     th = options.pop("thresholds", Thresholds())
     if isinstance(th, dict):
@@ -110,16 +110,7 @@ def _solve_meanfield(model: Model, method: str, options: dict) -> Solution:
     compress = options.pop("compressibility", True)
     dmu = options.pop("dmu", 1e-4 * model.scale)
     models = [model] + ([model.replace(mu=model.mu - dmu), model.replace(mu=model.mu + dmu)] if compress else [])
-    batch = ParamBatch.from_models(models)
-    if method == "mf":
-        from .mf import MFOptions, solve_batch
-
-        check_keys("mf options", options, MFOptions.__dataclass_fields__)
-        res = solve_batch(batch, MFOptions(**options))
-    else:
-        from .cmf import solve_cmf_batch
-
-        res = solve_cmf_batch(batch, **options)
+    res = batch_solver(method, options)(ParamBatch.from_models(models))
     sols = solutions_from_batch(res, th, method=method, models=models)
     sol = sols[0]
     if compress:
