@@ -2,8 +2,8 @@
 
 The cluster solver does many small matrix-vector products and small dense
 diagonalisations; multithreaded BLAS only adds synchronisation overhead there (a factor
-2-4 slower on a loaded 2-core machine, measured). Without ``threadpoolctl`` we talk to the
-OpenBLAS libraries that numpy and scipy ship through their exported
+2-4 slower on a loaded 2-core machine, measured). Without ``threadpoolctl`` we call the
+OpenBLAS libraries that numpy and scipy ship, through their exported
 ``*_set_num_threads`` functions; if none is found this is a no-op.
 """
 
