@@ -5,13 +5,11 @@ from __future__ import annotations
 import numpy as np
 
 from .classify import Thresholds, order_parameters
-from .model import ConfigError, Model, check_keys
-from .params import ParamBatch
+from .model import ConfigError, Model
+from .methods import get_method, resolve
 from .solution import Solution, UNCONVERGED
 
-__all__ = ["solve", "solutions_from_batch", "select_winners", "METHODS", "phase_codes"]
-
-METHODS = ("mf", "cmf", "ed")
+__all__ = ["solve", "solutions_from_batch", "select_winners", "phase_codes"]
 
 
 def phase_codes():
@@ -36,29 +34,23 @@ def select_winners(result, thresholds: Thresholds = Thresholds()):
     r = np.arange(P)
     ok = best >= 0
     k = np.where(ok, best, np.argmin(result.residual, axis=1))
-    orbits = None
-    if getattr(result, "method", "mf") == "cmf":  # open cluster: only equivalent sites must agree
-        from .lattice import tile_orbits
-
-        orbits = tile_orbits(result.cell, result.batch.t, result.batch.V)
+    impl = get_method(result.method)
+    orbits = impl.site_orbits(result)  # open cluster: only equivalent sites must agree
     cls = lambda kk, okk: classify_arrays(result.batch.base, result.cell, result.n[r, kk],  # noqa: E731
                                           np.abs(result.phi[r, kk]), okk, thresholds, orbits)
     phase, label, pattern = cls(k, ok)
-    unstable = np.zeros(P, bool)
-    if getattr(result, "method", "mf") == "mf":
-        from .mf import unstable_insulators
-
-        unstable = ok & unstable_insulators(result, phase, k)
-        if unstable.any():
-            E = result.energy
-            cond = result.converged & (np.abs(result.phi).max(-1) > thresholds.condensate_tol)
-            near = cond & (E <= E[r, k][:, None] + 1e-9 * np.maximum(1.0, np.abs(E[r, k]))[:, None])
-            alt = np.argmin(np.where(near, E, np.inf), axis=1)
-            fixed = unstable & near.any(axis=1)
-            k = np.where(fixed, alt, k)
-            unstable &= ~fixed
-            ok = ok & ~unstable
-            phase, label, pattern = cls(k, ok)
+    unstable = impl.unstable_insulators(result, phase, k)
+    unstable = np.zeros(P, bool) if unstable is None else ok & unstable
+    if unstable.any():
+        E = result.energy
+        cond = result.converged & (np.abs(result.phi).max(-1) > thresholds.condensate_tol)
+        near = cond & (E <= E[r, k][:, None] + 1e-9 * np.maximum(1.0, np.abs(E[r, k]))[:, None])
+        alt = np.argmin(np.where(near, E, np.inf), axis=1)
+        fixed = unstable & near.any(axis=1)
+        k = np.where(fixed, alt, k)
+        unstable &= ~fixed
+        ok = ok & ~unstable
+        phase, label, pattern = cls(k, ok)
     return k, ok, unstable, phase, label, pattern
 
 
@@ -100,40 +92,20 @@ def solutions_from_batch(result, thresholds: Thresholds = Thresholds(), method: 
     return sols
 
 
-def _solve_meanfield(model: Model, method: str, options: dict) -> Solution:
-    from .solvers import batch_solver
-
-    th = options.pop("thresholds", Thresholds())
-    if isinstance(th, dict):
-        check_keys("thresholds", th, Thresholds.__dataclass_fields__)
-        th = Thresholds(**th)
-    compress = options.pop("compressibility", True)
-    dmu = options.pop("dmu", 1e-4 * model.scale)
-    models = [model] + ([model.replace(mu=model.mu - dmu), model.replace(mu=model.mu + dmu)] if compress else [])
-    res = batch_solver(method, options)(ParamBatch.from_models(models))
-    sols = solutions_from_batch(res, th, method=method, models=models)
-    sol = sols[0]
-    if compress:
-        if all(s.converged for s in sols):
-            sol.compressibility = (sols[2].filling - sols[1].filling) / (2 * dmu)
-        else:
-            sol.flags.append("compressibility-unavailable")
-    return sol
-
-
 def solve(model: Model, method: str = "mf", **options) -> Solution:
     """Ground state of ``model`` at its parameters.
 
     Parameters
     ----------
     model : Model
-    method : {"mf", "cmf", "ed"}
-        Site-decoupled mean field, cluster mean field (``cluster=...``), exact
-        diagonalization of a periodic cluster (``cluster=..., particles=N``).
+    method : str
+        A registered method (:func:`phasemap.methods.available`), optionally with its cluster:
+        ``"mf"`` site-decoupled mean field, ``"cmf"`` / ``"cmf:tri12"`` cluster mean field,
+        ``"ed:tri12"`` exact diagonalization of a periodic cluster (``particles=N``), ...
     **options
-        Method options (see :class:`phasemap.mf.MFOptions`, :mod:`phasemap.cmf`,
-        :mod:`phasemap.ed`), plus ``thresholds`` (:class:`phasemap.classify.Thresholds` or
-        dict) and ``compressibility`` (bool, default True: dn/dmu by central difference).
+        Method options (see the method's module in :mod:`phasemap.methods`); grand-canonical
+        methods also take ``thresholds`` (:class:`phasemap.classify.Thresholds` or dict) and
+        ``compressibility`` (bool, default True: dn/dmu by central difference).
 
     Returns
     -------
@@ -141,10 +113,5 @@ def solve(model: Model, method: str = "mf", **options) -> Solution:
     """
     if not isinstance(model, Model):
         raise ConfigError(f"model: expected a phasemap.Model, got {type(model).__name__}")
-    if method not in METHODS:
-        raise ConfigError(f"method: unknown method {method!r}; allowed: {', '.join(METHODS)}")
-    if method == "ed":
-        from .ed import solve_ed
-
-        return solve_ed(model, **options)
-    return _solve_meanfield(model, method, dict(options))
+    impl, options = resolve(method, options)
+    return impl.solve_point(model, **options)

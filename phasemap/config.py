@@ -10,8 +10,8 @@ closest valid key)::
     x = {name = "t", start = 0, stop = 0.5, num = 51}   # or {name = "t", values = [...]}
     y = {name = "mu", start = -1, stop = 7, num = 81}   # maps only
     relative = true                           # axis values in units of V (hard-core) or U
-    method = "mf"                             # "mf" or "cmf"
-    cluster = "tri3"                          # cmf only
+    method = "mf"                             # a grand-canonical method: "mf", "cmf" or "cmf:tri6"
+    cluster = "tri3"                          # methods that take a cluster (cmf) only
     refine = true                             # bisect boundaries / plateau edges
     [thresholds]  # phasemap.classify.Thresholds fields
     [solver]      # options of the method (phasemap.mf.MFOptions / phasemap.cmf.CMFOptions)
@@ -32,6 +32,7 @@ from pathlib import Path
 import numpy as np
 
 from .classify import Thresholds
+from .methods import available, get_method, resolve
 from .model import ConfigError, Model, check_keys
 
 __all__ = ["RunConfig", "ScanSpec", "Output", "load_config", "parse_config", "dumps_toml", "MAX_POINTS"]
@@ -129,9 +130,9 @@ class RunConfig:
     source: str = ""
 
     def options(self, scan: ScanSpec) -> dict:
-        """Method options of ``scan``: [solver] plus ``cluster`` for cmf."""
+        """Method options of ``scan``: [solver] plus ``cluster`` for methods that take one."""
         opts = dict(self.solver)
-        if scan.method == "cmf" and scan.cluster is not None:
+        if scan.cluster is not None:
             opts["cluster"] = scan.cluster
         return opts
 
@@ -243,15 +244,13 @@ def _axis(where: str, spec, model: Model, default_name=None) -> Axis:
     return Axis(name, arr, out)
 
 
-def _cluster(where, v, model: Model):
-    from .cmf import get_cluster
-
+def _cluster(where, v, model: Model, impl):
     if v is None:
-        return "tri3" if model.lattice == "triangular" else "sq2x2"
+        return impl.config_default_arg(model)
     if not isinstance(v, (str, dict)):
         raise ConfigError(f"{where}: expected a cluster name or a table {{vectors, sites}}, got {v!r}")
     try:
-        get_cluster(v, model.lattice)
+        impl.check_cluster(v, model)
     except ConfigError as e:
         raise ConfigError(f"{where}: {e}") from None
     except (ValueError, TypeError, KeyError) as e:
@@ -274,14 +273,26 @@ def _scan(where: str, d, model: Model, default_name: str) -> ScanSpec:
         raise ConfigError(f"{where}.x: missing; give {{name, start, stop, num}} or {{name, values}}")
     s = ScanSpec(name=name, kind=kind, x=_axis(f"{where}.x", d["x"], model, "mu" if kind == "curve" else None))
     s.relative = _bool(f"{where}.relative", d.get("relative", True))
-    s.method = d.get("method", "mf")
-    if s.method not in ("mf", "cmf"):
-        extra = " ('ed' is canonical: use the exact-diagonalization commands)" if s.method == "ed" else ""
-        raise ConfigError(f"{where}.method: expected 'mf' or 'cmf', got {s.method!r}{extra}")
-    if "cluster" in d and s.method != "cmf":
-        raise ConfigError(f"{where}.cluster: only used with method = 'cmf' (method is {s.method!r})")
-    if s.method == "cmf":
-        s.cluster = _cluster(f"{where}.cluster", d.get("cluster"), model)
+    raw = d.get("method", "mf")
+    if not isinstance(raw, str):
+        raise ConfigError(f"{where}.method: expected a method name such as 'mf' or 'cmf:tri6', got {raw!r}")
+    try:
+        impl, opts = resolve(raw.split(":")[0])
+        if ":" in raw:
+            opts = impl.parse_arg(raw.partition(":")[2])
+    except ConfigError as e:
+        raise ConfigError(f"{where}.{e}") from None
+    if not impl.capabilities.grand_canonical:
+        gc = [n for n in available() if get_method(n).capabilities.grand_canonical]
+        raise ConfigError(f"{where}.method: {impl.name!r} ({impl.title}) is not grand canonical; maps and curves "
+                          f"need one of {', '.join(gc)} (use the method's own commands)")
+    s.method = impl.name
+    if "cluster" in d and not impl.capabilities.cluster:
+        raise ConfigError(f"{where}.cluster: only used with a method that takes a cluster (method is {s.method!r})")
+    if "cluster" in d and ":" in raw:
+        raise ConfigError(f"{where}.cluster: the method {raw!r} already names its cluster; give one of the two")
+    if impl.capabilities.cluster:
+        s.cluster = _cluster(f"{where}.cluster", d.get("cluster", opts.get("cluster")), model, impl)
     s.refine = _bool(f"{where}.refine", d.get("refine", True))
     axes = {s.x.name: s.x.values}
     if kind == "map":
@@ -308,15 +319,7 @@ def _scan(where: str, d, model: Model, default_name: str) -> ScanSpec:
 
 def _solver(d, methods) -> dict:
     d = dict(_table("[solver]", d))
-    from .mf import MFOptions
-
-    sets = []
-    if "mf" in methods:
-        sets.append(set(MFOptions.__dataclass_fields__))
-    if "cmf" in methods:
-        from .cmf import CMFOptions
-
-        sets.append(set(CMFOptions.__dataclass_fields__))
+    sets = [set(get_method(m).option_names()) - {"cluster"} for m in methods]
     allowed = set.intersection(*sets)  # options shared by every method of the run
     check_keys(f"[solver] (method {'/'.join(sorted(methods))})", d, sorted(allowed))
     for k, v in d.items():

@@ -23,9 +23,9 @@ from .api import phase_codes, select_winners
 from .classify import Thresholds, filling_label
 from .model import ConfigError, Model
 from .params import ParamBatch, grid, points
-from .solvers import batch_solver
+from .methods import resolve
 
-__all__ = ["phase_map", "filling_curve", "FillingCurve", "refine_boundaries", "evaluate"]
+__all__ = ["phase_map", "filling_curve", "filling_curves", "FillingCurve", "refine_boundaries", "evaluate"]
 
 INCOMPRESSIBLE = ("empty", "full", "mott", "solid")
 
@@ -45,7 +45,8 @@ def evaluate(batch: ParamBatch, method="mf", options=None, thresholds=Thresholds
     ``checkpoint``: optional object with ``load(i) -> dict | None`` and ``save(i, dict)`` used
     to resume a long scan chunk by chunk (see :class:`phasemap.store.ChunkStore`).
     """
-    solver = batch_solver(method, options)
+    impl, options = resolve(method, options)
+    solver = impl.batch_solver(options)
     P = batch.size
     starts = list(range(0, P, chunk))
     parts = []
@@ -180,13 +181,8 @@ def phase_map(model: Model, x=("t", None), y=("mu", None), relative=True, method
 
 def _sites_of(method, options, batch):
     """Lattice coordinates of the sites the per-site arrays refer to."""
-    if method == "cmf":  # arrays live on the cluster's sites
-        from .cmf import get_cluster
-
-        return get_cluster((options or {}).get("cluster", "tri12"), batch.base.lattice).cell.sites
-    from .lattice import search_cell
-
-    return search_cell(batch.base.lattice).sites
+    impl, options = resolve(method, options)
+    return impl.site_coordinates(batch, options)
 
 
 def refine_boundaries(model, ds, relative=True, method="mf", options=None, thresholds=Thresholds(),
@@ -399,3 +395,15 @@ def filling_curve(model: Model, mu=None, relative=True, method="mf", options=Non
     ds.attrs["plateaus"] = json.dumps(curve.plateaus)
     ds.attrs["jumps"] = json.dumps(curve.jumps)
     return curve
+
+
+def filling_curves(model, mu, methods=("mf",)) -> tuple[dict, list]:
+    """``{method: (mu, filling)}`` (absolute mu, no refinement) for every method that runs, and notes for the rest."""
+    curves, notes = {}, []
+    for m in methods:
+        try:
+            fc = filling_curve(model, mu=np.asarray(mu, float), relative=False, method=m, refine=False)
+            curves[m] = (np.asarray(fc.mu, float), np.asarray(fc.filling, float))
+        except Exception as e:  # noqa: BLE001 - overlay is optional; report why it is missing
+            notes.append(f"{m} filling curve unavailable: {type(e).__name__}: {e}")
+    return curves, notes

@@ -30,7 +30,7 @@ class Solution:
     ----------
     model : Model
     method : str
-        "mf", "cmf" or "ed".
+        The method as spelled everywhere: ``"mf"``, ``"cmf:tri12"``, ``"ed:tri21"``, ...
     phase : str
         One of :data:`PHASES`, or ``"unconverged"``.
     label : str
@@ -57,6 +57,10 @@ class Solution:
         (N, 2) integer lattice coordinates of the sites the arrays refer to.
     branches : list of dict
         Every seed's end state: seed name, energy, converged, filling, phase.
+    errors : dict
+        One-sigma statistical errors keyed like the fields they belong to (``"energy"``,
+        ``"filling"``, ``"compressibility"``, ``"structure_factor"``, ``"stiffness"``, or an
+        ``order`` key); empty for deterministic methods.
     """
 
     model: Model
@@ -78,6 +82,7 @@ class Solution:
     branches: list = field(default_factory=list)
     compressibility: float | None = None
     extra: dict = field(default_factory=dict)
+    errors: dict = field(default_factory=dict)
 
     # scipy-like reading
     @property
@@ -98,20 +103,24 @@ class Solution:
             return f"converged in {self.iterations} iterations (residual {self.residual:.2e})"
         return f"NOT converged after {self.iterations} iterations (residual {self.residual:.2e})"
 
+    def _pm(self, key) -> str:
+        e = self.errors.get(key)
+        return f" ± {e:.2g}" if isinstance(e, (float, int)) and not isinstance(e, bool) else ""
+
     def summary(self) -> str:
         m = self.model
         lines = [
             f"model    : {m.describe()}",
             f"method   : {self.method}",
             f"phase    : {self.phase}   ({self.label})",
-            f"filling  : {self.filling:.6f}",
-            f"energy   : {self.energy:.10g} {m.unit} per site",
+            f"filling  : {self.filling:.6f}{self._pm('filling')}",
+            f"energy   : {self.energy:.10g}{self._pm('energy')} {m.unit} per site",
             f"status   : {self.message}; winning seed {self.seed!r}",
             "densities: " + " ".join(f"{x:.4f}" for x in self.densities),
             "|<b>|    : " + " ".join(f"{x:.4f}" for x in self.condensate),
         ]
         if self.order:
-            lines.append("order    : " + ", ".join(f"{k}={_fmt(v)}" for k, v in self.order.items()))
+            lines.append("order    : " + ", ".join(f"{k}={_fmt(v)}{self._pm(k)}" for k, v in self.order.items()))
         if self.compressibility is not None:
             lines.append(f"dn/dmu   : {self.compressibility:.6g} per {m.unit}")
         if self.flags:
@@ -139,6 +148,7 @@ class Solution:
             "flags": list(self.flags),
             "sites": None if self.sites is None else np.asarray(self.sites).tolist(),
             "branches": [{k: _jsonable(v) for k, v in b.items()} for b in self.branches],
+            "errors": {k: _jsonable(v) for k, v in self.errors.items()},
         }
         if self.extra:
             d["extra"] = {k: _jsonable(v) for k, v in self.extra.items()}

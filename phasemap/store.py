@@ -32,7 +32,7 @@ import xarray as xr
 
 from .model import ConfigError
 
-__all__ = ["atomic_path", "atomic_write_text", "save_netcdf", "load_netcdf", "save_csv", "load_csv",
+__all__ = ["dumps_json", "atomic_path", "atomic_write_text", "save_netcdf", "load_netcdf", "save_csv", "load_csv",
            "curve_to_dataset", "ChunkStore", "params_hash", "jsonable"]
 
 
@@ -358,3 +358,18 @@ class ChunkStore:
         self.clear()
         with contextlib.suppress(OSError):
             self.folder.rmdir()
+
+
+def _clean(v):
+    if isinstance(v, float):
+        return None if math.isnan(v) else (("inf" if v > 0 else "-inf") if math.isinf(v) else v)
+    if isinstance(v, dict):
+        return {k: _clean(x) for k, x in v.items()}
+    if isinstance(v, (list, tuple)):
+        return [_clean(x) for x in v]
+    return v
+
+
+def dumps_json(d) -> str:
+    """Strict JSON (NaN -> null, inf -> "inf"), indented."""
+    return json.dumps(_clean(jsonable(d)), indent=2, allow_nan=False)

@@ -67,7 +67,7 @@ def test_front_door_and_classification():
     # phasemap.solve(model, method="cmf", cluster=...) returns a classified Solution
     m = Model("triangular", t=0.02, V=1.0, mu=1.5)
     sol = solve(m, method="cmf", cluster="tri3")
-    assert sol.method == "cmf" and sol.converged
+    assert sol.method == "cmf:tri3" and sol.converged  # one spelling: method with its cluster
     assert sol.phase == "solid" and sol.label.startswith("solid 1/3")  # t=0 plateau 0<mu<3 (DESIGN §4)
     sol = solve(Model("triangular", t=0.3, V=0.0, mu=0.0), method="cmf", cluster="tri3")
     assert sol.phase == "superfluid"

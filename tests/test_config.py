@@ -76,7 +76,7 @@ BAD = [
      ["x.values", "increasing"]),
     (('name = "t"', 'name = "tt"'), ["x.name", "did you mean 't'"]),
     (('kind = "map"', 'kind = "line"'), ["kind", "'map' or 'curve'"]),
-    (('kind = "map"', 'kind = "map"\nmethod = "ed"'), ["method", "'mf' or 'cmf'"]),
+    (('kind = "map"', 'kind = "map"\nmethod = "ed"'), ["method", "not grand canonical", "mf, cmf"]),
     (('kind = "map"', 'kind = "map"\nrefine_tol = 0.5'), ["refine_tol", "<= 0.1"]),
     (("[scan]", "[solver]\nmax_itr = 10\n[scan]"), ["max_itr", "did you mean 'max_iter'"]),
     (("[scan]", "[solver]\nmixing = 1.5\n[scan]"), ["mixing", "<= 1"]),

@@ -9,7 +9,7 @@ def test_exact_single_sector_json(capsys):
     rc = main(["exact", "--t", "0.1", "--V", "1", "--hardcore", "--cluster", "tri9", "--particles", "3", "--json"])
     assert rc == 0
     d = json.loads(capsys.readouterr().out)
-    assert d["method"] == "ed" and abs(d["filling"] - 1 / 3) < 1e-12
+    assert d["method"] == "ed:tri9" and abs(d["filling"] - 1 / 3) < 1e-12
     assert d["extra"]["N"] == 3 and "S(K)/N" in d["order"]
 
 

@@ -3,10 +3,67 @@
 from __future__ import annotations
 
 import argparse
-import json
 import math
 
-__all__ = ["float_list", "finite_float", "positive_int", "width_arg", "dumps_json"]
+from ..store import dumps_json  # noqa: F401  (re-exported for the commands)
+
+__all__ = ["float_list", "finite_float", "positive_int", "width_arg", "dumps_json", "add_model_options",
+           "model_from_args", "add_method_option", "method_help", "resolve_method"]
+
+
+def add_model_options(p, mu_help: str = "chemical potential (default 0)") -> None:
+    """The model options shared by every command that takes a model on the command line."""
+    p.add_argument("--lattice", default="triangular", choices=("triangular", "square"), help="lattice (default triangular)")
+    p.add_argument("--t", type=float_list, default=0.0, metavar="T",
+                   help="hopping: one value or a comma list, one per bond family (default 0)")
+    p.add_argument("--V", type=float_list, default=0.0, metavar="V",
+                   help="nearest-neighbour repulsion: one value or one per bond family (default 0)")
+    core = p.add_mutually_exclusive_group()
+    core.add_argument("--U", type=finite_float, default=None, metavar="U", help="on-site repulsion (soft-core bosons)")
+    core.add_argument("--hardcore", action="store_true", help="hard-core bosons, U = inf (the default without --U)")
+    p.add_argument("--V2", type=finite_float, default=0.0, help="next-nearest-neighbour repulsion (default 0)")
+    p.add_argument("--mu", type=finite_float, default=0.0, help=mu_help)
+    p.add_argument("--n-max", type=positive_int, default=None, dest="n_max",
+                   help="occupation cut-off for soft-core bosons (default chosen from mu/U)")
+    p.add_argument("--unit", default=None, help="energy unit label of all energies (default: V for hard-core, U for soft-core)")
+
+
+def model_from_args(args):
+    """The :class:`phasemap.Model` described by the options of :func:`add_model_options`."""
+    from ..model import Model
+
+    U = math.inf if args.U is None else args.U
+    return Model(lattice=args.lattice, t=args.t, V=args.V, U=U, V2=args.V2, mu=args.mu, n_max=args.n_max,
+                 unit=args.unit)
+
+
+def method_help(grand_canonical_only: bool = False) -> str:
+    """One line per registered method for ``--help``."""
+    from ..methods import available, get_method
+
+    items = []
+    for n in available():
+        m = get_method(n)
+        if grand_canonical_only and not m.capabilities.grand_canonical:
+            continue
+        items.append(f"{n}{'[:<cluster>]' if m.capabilities.cluster else ''} ({m.title})")
+    return "; ".join(items)
+
+
+def resolve_method(text: str, flag: str = "--method"):
+    """``(method, options)`` from a command-line spec; errors name the flag."""
+    from ..methods import resolve
+    from ..model import ConfigError
+
+    try:
+        return resolve(text)
+    except ConfigError as e:
+        raise ConfigError(f"{flag} {text}: {e}") from None
+
+
+def add_method_option(p, flag: str = "--method", default: str = "mf", extra: str = "") -> None:
+    """The method option, spelled as everywhere: ``mf``, ``cmf:tri12``, ``ed:tri21``."""
+    p.add_argument(flag, default=default, help=f"{method_help()}{extra} (default {default})")
 
 
 def finite_float(text: str) -> float:
@@ -50,20 +107,3 @@ def width_arg(text: str):
         return figure_width(float(text))
     except Exception:
         raise argparse.ArgumentTypeError(f"expected 'single', 'double' or inches (1 to 12), got {text!r}") from None
-
-
-def _clean(v):
-    if isinstance(v, float):
-        return None if math.isnan(v) else (("inf" if v > 0 else "-inf") if math.isinf(v) else v)
-    if isinstance(v, dict):
-        return {k: _clean(x) for k, x in v.items()}
-    if isinstance(v, (list, tuple)):
-        return [_clean(x) for x in v]
-    return v
-
-
-def dumps_json(d) -> str:
-    """Strict JSON (NaN -> null, inf -> "inf"), indented."""
-    from ..store import jsonable
-
-    return json.dumps(_clean(jsonable(d)), indent=2, allow_nan=False)

@@ -8,7 +8,7 @@ import math
 import time
 from pathlib import Path
 
-from ._common import dumps_json, finite_float, float_list, positive_int
+from ._common import add_model_options, dumps_json, finite_float, model_from_args, resolve_method
 
 __all__ = ["register"]
 
@@ -27,16 +27,7 @@ def register(sub) -> None:
                        "ground state at N (with observables); a range or no --particles gives the "
                        "canonical staircase and a figure against the mean-field filling curves.",
                        epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
-    p.add_argument("--lattice", default="triangular", choices=("triangular", "square"), help="lattice (default triangular)")
-    p.add_argument("--t", type=float_list, default=0.0, metavar="T", help="hopping, one value or one per bond family")
-    p.add_argument("--V", type=float_list, default=0.0, metavar="V", help="nearest-neighbour repulsion, one or per family")
-    core = p.add_mutually_exclusive_group()
-    core.add_argument("--U", type=finite_float, default=None, help="on-site repulsion (soft-core; needs --n-max or default)")
-    core.add_argument("--hardcore", action="store_true", help="hard-core bosons (default without --U)")
-    p.add_argument("--V2", type=finite_float, default=0.0, help="next-nearest-neighbour repulsion (default 0)")
-    p.add_argument("--mu", type=finite_float, default=0.0, help="chemical potential included in E0 (default 0)")
-    p.add_argument("--n-max", type=positive_int, default=None, dest="n_max", help="occupation cut-off (soft-core)")
-    p.add_argument("--unit", default=None, help="energy unit label (default: V for hard-core, U for soft-core)")
+    add_model_options(p, mu_help="chemical potential included in E0 (default 0)")
     p.add_argument("--cluster", default="tri12", help="library name or vectors 'i1,j1;i2,j2' (default tri12)")
     p.add_argument("--particles", default=None, metavar="N|A:B",
                    help="particle number N, or inclusive range A:B (default: all N = staircase)")
@@ -53,13 +44,6 @@ def register(sub) -> None:
     p.add_argument("--out", default=None, help="output folder for data (.nc, .csv, .json) and figure")
     p.add_argument("--json", action="store_true", help="print results as JSON")
     p.set_defaults(func=run)
-
-
-def _model(args):
-    from ..model import Model
-
-    U = math.inf if args.U is None else args.U
-    return Model(lattice=args.lattice, t=args.t, V=args.V, U=U, V2=args.V2, mu=args.mu, n_max=args.n_max, unit=args.unit)
 
 
 def _cluster(text):
@@ -90,11 +74,18 @@ def _particles(text):
 
 def run(args) -> int:
     from ..ed import save_dataset, solve_ed, staircase
+    from ..model import ConfigError
     from ..store import atomic_write_text
 
-    model = _model(args)
+    model = model_from_args(args)
     cluster = _cluster(args.cluster)
     N, rng = _particles(args.particles)
+    overlay = tuple(m.strip() for m in args.mf_methods.split(",") if m.strip())
+    for m in overlay:  # refuse before any solving
+        impl, _ = resolve_method(m, "--mf-methods")
+        if not impl.capabilities.grand_canonical:
+            raise ConfigError(f"--mf-methods {m}: {impl.title} is not grand canonical; overlays need a "
+                              "filling curve (e.g. mf, cmf:tri3)")
     out = Path(args.out) if args.out else None
     if N is not None:
         t0 = time.perf_counter()
@@ -117,11 +108,11 @@ def run(args) -> int:
     if out:
         files += [str(save_dataset(ds, out / "staircase.nc")), str(save_dataset(ds, out / "staircase.csv"))]
         if not args.no_figure:
-            from ..ed.plot import plot_staircase
+            from ..ed.plot import overlay_grid, plot_staircase
+            from ..scan import filling_curves
 
-            methods = tuple(m for m in args.mf_methods.split(",") if m)
-            figs, notes = plot_staircase(ds, model, str(out / "staircase"), methods=methods,
-                                         title=f"{model.describe()}")
+            curves, notes = filling_curves(model, overlay_grid(ds)[1], overlay)
+            figs = plot_staircase(ds, model, str(out / "staircase"), curves, title=f"{model.describe()}")
             files += figs
     elif not args.no_figure:
         notes.append("no --out folder: figure not drawn")

@@ -64,12 +64,13 @@ def register(sub) -> None:
 
 
 def _spec(method: str, cluster):
+    from ..methods import MethodSpec, get_method
     from ..model import ConfigError
-    from ..strain.engine import MethodSpec
 
     if cluster is not None:
-        if ":" in method or method.strip().lower() not in ("cmf", "ed"):
-            raise ConfigError(f"--cluster: only with --method cmf or --method ed (got --method {method!r})")
+        if ":" in method or not get_method(method).capabilities.cluster:
+            raise ConfigError(f"--cluster: only with a method that takes a cluster, e.g. --method cmf "
+                              f"(got --method {method!r})")
         method = f"{method.strip().lower()}:{cluster}"
     return MethodSpec.parse(method)
 
@@ -85,10 +86,7 @@ def run_check(args) -> int:
     parse_fraction(args.fraction)
     table = read_table(args.table)
     table.check_range(args.strain, args.extrapolate)  # refuse before any solving
-    if spec.method == "ed":
-        from ..strain.ed_method import ed_setup
-
-        ed_setup(spec, [table.model(args.strain, extrapolate=args.extrapolate)], args.fraction)
+    spec.impl.check_setup(spec, [table.model(args.strain, extrapolate=args.extrapolate)], args.fraction)
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         res = check_strain(table, args.strain, spec, mu=args.mu, fraction=args.fraction,
@@ -107,12 +105,13 @@ def run_sweep(args) -> int:
     import warnings
 
     from ..strain import read_table
-    from ..strain.engine import parse_fraction, parse_methods
+    from ..methods import parse_specs
+    from ..strain.engine import parse_fraction
     from ..strain.sensitivity import parse_lambdas
     from ..strain.sweep import strain_sweep
     from ._common import dumps_json
 
-    specs = parse_methods(args.methods)
+    specs = parse_specs(args.methods)
     from ..model import ConfigError
 
     parse_fraction(args.fraction)

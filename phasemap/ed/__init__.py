@@ -9,8 +9,8 @@ from .clusters import CLUSTERS, chain, check_bonds, get_cluster, momentum_classe
 from .groundstate import GroundState, ground_state
 from .guard import DEFAULT_BUDGET_GIB, estimate, fock_dimension
 from .io import save_dataset
-from .solve import EDThresholds, observables, solve_ed
-from .staircase import filling_from_staircase, particle_hole_shift, scan_ed, staircase
+from .solve import EDThresholds, observables, scan_ed, solve_ed
+from .staircase import filling_from_staircase, particle_hole_shift, staircase
 
 __all__ = ["CLUSTERS", "chain", "check_bonds", "get_cluster", "momentum_classes", "point_group",
            "GroundState", "ground_state", "DEFAULT_BUDGET_GIB", "estimate", "fock_dimension",

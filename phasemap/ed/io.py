@@ -1,10 +1,12 @@
-"""Saving ED results through :mod:`phasemap.store` (atomic: temporary file + ``os.replace``)."""
+"""Reading and saving ED staircase data; saving goes through :mod:`phasemap.store` (atomic: temporary file + ``os.replace``)."""
 
 from __future__ import annotations
 
 from pathlib import Path
 
-__all__ = ["save_dataset"]
+import numpy as np
+
+__all__ = ["save_dataset", "filling_from_staircase"]
 
 
 def save_dataset(ds, path) -> Path:
@@ -24,3 +26,15 @@ def save_dataset(ds, path) -> Path:
         cols.update({k: ds[k].values for k in ds.data_vars})
         return store.save_csv(path, cols, dict(ds.attrs))
     raise ValueError(f"output: expected a .nc or .csv file name, got {path.name!r}")
+
+
+def filling_from_staircase(ds, mu) -> np.ndarray:
+    """Grand-canonical filling N*(mu)/L of the cluster from a staircase Dataset.
+
+    Only the particle numbers in ``ds`` compete (use the full range for a true staircase).
+    """
+    mu = np.atleast_1d(np.asarray(mu, float))
+    Ec = ds["E_canonical"].values
+    N = ds["N"].values
+    k = np.argmin(Ec[None, :] - mu[:, None] * N[None, :], axis=1)
+    return N[k] / int(ds.attrs["n_sites"])

@@ -34,9 +34,12 @@ from __future__ import annotations
 
 import numpy as np
 
+import math
+
+from ..model import ConfigError
 from .sector import Sector
 
-__all__ = ["density_correlation", "structure_factor", "one_body", "stiffness"]
+__all__ = ["density_correlation", "structure_factor", "one_body", "stiffness", "measure"]
 
 
 def _displacement_index(sector: Sector) -> np.ndarray:
@@ -105,4 +108,36 @@ def stiffness(sector: Sector, q, e0: float, vec, phi: float = 1e-2, tol: float =
             em = sector.solve(q, A=-h * e, v0=vec, tol=tol).e0
             curv.append((ep + em - 2 * e0) / (sector.L * h**2))
         out[name] = float((4 * curv[0] - curv[1]) / 3)  # Richardson: error O(phi^4)
+    return out
+
+
+def measure(gs, which=("sq", "condensate", "stiffness"), phi: float = 1e-2, tol: float = 1e-12) -> dict:
+    """Measure ground-state observables; returns a dict (see module notes)."""
+    out = {}
+    allowed = {"sq", "condensate", "stiffness"}
+    bad = set(which) - allowed
+    if bad:
+        raise ConfigError(f"observables: unknown {sorted(bad)}; allowed: {sorted(allowed)}")
+    sec, q, vec, cell = gs.sector, gs.q, gs.vec, gs.cell
+    if "sq" in which:
+        mom, sq = structure_factor(sec, q, vec)
+        sq_n = sq / cell.n_sites
+        nz = np.any(np.abs(np.mod(mom + 0.5, 1) - 0.5) > 1e-9, axis=1)
+        out["momenta"], out["sq"] = mom, sq
+        if nz.any():
+            k = int(np.argmax(np.where(nz, sq_n, -np.inf)))
+            out["sq_max"], out["q_max"] = float(sq_n[k]), cell.momentum_name(mom[k])
+        if "K" in cell.lattice.special_q:
+            Kq = np.array(cell.lattice.special_q["K"], float)
+            hit = np.all(np.abs(np.mod(mom - Kq + 0.5, 1) - 0.5) < 1e-9, axis=1)
+            out["S(K)/N"] = float(sq_n[hit][0]) if hit.any() else math.nan
+    if "condensate" in which and sec.group.orders:
+        ob = one_body(sec, q, vec)
+        out["condensate_fraction"] = ob["condensate_fraction"]
+        out["nk"], out["k_condensate"] = ob["nk"], cell.momentum_name(ob["k_max"])
+        out["lambda_max"] = float(np.max(ob["nk"]))
+    if "stiffness" in which:
+        st = stiffness(sec, q, gs.e0, vec, phi=phi, tol=tol)
+        out["stiffness_families"] = st
+        out["stiffness"] = float(np.mean(list(st.values())))
     return out

@@ -1,46 +1,20 @@
 """Figure: the ED staircase n(mu) of a cluster over the mean-field filling curve(s).
 
-The mean-field curves come from :func:`phasemap.scan.filling_curve` (``method="mf"``, and
-``"cmf"`` when available) evaluated with absolute chemical potentials.
+The figure never solves: it is handed the mean-field curves as data
+(``{method: (mu, filling)}``, e.g. from :func:`phasemap.scan.filling_curves`).
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from .staircase import filling_from_staircase
+from .io import filling_from_staircase
 
-__all__ = ["mean_field_curves", "plot_staircase"]
-
-
-def mean_field_curves(model, mu, methods=("mf",)) -> tuple[dict, list]:
-    """{method: (mu, filling)} for the methods that are available, and notes for the rest."""
-    curves, notes = {}, []
-    try:
-        from ..scan import filling_curve
-    except ImportError as e:
-        return curves, [f"mean-field overlay unavailable (phasemap.scan.filling_curve: {e})"]
-    for m in methods:
-        try:
-            fc = filling_curve(model, mu=np.asarray(mu, float), relative=False, method=m, refine=False)
-            curves[m] = (np.asarray(fc.mu, float), np.asarray(fc.filling, float))
-        except Exception as e:  # noqa: BLE001 - overlay is optional; report why it is missing
-            notes.append(f"{m} filling curve unavailable: {type(e).__name__}: {e}")
-    return curves, notes
+__all__ = ["plot_staircase", "overlay_grid"]
 
 
-def plot_staircase(ds, model, path_stem, mu=None, methods=("mf",), title=None, n_mf=161) -> tuple[list, list]:
-    """Draw n(mu) of the cluster (steps) over the mean-field curves; save PNG and PDF.
-
-    ``methods`` lists the mean-field filling curves to overlay ("mf"; "cmf" is much slower),
-    evaluated on ``n_mf`` chemical potentials. Returns (written paths, notes about missing
-    overlays).
-    """
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
+def overlay_grid(ds, mu=None, n_mf=161):
+    """``(mu, mu_mf)``: the chemical potentials of the staircase figure and of its overlays."""
     mu_p, mu_m = ds["mu_plus"].values, ds["mu_minus"].values
     finite = np.concatenate([mu_p[np.isfinite(mu_p)], mu_m[np.isfinite(mu_m)]])
     if mu is None:
@@ -48,12 +22,25 @@ def plot_staircase(ds, model, path_stem, mu=None, methods=("mf",), title=None, n
         pad = 0.1 * (hi - lo + 1e-9)
         mu = np.linspace(lo - pad, hi + pad, 801)
     mu = np.asarray(mu, float)
+    return mu, np.linspace(mu[0], mu[-1], n_mf)
+
+
+def plot_staircase(ds, model, path_stem, curves=None, mu=None, title=None) -> list:
+    """Draw n(mu) of the cluster (steps) over the given filling curves; save PNG and PDF.
+
+    ``curves`` is ``{method: (mu, filling)}`` (data, computed by the caller); ``mu`` the
+    chemical potentials of the steps (default :func:`overlay_grid`). Returns the written paths.
+    """
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    mu, _ = overlay_grid(ds, mu)
     n_ed = filling_from_staircase(ds, mu)
-    mu_mf = np.linspace(mu[0], mu[-1], n_mf)
-    curves, notes = mean_field_curves(model, mu_mf, methods) if methods else ({}, [])
     fig, ax = plt.subplots(figsize=(3.4, 2.6), dpi=200)
     style = {"mf": ("C0", "-", "mean field"), "cmf": ("C2", "--", "cluster mean field")}
-    for m, (x, y) in curves.items():
+    for m, (x, y) in (curves or {}).items():
         c, ls, lab = style.get(m, ("C3", ":", m))
         ax.plot(x, y, color=c, ls=ls, lw=1.2, label=lab)
     L = int(ds.attrs["n_sites"])
@@ -73,4 +60,4 @@ def plot_staircase(ds, model, path_stem, mu=None, methods=("mf",), title=None, n
         fig.savefig(p)
         out.append(p)
     plt.close(fig)
-    return out, notes
+    return out

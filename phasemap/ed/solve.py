@@ -12,7 +12,9 @@ What the :class:`phasemap.solution.Solution` fields mean for ED (finite cluster,
   ``gap`` (mu+ - mu-);
 * ``phase``: a finite-size indicator (see :class:`EDThresholds`), never a thermodynamic
   statement; ``flags`` record degeneracies and the thresholds used;
-* ``residual`` = ||H psi - E0 psi||; ``iterations`` = number of momentum sectors solved;
+* ``residual`` = ||H psi - E0 psi||; ``converged`` = residual <= :data:`RESIDUAL_TOL` x max(1, |E0|)
+  (an eigensolver that stopped short is flagged, not reported as converged);
+  ``iterations`` = number of momentum sectors solved;
 * ``extra``: cluster, N, E0, momentum, every sector energy, dimensions, times, S(Q) at all
   momenta, n(k), mu+(N), mu-(N).
 
@@ -25,19 +27,21 @@ References
 
 from __future__ import annotations
 
+import json
 import math
 from dataclasses import asdict, dataclass
 from fractions import Fraction
 
 import numpy as np
 
+from .. import __version__
 from ..lattice import patterns_for
 from ..model import ConfigError, Model, check_keys
 from ..solution import Solution
 from .groundstate import ground_state
-from .observables import one_body, stiffness, structure_factor
+from .observables import measure as observables
 
-__all__ = ["EDThresholds", "solve_ed", "observables", "indicator"]
+__all__ = ["EDThresholds", "solve_ed", "observables", "indicator", "scan_ed"]
 
 
 @dataclass(frozen=True)
@@ -57,38 +61,6 @@ class EDThresholds:
     sq: float = 0.05
     stiffness: float = 0.1
     gap: float = 1e-9
-
-
-def observables(gs, which=("sq", "condensate", "stiffness"), phi: float = 1e-2, tol: float = 1e-12) -> dict:
-    """Measure ground-state observables; returns a dict (see module notes)."""
-    out = {}
-    allowed = {"sq", "condensate", "stiffness"}
-    bad = set(which) - allowed
-    if bad:
-        raise ConfigError(f"observables: unknown {sorted(bad)}; allowed: {sorted(allowed)}")
-    sec, q, vec, cell = gs.sector, gs.q, gs.vec, gs.cell
-    if "sq" in which:
-        mom, sq = structure_factor(sec, q, vec)
-        sq_n = sq / cell.n_sites
-        nz = np.any(np.abs(np.mod(mom + 0.5, 1) - 0.5) > 1e-9, axis=1)
-        out["momenta"], out["sq"] = mom, sq
-        if nz.any():
-            k = int(np.argmax(np.where(nz, sq_n, -np.inf)))
-            out["sq_max"], out["q_max"] = float(sq_n[k]), cell.momentum_name(mom[k])
-        if "K" in cell.lattice.special_q:
-            Kq = np.array(cell.lattice.special_q["K"], float)
-            hit = np.all(np.abs(np.mod(mom - Kq + 0.5, 1) - 0.5) < 1e-9, axis=1)
-            out["S(K)/N"] = float(sq_n[hit][0]) if hit.any() else math.nan
-    if "condensate" in which and sec.group.orders:
-        ob = one_body(sec, q, vec)
-        out["condensate_fraction"] = ob["condensate_fraction"]
-        out["nk"], out["k_condensate"] = ob["nk"], cell.momentum_name(ob["k_max"])
-        out["lambda_max"] = float(np.max(ob["nk"]))
-    if "stiffness" in which:
-        st = stiffness(sec, q, gs.e0, vec, phi=phi, tol=tol)
-        out["stiffness_families"] = st
-        out["stiffness"] = float(np.mean(list(st.values())))
-    return out
 
 
 def _pattern(cell, q_name: str) -> str:
@@ -123,7 +95,11 @@ def indicator(model: Model, cell, N: int, obs: dict, gap: float | None, th: EDTh
     return "solid", f"insulating {frac} (no density order on this cluster)", "", flags
 
 
-_OPTIONS = {"symmetric", "point_group_reduce", "budget_gib", "tol", "lookup", "observables", "phi",
+#: Largest accepted eigen-residual ||H psi - E0 psi|| relative to max(1, |E0|) (the eigensolver
+#: targets 1e-12; energies are then accurate to ~1e-20).
+RESIDUAL_TOL = 1e-6
+
+ED_OPTIONS = {"symmetric", "point_group_reduce", "budget_gib", "tol", "lookup", "observables", "phi",
             "neighbors", "thresholds", "all_momenta"}
 
 
@@ -165,7 +141,7 @@ def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Soluti
     >>> round(sol.order["S(K)/N"], 3) > 0.05
     True
     """
-    check_keys("ed options", options, _OPTIONS)
+    check_keys("ed options", options, ED_OPTIONS)
     th = options.pop("thresholds", EDThresholds())
     if isinstance(th, dict):
         check_keys("thresholds", th, EDThresholds.__dataclass_fields__)
@@ -196,6 +172,9 @@ def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Soluti
         if mu_p is not None and mu_m is not None:
             gap = mu_p - mu_m
     phase, label, pattern, flags = indicator(model, cell, N, obs, gap, th)
+    converged = bool(gs.residual <= RESIDUAL_TOL * max(1.0, abs(gs.e0)))
+    if not converged:
+        flags.append(f"eigensolver residual {gs.residual:.1e} above {RESIDUAL_TOL:g} x max(1, |E0|)")
     if len(gs.degenerate) > 1:
         flags.append("degenerate-momenta " + ",".join(gs.degenerate))
     lam = obs.get("lambda_max", math.nan)
@@ -218,9 +197,40 @@ def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Soluti
     if gap is not None:
         comp = math.inf if gap <= 0 else 1.0 / (L * gap)
     return Solution(
-        model=model, method="ed", phase=phase, label=label, filling=N / L,
+        model=model, method=f"ed:{cluster}" if isinstance(cluster, str) else "ed", phase=phase, label=label, filling=N / L,
         densities=np.full(L, N / L), condensate=np.full(L, math.sqrt(max(lam, 0.0) / L) if lam == lam else math.nan),
-        energy=gs.e0 / L, converged=True, iterations=len(gs.sector_e0), residual=gs.residual,
+        energy=gs.e0 / L, converged=converged, iterations=len(gs.sector_e0), residual=gs.residual,
         seed=f"Q={gs.q_name}", pattern=pattern, order=order, flags=flags, sites=cell.sites.copy(),
         compressibility=comp, extra=extra,
     )
+
+
+def scan_ed(model: Model, param: str, values, cluster="tri12", particles=None, **options):
+    """Solve ED at each value of one model parameter; returns an xarray Dataset.
+
+    ``param`` is any Model field (``t``, ``V``, ``U``, ``V2``, ``mu``); per-family parameters
+    take a scalar (isotropic) or a tuple per value. Variables: ``energy`` (per site), ``N``,
+    ``SK_per_site``, ``sq_max``, ``condensate_fraction``, ``stiffness``, ``gap``, ``phase``.
+    """
+    import xarray as xr
+
+    fields = set(model.to_dict())
+    if param not in fields or param in ("lattice", "unit", "n_max"):
+        raise ConfigError(f"scan: parameter must be one of t, V, U, V2, mu, got {param!r}")
+    values = list(values)
+    rows = []
+    for v in values:
+        sol = solve_ed(model.replace(**{param: v}), cluster=cluster, particles=particles, **options)
+        rows.append(sol)
+    coord = np.array([np.mean(v) if np.ndim(v) else v for v in values], float)
+    get = lambda k: np.array([s.order.get(k, np.nan) for s in rows], float)  # noqa: E731
+    ds = xr.Dataset({
+        "energy": (param, np.array([s.energy for s in rows]), {"units": model.unit}),
+        "N": (param, np.array([s.extra["N"] for s in rows])),
+        "SK_per_site": (param, get("S(K)/N")), "sq_max": (param, get("sq_max")),
+        "condensate_fraction": (param, get("condensate_fraction")), "stiffness": (param, get("stiffness")),
+        "gap": (param, get("gap")), "phase": (param, np.array([s.phase for s in rows]).astype(str)),
+    }, coords={param: coord})
+    ds.attrs.update({"model": json.dumps(model.to_dict()), "method": "ed", "version": __version__,
+                     "kind": f"ED scan over {param}", "cluster": json.dumps(rows[0].extra["cluster"])})
+    return ds

@@ -34,8 +34,9 @@ from ..model import ConfigError, Model
 from .clusters import get_cluster
 from .groundstate import check_particles, ground_state
 from .guard import DEFAULT_BUDGET_GIB
+from .io import filling_from_staircase  # noqa: F401  (public here too)
 
-__all__ = ["staircase", "filling_from_staircase", "particle_hole_shift", "scan_ed"]
+__all__ = ["staircase", "filling_from_staircase", "particle_hole_shift"]
 
 
 def particle_hole_shift(model: Model, L: int, N: int) -> float:
@@ -93,7 +94,7 @@ def staircase(model: Model, cluster="tri12", n_range=None, particle_hole: bool =
     """
     import xarray as xr
 
-    from .solve import observables as measure
+    from .observables import measure
 
     cell = get_cluster(cluster, model.lattice)
     L = cell.n_sites
@@ -157,49 +158,4 @@ def staircase(model: Model, cluster="tri12", n_range=None, particle_hole: bool =
         "particle_hole": int(use_ph), **gaps,
         "conventions": "mu+-(N) from E_c = E0 + mu N; S(K)/N = <|rho_K|^2>; see docs/ed.md",
     })
-    return ds
-
-
-def filling_from_staircase(ds, mu) -> np.ndarray:
-    """Grand-canonical filling N*(mu)/L of the cluster from a staircase Dataset.
-
-    Only the particle numbers in ``ds`` compete (use the full range for a true staircase).
-    """
-    mu = np.atleast_1d(np.asarray(mu, float))
-    Ec = ds["E_canonical"].values
-    N = ds["N"].values
-    k = np.argmin(Ec[None, :] - mu[:, None] * N[None, :], axis=1)
-    return N[k] / int(ds.attrs["n_sites"])
-
-
-def scan_ed(model: Model, param: str, values, cluster="tri12", particles=None, **options):
-    """Solve ED at each value of one model parameter; returns an xarray Dataset.
-
-    ``param`` is any Model field (``t``, ``V``, ``U``, ``V2``, ``mu``); per-family parameters
-    take a scalar (isotropic) or a tuple per value. Variables: ``energy`` (per site), ``N``,
-    ``SK_per_site``, ``sq_max``, ``condensate_fraction``, ``stiffness``, ``gap``, ``phase``.
-    """
-    import xarray as xr
-
-    from .solve import solve_ed
-
-    fields = set(model.to_dict())
-    if param not in fields or param in ("lattice", "unit", "n_max"):
-        raise ConfigError(f"scan: parameter must be one of t, V, U, V2, mu, got {param!r}")
-    values = list(values)
-    rows = []
-    for v in values:
-        sol = solve_ed(model.replace(**{param: v}), cluster=cluster, particles=particles, **options)
-        rows.append(sol)
-    coord = np.array([np.mean(v) if np.ndim(v) else v for v in values], float)
-    get = lambda k: np.array([s.order.get(k, np.nan) for s in rows], float)  # noqa: E731
-    ds = xr.Dataset({
-        "energy": (param, np.array([s.energy for s in rows]), {"units": model.unit}),
-        "N": (param, np.array([s.extra["N"] for s in rows])),
-        "SK_per_site": (param, get("S(K)/N")), "sq_max": (param, get("sq_max")),
-        "condensate_fraction": (param, get("condensate_fraction")), "stiffness": (param, get("stiffness")),
-        "gap": (param, get("gap")), "phase": (param, np.array([s.phase for s in rows]).astype(str)),
-    }, coords={param: coord})
-    ds.attrs.update({"model": json.dumps(model.to_dict()), "method": "ed", "version": __version__,
-                     "kind": f"ED scan over {param}", "cluster": json.dumps(rows[0].extra["cluster"])})
     return ds

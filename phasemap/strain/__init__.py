@@ -25,7 +25,8 @@ Caution: mean-field methods overestimate the solid; their critical strains are b
 """
 
 from .table import KNOWN_UNITS, StrainTable, StrainTableWarning, read_table
-from .engine import MethodSpec, PlateauResult, locate_plateaus, parse_methods
+from ..methods import MethodSpec, parse_specs as parse_methods
+from .engine import PlateauResult, locate_plateaus
 from .analysis import StrainCheck, check_strain, melt_factor, strain_filling_curve
 from .critical import CriticalResult, critical_band, critical_strain
 

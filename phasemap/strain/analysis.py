@@ -30,21 +30,15 @@ import numpy as np
 
 from ..classify import Thresholds
 from ..model import ConfigError, Model
-from .engine import MethodSpec, evaluate_points, fixed_filling, locate_plateaus, mu_margin, parse_fraction
+from ..methods import MethodSpec, get_method
+from .engine import evaluate_points, fixed_filling, locate_plateaus, mu_margin, parse_fraction
 from .roots import narrowed_brentq
 from .table import StrainTable
 
 __all__ = ["check_strain", "StrainCheck", "melt_factor", "strain_filling_curve", "CAUTION"]
 
-CAUTION = ("mean field overestimates the solid (site-decoupled badly so on the triangular lattice): "
-           "its plateau widths and critical strains are bound-like estimates; compare cluster mean field")
-CMF_CAUTION = ("cluster mean field still overestimates the solid, less so for larger clusters: compare "
-               "clusters (phasemap cluster-scaling) before trusting a critical strain")
-
-
-def method_caution(spec) -> str:
-    """The caution that goes with a grand-canonical method spec ("mf" or "cmf:<cluster>")."""
-    return CMF_CAUTION if str(getattr(spec, "name", spec)).startswith("cmf") else CAUTION
+#: Caution of the site-decoupled mean-field band (the sweep's summary caution).
+CAUTION = get_method("mf").caution
 
 
 def _jsonable(v):
@@ -142,7 +136,7 @@ def strain_filling_curve(table: StrainTable, strain: float, spec="mf", mu=None, 
 
         lo, hi = default_window(model)
         mu = np.linspace(lo, hi, 161)
-    return filling_curve(model, mu, relative=False, method=spec.method, options=spec.option_dict, **kw)
+    return filling_curve(model, mu, relative=False, method=spec, **kw)
 
 
 @dataclass
@@ -198,7 +192,7 @@ def check_strain(table: StrainTable, strain: float, spec="mf", mu: float | None 
         mu = float(mu)
         if not math.isfinite(mu):
             raise ConfigError(f"mu: must be a finite number, got {mu}")
-    if spec.method == "ed":
+    if not spec.capabilities.grand_canonical:
         return _check_strain_ed(table, strain, spec, model, mu, lab)
     kw = dict(tol=tol, width_floor=width_floor, jump_tol=jump_tol, thresholds=thresholds, n_mu=n_mu)
     res = locate_plateaus([model], lab, spec, **kw)
@@ -223,7 +217,7 @@ def check_strain(table: StrainTable, strain: float, spec="mf", mu: float | None 
         "plateau": plateau,
         "fixed_filling": fixed_filling(res, 0, jump_tol),
         "flags": list(res.flags[0]),
-        "caution": method_caution(spec),
+        "caution": spec.impl.caution,
     }
     if mu is not None:
         pt = evaluate_points([model], np.array([[mu]]), spec, thresholds)
@@ -259,7 +253,7 @@ def check_strain(table: StrainTable, strain: float, spec="mf", mu: float | None 
 
 def _check_strain_ed(table: StrainTable, strain: float, spec: MethodSpec, model: Model, mu, lab: str) -> StrainCheck:
     """ED branch of :func:`check_strain`: the finite-cluster step at N = f L (no melt factor, no sharp edge)."""
-    from .ed_method import ED_CAUTION, ed_plateaus
+    from .ed_method import ed_plateaus
 
     r = ed_plateaus([model], spec, lab)
     Vref = max(abs(v) for v in model.V)
@@ -288,7 +282,7 @@ def _check_strain_ed(table: StrainTable, strain: float, spec: MethodSpec, model:
                      "text": "on a finite cluster the charge gap never closes exactly, so ED gives no sharp "
                              "critical strain (compare clusters: only the scaling with size decides)"},
         "residual": float(r.residual[0]), "seconds": float(r.seconds[0]),
-        "flags": list(r.flags[0]), "caution": ED_CAUTION, "converged": True,
+        "flags": list(r.flags[0]), "caution": spec.impl.caution, "converged": True,
     }
     if mu is not None:
         m = min(mu - lo, hi - mu)

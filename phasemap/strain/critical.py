@@ -27,7 +27,8 @@ import numpy as np
 
 from ..classify import Thresholds
 from ..model import ConfigError
-from .engine import MethodSpec, locate_plateaus, mu_margin, parse_fraction
+from ..methods import MethodSpec
+from .engine import locate_plateaus, mu_margin, parse_fraction
 from .roots import narrowed_brentq
 from .table import StrainTable
 

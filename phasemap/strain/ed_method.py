@@ -44,18 +44,15 @@ from fractions import Fraction
 import numpy as np
 
 from ..model import ConfigError, Model
-from .engine import MethodSpec, parse_fraction
+from ..methods import MethodSpec, get_method
+from .engine import parse_fraction
 
 __all__ = ["DEFAULT_ED_CLUSTER", "ED_CAUTION", "EDPlateau", "ed_setup", "ed_plateaus", "ed_indicator",
            "clear_ed_cache"]
 
 DEFAULT_ED_CLUSTER = "tri12"
 
-ED_CAUTION = ("exact diagonalization is canonical on a finite periodic cluster: mu-(N) and mu+(N) bound the "
-              "cluster's step at N = f L and their difference is the charge gap, which never closes exactly on "
-              "a finite cluster, so ED gives no sharp critical strain; only the scaling with cluster size "
-              "(tri12, tri21, tri27) tells a plateau from a compressible phase, and S(K)/N above the indicator "
-              "threshold is a finite-size indicator of density order, not a thermodynamic statement")
+ED_CAUTION = get_method("ed").caution
 
 _CACHE: dict = {}
 
@@ -133,7 +130,7 @@ def ed_setup(spec, models, fraction="1/3", budget_gib=None):
     from ..ed.guard import DEFAULT_BUDGET_GIB, check_budget, estimate
 
     spec = MethodSpec.parse(spec)
-    if spec.method != "ed":
+    if not spec.capabilities.canonical:
         raise ConfigError(f"method {spec.name!r}: not an ED method")
     opts = spec.option_dict
     extra = set(opts) - {"cluster", "budget_gib"}

@@ -33,79 +33,13 @@ import numpy as np
 
 from ..classify import Thresholds
 from ..model import ConfigError, Model
+from ..methods import MethodSpec, parse_specs as parse_methods
 from ..params import ParamBatch
 
 __all__ = ["MethodSpec", "parse_methods", "PlateauResult", "locate_plateaus", "evaluate_points",
            "default_window", "parse_fraction", "INCOMPRESSIBLE", "clear_cache"]
 
 INCOMPRESSIBLE = ("empty", "full", "mott", "solid")
-_GC_METHODS = ("mf", "cmf")
-
-
-# -- method specifications ------------------------------------------------------------------
-@dataclass(frozen=True)
-class MethodSpec:
-    """A method and its options, with a short name such as ``"mf"`` or ``"cmf:tri12"``.
-
-    Parameters
-    ----------
-    method : {"mf", "cmf", "ed"}
-    options : tuple of (key, value)
-        Solver options (hashable form); ``cmf`` takes ``cluster``.
-    """
-
-    method: str = "mf"
-    options: tuple = ()
-
-    @property
-    def name(self) -> str:
-        opts = dict(self.options)
-        if self.method in ("cmf", "ed") and "cluster" in opts:
-            rest = {k: v for k, v in opts.items() if k != "cluster"}
-            tail = "".join(f",{k}={v}" for k, v in sorted(rest.items()))
-            return f"{self.method}:{opts['cluster']}{tail}"
-        return self.method + "".join(f",{k}={v}" for k, v in sorted(opts.items()))
-
-    @property
-    def option_dict(self) -> dict:
-        return dict(self.options)
-
-    @classmethod
-    def parse(cls, text) -> "MethodSpec":
-        """``"mf"``, ``"cmf"`` (cluster tri12), ``"cmf:tri6"``, ``"ed"`` (cluster tri12), ``"ed:tri21"``."""
-        if isinstance(text, MethodSpec):
-            return text
-        s = str(text).strip()
-        method, _, cluster = s.partition(":")
-        method = method.strip().lower()
-        allowed = ("mf", "cmf", "ed")
-        if method not in allowed:
-            raise ConfigError(f"method: unknown method {s!r}; allowed: mf, cmf[:cluster], ed[:cluster] "
-                              "(e.g. 'mf', 'cmf:tri12', 'ed:tri12')")
-        if method == "mf":
-            if cluster:
-                raise ConfigError(f"method {s!r}: site-decoupled mean field takes no cluster (use 'cmf:{cluster}')")
-            return cls("mf", ())
-        if method == "cmf":
-            return cls("cmf", (("cluster", cluster.strip() or "tri12"),))
-        # ed: canonical exact diagonalization on a K-compatible periodic cluster (default tri12),
-        # see phasemap.strain.ed_method
-        return cls("ed", (("cluster", cluster.strip() or "tri12"),))
-
-
-def parse_methods(text) -> list[MethodSpec]:
-    """Comma-separated method list (``"mf,cmf:tri12"``) -> list of :class:`MethodSpec`."""
-    if isinstance(text, (list, tuple)):
-        items = list(text)
-    else:
-        items = [x for x in str(text).split(",") if x.strip()]
-    if not items:
-        raise ConfigError("methods: give at least one method (e.g. 'mf' or 'mf,cmf:tri12')")
-    specs = [MethodSpec.parse(x) for x in items]
-    names = [s.name for s in specs]
-    if len(set(names)) != len(names):
-        raise ConfigError(f"methods: {','.join(names)} lists a method twice")
-    return specs
 
 
 def parse_fraction(fraction) -> tuple[str, float]:
@@ -173,7 +107,7 @@ def evaluate_points(models: list[Model], mu, spec: MethodSpec = MethodSpec(), th
     mu : array, shape (P, M)
         Absolute chemical potentials (model unit).
     spec : MethodSpec
-        ``mf`` or ``cmf`` (grand-canonical methods).
+        A grand-canonical method (``mf``, ``cmf:<cluster>``).
 
     Returns
     -------
@@ -183,10 +117,11 @@ def evaluate_points(models: list[Model], mu, spec: MethodSpec = MethodSpec(), th
     """
     from ..scan import evaluate
 
-    if spec.method not in _GC_METHODS:
-        raise ConfigError(f"method {spec.name!r}: grand-canonical scans need mf or cmf; ED is canonical "
-                          "(use check_strain / strain_sweep, which give its finite-cluster step, or "
-                          "phasemap.strain.ed_method.ed_plateaus)")
+    spec = MethodSpec.parse(spec)
+    if not spec.capabilities.grand_canonical:
+        raise ConfigError(f"method {spec.name!r}: {spec.impl.title} is not grand canonical; plateau searches "
+                          "in mu need a grand-canonical method (check_strain / strain_sweep give the "
+                          "method's own step)")
     mu = np.asarray(mu, float)
     P, M = mu.shape
     tag = (spec.name, json.dumps(thresholds.to_dict(), sort_keys=True))
@@ -206,7 +141,7 @@ def evaluate_points(models: list[Model], mu, spec: MethodSpec = MethodSpec(), th
         ks = np.array([k for _, k in todo])
         sub = [models[p] for p in ps]
         batch = _batch(sub, mu[ps, ks][:, None])
-        flat = evaluate(batch, spec.method, spec.option_dict, thresholds)
+        flat = evaluate(batch, spec, None, thresholds)
         if len(_CACHE) > _CACHE_MAX:
             _CACHE.clear()
         for i, (p, k) in enumerate(todo):

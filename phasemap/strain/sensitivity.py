@@ -24,7 +24,8 @@ import numpy as np
 from ..classify import Thresholds
 from ..model import ConfigError
 from .critical import coarse_strains
-from .engine import MethodSpec, locate_plateaus, parse_fraction
+from ..methods import MethodSpec
+from .engine import locate_plateaus, parse_fraction
 from .roots import multisection
 from .table import StrainTable
 

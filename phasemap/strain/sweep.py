@@ -23,7 +23,8 @@ from ..classify import Thresholds
 from .analysis import CAUTION
 from .ed_method import ED_CAUTION
 from .critical import coarse_strains, critical_band, critical_strain
-from .engine import default_window, fixed_filling, locate_plateaus, parse_fraction, parse_methods
+from ..methods import parse_specs as parse_methods
+from .engine import default_window, fixed_filling, locate_plateaus, parse_fraction
 from .sensitivity import critical_vs_lambda
 from .table import StrainTable
 
@@ -250,7 +251,7 @@ class StrainSweep:
     def save(self, outdir, figures: bool = True, formats=("png", "pdf")) -> list[Path]:
         """Write sweep.nc, plateau.csv, critical.csv, summary.json (+ lambda.csv/nc, figures) atomically."""
         from ..store import atomic_write_text, save_csv, save_netcdf
-        from ..cli._common import dumps_json
+        from ..store import dumps_json
 
         out = Path(outdir)
         paths = [save_netcdf(self.to_dataset(), out / "sweep.nc")]
@@ -346,8 +347,8 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
     S = coarse_strains(table, n_strain) if strains is None else np.asarray(strains, float)
     table.check_range(S)
     models = table.models(S)
-    ed_specs = [sp for sp in specs if sp.method == "ed"]
-    specs = [sp for sp in specs if sp.method != "ed"]
+    ed_specs = [sp for sp in specs if not sp.capabilities.grand_canonical]
+    specs = [sp for sp in specs if sp.capabilities.grand_canonical]
     for sp in ed_specs:  # refuse before anything is solved (cluster, filling, bonds, memory guard)
         ed_setup(sp, models, lab)
     if mu is None:

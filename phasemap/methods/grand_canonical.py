@@ -1,0 +1,54 @@
+"""Shared behaviour of grand-canonical mean-field-type methods (site-decoupled and cluster).
+
+A grand-canonical method solves many points x seeds at once over a
+:class:`~phasemap.params.ParamBatch`; one point is a batch of one (plus two neighbours in mu for
+the compressibility), and the strain workflow locates plateaus with batched searches in mu
+(:func:`phasemap.strain.engine.locate_plateaus`).
+"""
+
+from __future__ import annotations
+
+from ..classify import Thresholds
+from ..model import ConfigError, Model, check_keys
+from ..params import ParamBatch
+from . import Method
+
+__all__ = ["GrandCanonicalMethod"]
+
+
+def _thresholds(th) -> Thresholds:
+    if isinstance(th, dict):
+        check_keys("thresholds", th, Thresholds.__dataclass_fields__)
+        th = Thresholds(**th)
+    if not isinstance(th, Thresholds):
+        raise ConfigError(f"thresholds: expected phasemap.classify.Thresholds or a dict, got {type(th).__name__}")
+    return th
+
+
+class GrandCanonicalMethod(Method):
+    """Base of ``mf`` and ``cmf``: batched solve, point solve with dn/dmu, plateau search."""
+
+    def site_orbits(self, result):
+        """Groups of sites that must agree for a uniform state (None: all sites of a periodic cell)."""
+        return None
+
+    def unstable_insulators(self, result, phase, k):
+        """Points whose insulating winner is linearly unstable (None: no such test for this method)."""
+        return None
+
+    def solve_point(self, model: Model, **options):
+        from ..api import solutions_from_batch
+
+        th = _thresholds(options.pop("thresholds", Thresholds()))
+        compress = options.pop("compressibility", True)
+        dmu = options.pop("dmu", 1e-4 * model.scale)
+        models = [model] + ([model.replace(mu=model.mu - dmu), model.replace(mu=model.mu + dmu)] if compress else [])
+        res = self.batch_solver(options)(ParamBatch.from_models(models))
+        sols = solutions_from_batch(res, th, method=self.short_name(options), models=models)
+        sol = sols[0]
+        if compress:
+            if all(s.converged for s in sols):
+                sol.compressibility = (sols[2].filling - sols[1].filling) / (2 * dmu)
+            else:
+                sol.flags.append("compressibility-unavailable")
+        return sol
