@@ -126,7 +126,7 @@ def test_mott_stability_path_against_independent_construction(lattice, cluster, 
     # the insulating boundary: every outside site holds `filling` bosons, no condensate
     H = dc.hamiltonian(lattice, bonds, m.t, m.V, m.V2, m.U, 0.0, n_out=np.full(S, float(filling)))
     N0 = filling * S
-    E, vec = {}, {}
+    E = {}
     for d in (-1, 0, 1):
         idx, Hs = _sector(dc, H, N0 + d)
         w, v = np.linalg.eigh(Hs)
@@ -167,7 +167,7 @@ def test_two_cluster_paths_agree_on_the_mott_state_and_its_edge():
     S = 4
     from scipy.optimize import brentq
 
-    lo, hi = mc.mu_window()
+    hi = mc.mu_window()[1]
     mid, _ = mc.most_stable()
     mu_c = brentq(lambda x: mc.instability(x) - 1.0, mid, hi - 1e-9, xtol=1e-12)
     mus = [mid, mu_c - 0.01, mu_c + 0.01]

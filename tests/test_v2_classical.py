@@ -189,7 +189,7 @@ def test_ed_t0_with_V2_tri21():
     assert [e0[6], e0[7], e0[8]] == pytest.approx([15 * V2, 21 * V2, 21 * V2 + 3 * V], abs=1e-12)
     assert e0[7] - e0[6] == pytest.approx(6 * V2, abs=1e-12)
     assert e0[8] - e0[7] == pytest.approx(3 * V, abs=1e-12)
-    E, Nc, L = periodic_minima_bits(vec)
+    E, Nc, _ = periodic_minima_bits(vec)
     assert [E[Nc == N].min() for N in (6, 7, 8)] == pytest.approx([e0[6], e0[7], e0[8]], abs=1e-12)
 
 
