@@ -24,7 +24,7 @@ import numpy as np
 
 from .config import RunConfig, ScanSpec, dumps_toml
 from .model import ConfigError
-from .store import ChunkStore, atomic_write_text, save_csv, save_netcdf
+from .store import ChunkStore, atomic_write_text, check_output_folder, output_lock, save_csv, save_netcdf
 
 __all__ = ["run", "checkpoint_params", "curve_tables"]
 
@@ -136,7 +136,7 @@ def _summary(scan: ScanSpec, ds, curve) -> str:
 
 
 def run(cfg: RunConfig, out=None, resume: bool = False, restart: bool = False, progress: bool = True,
-        log=print) -> list[Path]:
+        log=print, command: str | None = None) -> list[Path]:
     """Compute every scan of ``cfg`` and write results into the output folder.
 
     Parameters
@@ -153,6 +153,9 @@ def run(cfg: RunConfig, out=None, resume: bool = False, restart: bool = False, p
         tqdm progress bars on stderr.
     log : callable
         Receives one-line progress/summary messages.
+    command : str, optional
+        Recorded in the folder's lock (default: the command line); see
+        :func:`phasemap.store.output_lock`.
 
     Returns
     -------
@@ -162,11 +165,16 @@ def run(cfg: RunConfig, out=None, resume: bool = False, restart: bool = False, p
     Raises
     ------
     ConfigError
-        Output folder unusable, or a checkpoint of a different/unfinished scan in the way.
+        Output folder unusable or in use by a live run (single-writer lock), or a checkpoint of
+        a different/unfinished scan in the way.
     """
-    out = Path(out if out is not None else cfg.output.folder)
-    if out.exists() and not out.is_dir():
-        raise ConfigError(f"output folder: {str(out)!r} exists and is not a folder")
+    flag = "--out" if out is not None else "[output] folder"
+    out = check_output_folder(out if out is not None else cfg.output.folder, flag)
+    with output_lock(out, command, flag=flag):
+        return _run_locked(cfg, out, resume, restart, progress, log)
+
+
+def _run_locked(cfg, out, resume, restart, progress, log):
     results = []
     for scan in cfg.scans:
         t0 = time.perf_counter()

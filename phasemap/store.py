@@ -13,17 +13,29 @@ Formats
   metadata, then one header row of column names.
 - Checkpoints of long scans: :class:`ChunkStore`, a folder of per-chunk ``.npz`` files plus a
   ``manifest.json`` holding a hash of the scan's parameters.
+
+Provenance and output folders
+-----------------------------
+- :func:`provenance` is the one source of the metadata every written file carries (one version
+  key ``phasemap_version``, model, method, options, table and energy unit where there is one).
+- :func:`check_output_folder` refuses an unusable output path (a file, under a file, not
+  writable) before any work; :func:`output_lock` makes one run the only writer of a folder: a
+  second run is refused with a message naming the live one, a stale lock of a dead process is
+  taken over with a note. Every long job that writes a folder takes it.
 """
 
 from __future__ import annotations
 
 import contextlib
 import csv
+import datetime
 import hashlib
 import io
 import json
 import math
 import os
+import socket
+import sys
 import tempfile
 from pathlib import Path
 
@@ -32,8 +44,272 @@ import xarray as xr
 
 from .model import ConfigError
 
-__all__ = ["dumps_json", "atomic_path", "atomic_write_text", "save_netcdf", "load_netcdf", "save_csv", "load_csv",
+__all__ = ["provenance", "check_output_folder", "output_lock", "LOCK_NAME", "mark_incomplete", "mark_complete", "COMPLETE_NAME", "dumps_json", "atomic_path", "atomic_write_text", "save_netcdf", "load_netcdf", "save_csv", "load_csv",
            "curve_to_dataset", "ChunkStore", "params_hash", "jsonable"]
+
+
+# -- provenance --------------------------------------------------------------------------------
+def provenance(model=None, method=None, options=None, table=None, unit=None, **extra) -> dict:
+    """The metadata every file written by phasemap carries (one function for every writer).
+
+    Parameters
+    ----------
+    model : phasemap.Model or dict, optional
+        Stored as its parameter dict (``Model.to_dict()``); also gives ``lattice`` and the unit.
+    method : str or MethodSpec, optional
+        As spelled everywhere (``"mf"``, ``"cmf:tri12"``, ``"ed:tri21"``, or a comma list).
+    options : dict, optional
+        Method options (``method_options``).
+    table : StrainTable, path or str, optional
+        The parameter table the run was made from (its path, or ``"demo"``).
+    unit : str, optional
+        Energy unit label (``energy_unit``); default the model's / table's unit.
+    **extra
+        Further keys (plain values), added last.
+
+    Returns
+    -------
+    dict
+        Plain-JSON values: ``phasemap_version`` always; ``model`` (dict), ``lattice``,
+        ``method``, ``method_options``, ``table``, ``energy_unit`` when known. NetCDF writers
+        store dicts as JSON strings (:func:`save_netcdf`), CSV writers as ``# key: <json>``.
+    """
+    from . import __version__
+
+    d = {"phasemap_version": __version__}
+    if model is not None:
+        md = model.to_dict() if hasattr(model, "to_dict") else dict(model)
+        d["model"] = jsonable(md)
+        d["lattice"] = md.get("lattice", "")
+        if unit is None:
+            unit = md.get("unit")
+    if method is not None:
+        d["method"] = method if isinstance(method, str) else getattr(method, "name", str(method))
+    if options is not None:
+        d["method_options"] = jsonable(dict(options))
+    if table is not None:
+        if isinstance(table, (str, Path)):
+            d["table"] = str(table)
+        else:
+            d["table"] = str(getattr(table, "path", "") or "table")
+            d.setdefault("lattice", getattr(table, "lattice", ""))
+            if unit is None:
+                unit = getattr(table, "unit", None)
+    if unit is not None:
+        d["energy_unit"] = str(unit)
+    d.update(jsonable(extra))
+    return d
+
+
+# -- output folders: checks and the single-writer lock ----------------------------------------
+LOCK_NAME = ".phasemap.lock"
+_HELD: dict = {}  # resolved lock path -> nesting depth (locks held by this process)
+
+
+def check_output_folder(folder, flag: str = "--out") -> Path:
+    """Refuse an output folder that cannot be used, before any work; nothing is created.
+
+    Raises :class:`ConfigError` (naming ``flag``) if the path exists and is not a folder, lies
+    under a file, or is not writable (the nearest existing ancestor for a folder still to be
+    created).
+    """
+    folder = Path(folder)
+    if str(folder).strip() == "":
+        raise ConfigError(f"{flag}: expected a folder path, got an empty string")
+    if folder.exists() and not folder.is_dir():
+        raise ConfigError(f"{flag}: {str(folder)!r} exists and is not a folder")
+    probe = folder
+    while not probe.exists():
+        parent = probe.parent
+        if parent == probe:
+            break
+        probe = parent
+    if probe.exists() and not probe.is_dir():
+        raise ConfigError(f"{flag}: {str(folder)!r} lies under {str(probe)!r}, which is a file, not a folder")
+    if not _writable(probe):
+        what = "is" if probe == folder else f"would be created in {str(probe)!r}, which is"
+        raise ConfigError(f"{flag}: {str(folder)!r} {what} not writable")
+    return folder
+
+
+def _writable(folder: Path) -> bool:
+    if not os.access(folder, os.W_OK | os.X_OK):
+        return False
+    try:  # root passes os.access everywhere; a read-only file system does not pass this
+        fd, tmp = tempfile.mkstemp(prefix=".phasemap-probe.", dir=folder)
+    except OSError:
+        return False
+    os.close(fd)
+    os.unlink(tmp)
+    return True
+
+
+def _proc_start(pid: int):
+    """Start time of process ``pid`` in clock ticks since boot (Linux), or None."""
+    try:
+        with open(f"/proc/{pid}/stat", encoding="ascii", errors="replace") as f:
+            stat = f.read()
+        return int(stat.rpartition(")")[2].split()[19])
+    except (OSError, ValueError, IndexError):
+        return None
+
+
+def _alive(info: dict) -> bool | None:
+    """Is the process that wrote a lock alive? None: cannot tell (another host)."""
+    if info.get("host") != socket.gethostname():
+        return None
+    try:
+        pid = int(info["pid"])
+    except (KeyError, TypeError, ValueError):
+        return False
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        pass  # exists, owned by someone else
+    start = info.get("pid_start")
+    now = _proc_start(pid)
+    return not (start is not None and now is not None and int(start) != now)  # pid reused
+
+
+def _describe(info: dict) -> str:
+    return (f"pid {info.get('pid')} on host {info.get('host')}, started {info.get('started')}, "
+            f"command: {info.get('command')}")
+
+
+@contextlib.contextmanager
+def output_lock(folder, command: str | None = None, note=None, flag: str = "--out"):
+    """Hold the single-writer lock of an output folder while a job computes and writes into it.
+
+    The lock is the file ``FOLDER/.phasemap.lock`` (JSON: pid, host, start time, command),
+    created atomically (written under a temporary name, then hard-linked into place, which fails
+    if a lock exists). A second job on the same folder is refused with :class:`ConfigError`
+    naming the live run; a lock whose process is dead (same host) is taken over and ``note``
+    (default: a warning on stderr) is told so. Re-entrant within one process. The lock is
+    removed on exit, whatever the outcome.
+
+    Parameters
+    ----------
+    folder : path-like
+        Output folder; checked with :func:`check_output_folder` first, then created.
+    command : str, optional
+        What is running (default: the command line).
+    note : callable, optional
+        Receives a one-line message when a stale lock is taken over.
+    flag : str
+        Option name used in messages (``--out``, ``[output] folder``).
+
+    Yields
+    ------
+    dict
+        The lock record.
+
+    Examples
+    --------
+    >>> with output_lock("maps/run1", "phasemap run c.toml"):    # doctest: +SKIP
+    ...     compute_and_write()
+    """
+    folder = check_output_folder(folder, flag)
+    created = not folder.exists()
+    folder.mkdir(parents=True, exist_ok=True)
+    lock = folder / LOCK_NAME
+    key = str(lock.resolve())
+    if _HELD.get(key):
+        _HELD[key] += 1
+        try:
+            yield json.loads(lock.read_text(encoding="utf-8"))
+        finally:
+            _HELD[key] -= 1
+        return
+    info = {"pid": os.getpid(), "pid_start": _proc_start(os.getpid()), "host": socket.gethostname(),
+            "started": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
+            "command": command if command is not None else " ".join([os.path.basename(sys.argv[0])] + sys.argv[1:])}
+    say = note if note is not None else (lambda m: print(f"phasemap: note: {m}", file=sys.stderr))
+    fd, tmp = tempfile.mkstemp(prefix=".phasemap.lock.", dir=folder)
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8") as f:
+            json.dump(info, f)
+        for _ in range(3):
+            try:
+                os.link(tmp, lock)
+                break
+            except FileExistsError:
+                pass
+            try:
+                other = json.loads(lock.read_text(encoding="utf-8"))
+            except FileNotFoundError:
+                continue  # released meanwhile: try again
+            except (OSError, ValueError):
+                raise ConfigError(f"{flag}: {str(folder)!r} has an unreadable lock file {LOCK_NAME}; if no phasemap "
+                                  "run is writing there, delete it") from None
+            alive = _alive(other)
+            if alive is None:
+                raise ConfigError(f"{flag}: {str(folder)!r} is in use by another run ({_describe(other)}); "
+                                  f"it runs on another host, so phasemap cannot check it: if it is dead, delete "
+                                  f"{str(lock)!r}")
+            if alive:
+                raise ConfigError(f"{flag}: {str(folder)!r} is in use by a live run ({_describe(other)}); wait for "
+                                  "it to finish or use another folder")
+            stale = folder / f"{LOCK_NAME}.stale.{os.getpid()}"
+            try:  # only one taker wins the rename
+                os.rename(lock, stale)
+            except FileNotFoundError:
+                continue
+            stale.unlink()
+            say(f"{flag}: took over the stale lock of a dead run in {str(folder)!r} ({_describe(other)})")
+        else:
+            raise ConfigError(f"{flag}: could not take the lock of {str(folder)!r} (another run keeps taking it)")
+    except BaseException:
+        if created:  # refused: leave nothing behind
+            with contextlib.suppress(OSError):
+                os.unlink(tmp)
+                folder.rmdir()
+        raise
+    finally:
+        with contextlib.suppress(FileNotFoundError):
+            os.unlink(tmp)
+    _HELD[key] = 1
+    try:
+        yield info
+    except BaseException:
+        _release(lock, info)
+        if created:  # a failed job that wrote nothing leaves no empty folder
+            with contextlib.suppress(OSError):
+                folder.rmdir()
+        raise
+    finally:
+        _HELD.pop(key, None)
+        _release(lock, info)
+
+
+def _release(lock: Path, info: dict) -> None:
+    try:
+        mine = json.loads(lock.read_text(encoding="utf-8"))
+        if mine.get("pid") == info["pid"] and mine.get("started") == info["started"]:
+            lock.unlink()
+    except (OSError, ValueError):
+        pass
+
+
+COMPLETE_NAME = "COMPLETE.json"
+
+
+def mark_incomplete(folder) -> None:
+    """Start (re)writing a set of files in ``folder``: remove its completion marker."""
+    with contextlib.suppress(FileNotFoundError):
+        (Path(folder) / COMPLETE_NAME).unlink()
+
+
+def mark_complete(folder, paths, **meta) -> Path:
+    """Write the completion marker ``FOLDER/COMPLETE.json`` last, after every file of the set.
+
+    Use :func:`mark_incomplete` before writing the first file. The marker holds ``meta`` (the
+    provenance) and the names of the files of the set; a folder without it holds an incomplete
+    set (a job killed while writing).
+    """
+    names = sorted({Path(p).name for p in paths})
+    return atomic_write_text(Path(folder) / COMPLETE_NAME, dumps_json({**meta, "complete": True, "files": names}) + "\n")
 
 
 # -- atomic writes -----------------------------------------------------------------------------
@@ -267,6 +543,16 @@ def params_hash(params: dict) -> str:
     return hashlib.sha256(blob.encode()).hexdigest()
 
 
+def _changed_fields(old, new, prefix: str = "") -> list[str]:
+    """Dotted names of the fields that differ between two parameter dicts (for messages)."""
+    if isinstance(old, dict) and isinstance(new, dict):
+        out = []
+        for k in sorted(set(old) | set(new), key=str):
+            out += _changed_fields(old.get(k), new.get(k), f"{prefix}.{k}" if prefix else str(k))
+        return out
+    return [] if old == new else [f"{prefix or 'value'} ({json.dumps(old)} -> {json.dumps(new)})"]
+
+
 class ChunkStore:
     """Per-chunk checkpoints of a scan, for :func:`phasemap.scan.evaluate` (``checkpoint=``).
 
@@ -300,13 +586,17 @@ class ChunkStore:
         man = self.folder / self.MANIFEST
         if man.is_file():
             try:
-                old = json.loads(man.read_text(encoding="utf-8")).get("hash")
-            except (json.JSONDecodeError, OSError):
-                old = None
+                saved = json.loads(man.read_text(encoding="utf-8"))
+                old, old_params = saved.get("hash"), saved.get("params")
+            except (json.JSONDecodeError, OSError, AttributeError):
+                old, old_params = None, None
             if old != self.hash:
+                changed = _changed_fields(old_params, self.params) if isinstance(old_params, dict) else []
+                what = (f"changed: {', '.join(changed[:6])}{' ...' if len(changed) > 6 else ''}" if changed
+                        else f"parameter hash {str(old)[:12]} != {self.hash[:12]}")
                 raise ConfigError(
                     f"checkpoint: folder {str(self.folder)!r} holds the checkpoint of a different scan "
-                    f"(parameter hash {str(old)[:12]} != {self.hash[:12]}); use another folder or delete it")
+                    f"({what}); use another folder, --restart, or delete it")
             if not resume:
                 self.clear()
         self.folder.mkdir(parents=True, exist_ok=True)

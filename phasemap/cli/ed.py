@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import math
 import time
@@ -73,10 +74,11 @@ def _particles(text):
 
 
 def run(args) -> int:
-    from ..ed import save_dataset, solve_ed, staircase
     from ..model import ConfigError
-    from ..store import atomic_write_text
+    from ..store import check_output_folder, output_lock
 
+    if args.out:
+        check_output_folder(args.out)  # before any solving
     model = model_from_args(args)
     cluster = _cluster(args.cluster)
     N, rng = _particles(args.particles)
@@ -87,6 +89,14 @@ def run(args) -> int:
             raise ConfigError(f"--mf-methods {m}: {impl.title} is not grand canonical; overlays need a "
                               "filling curve (e.g. mf, cmf:tri3)")
     out = Path(args.out) if args.out else None
+    with output_lock(out) if out else contextlib.nullcontext():
+        return _run(args, model, cluster, N, rng, overlay, out)
+
+
+def _run(args, model, cluster, N, rng, overlay, out) -> int:
+    from ..ed import save_dataset, solve_ed, staircase
+    from ..store import atomic_write_text
+
     if N is not None:
         t0 = time.perf_counter()
         sol = solve_ed(model, cluster=cluster, particles=N, budget_gib=args.budget_gib, all_momenta=args.all_momenta)

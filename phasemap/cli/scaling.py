@@ -20,6 +20,7 @@ names below without dashes, ``clusters`` as a list, ``options`` as a table).
 from __future__ import annotations
 
 import argparse
+import contextlib
 import csv
 import json
 import os
@@ -217,12 +218,19 @@ def _atomic_write(path, writer, mode="w"):
 
 
 def run(args) -> int:
-    from ..cmf.scaling import cluster_scaling, plot_scaling
+    from ..store import check_output_folder, output_lock
 
+    if args.out:
+        check_output_folder(args.out)  # before any work
     model, sc = _gather(args)
     q, clusters = _validate(model, sc)
-    if args.out and os.path.exists(args.out) and not os.path.isdir(args.out):
-        raise ConfigError(f"--out: {args.out!r} exists and is not a folder")
+    with output_lock(args.out) if args.out else contextlib.nullcontext():
+        return _run(args, model, sc, q, clusters)
+
+
+def _run(args, model, sc, q, clusters) -> int:
+    from ..cmf.scaling import cluster_scaling, plot_scaling
+
     kw = dict(sc["options"])
     if q == "transition":
         kw.update(axis=sc["axis"], lo=sc["lo"], hi=sc["hi"], order=sc.get("order", "contrast"),

@@ -111,24 +111,27 @@ def run_sweep(args) -> int:
     from ..strain.sweep import strain_sweep
     from ._common import dumps_json
 
-    specs = parse_specs(args.methods)
     from ..model import ConfigError
+    from ..store import check_output_folder, output_lock
 
+    check_output_folder(args.out)  # before anything is read or computed
+    specs = parse_specs(args.methods)
     parse_fraction(args.fraction)
     lam = parse_lambdas(args.lambdas) if args.lambdas is not None else None
     table = read_table(args.table)
     if args.scale == "U" and table.hardcore and lam is not None:
         raise ConfigError("--scale U: the table is hard-core (U = inf); scale V or t instead")
     t0 = time.perf_counter()
-    with warnings.catch_warnings(record=True) as caught:
-        warnings.simplefilter("always")
-        table.sparsity_warnings()
-        sw = strain_sweep(table, specs, n_strain=args.n_strain, n_mu=args.n_mu, fraction=args.fraction,
-                          lambdas=lam, param=args.scale)
-    for w in caught:
-        print(f"phasemap: warning: {w.message}", file=sys.stderr)
-    sw.seconds["total"] = time.perf_counter() - t0
-    paths = sw.save(args.out, figures=not args.no_figures)
+    with output_lock(args.out):
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            table.sparsity_warnings()
+            sw = strain_sweep(table, specs, n_strain=args.n_strain, n_mu=args.n_mu, fraction=args.fraction,
+                              lambdas=lam, param=args.scale)
+        for w in caught:
+            print(f"phasemap: warning: {w.message}", file=sys.stderr)
+        sw.seconds["total"] = time.perf_counter() - t0
+        paths = sw.save(args.out, figures=not args.no_figures)
     if args.json:
         print(dumps_json({**sw.summary(), "files": [str(p) for p in paths]}))
     else:
