@@ -120,20 +120,20 @@ def test_sweep_with_ed_writes_lines_and_claims_no_critical_strain(tmp_path, caps
     s = np.linspace(0.0, 0.2, 5)
     tab = StrainTable.from_columns({"strain": s, "t": 0.3 + 6 * s, "V": np.full(5, 6.0)}, unit="K")
     sw = strain_sweep(tab, "mf,ed:tri12", n_strain=5, n_mu=41)
-    assert sw.names == ["mf"] and sw.ed_names == ["ed:tri12"]
-    c = sw.ed_critical["ed:tri12"]
+    assert sw.names == ["mf", "ed:tri12"] and sw.sharp_names == ["mf"]
+    c = sw.critical["ed:tri12"].to_dict()
     assert c["status"] == "no-sharp-transition" and c["strain_c"] is None and c["in_band"] is False
     assert "no sharp transition on a finite cluster" in sw.text()
     assert "indicator (not a critical strain)" in c["text"]
     assert sw.band["methods"] == {"mf": sw.critical["mf"].strain_c} and "ed:tri12" in sw.band["excluded"]
-    ds = sw.to_dataset()
-    assert list(ds["ed_solver"].values) == ["ed:tri12"] and str(ds["ed_cluster"].values[0]) == "tri12"
-    assert int(ds["ed_N"].values[0]) == 4 and np.all(ds["ed_gap"].values > 0)
-    np.testing.assert_allclose(ds["ed_gap"].values, ds["ed_mu_plus"].values - ds["ed_mu_minus"].values)
+    ds = sw.to_dataset().sel(solver="ed:tri12")  # one method dimension for every method
+    assert str(ds["cluster"].values) == "tri12" and not bool(ds["sharp"].values)
+    assert int(ds["N"].values) == 4 and np.all(ds["width"].values > 0)
+    np.testing.assert_allclose(ds["width"].values, ds["mu_hi"].values - ds["mu_lo"].values)
     from phasemap.strain.plots import plot_order_parameters, plot_plateau_edges
 
     labels = [ln.get_label() for ln in plot_plateau_edges(sw).axes[0].get_lines()]
-    assert any(x.startswith("ed:tri12 (ED, 12 sites, N=4)") for x in labels) and "mf" in labels
+    assert any(x.startswith("ed:tri12 (12 sites, N=4)") for x in labels) and "mf" in labels
     labels = [ln.get_label() for ln in plot_order_parameters(sw).axes[0].get_lines()]
     assert any("ed:tri12" in x and "S(K)/N" in x for x in labels)
     # CLI: files, summary without an ED critical strain
@@ -144,9 +144,9 @@ def test_sweep_with_ed_writes_lines_and_claims_no_critical_strain(tmp_path, caps
     summ = json.loads(capsys.readouterr().out)
     assert summ["critical"]["ed:tri12"]["strain_c"] is None
     assert summ["critical"]["ed:tri12"]["status"] == "no-sharp-transition"
-    assert (out / "ed_plateau.csv").exists() and (out / "strain_plateau_edges.png").exists()
+    assert (out / "plateau.csv").exists() and (out / "strain_plateau_edges.png").exists()
     nc = xr.open_dataset(out / "sweep.nc")
-    assert json.loads(nc.attrs["ed_methods"]) == ["ed:tri12"]
+    assert json.loads(nc.attrs["methods"]) == ["mf", "ed:tri12"] and list(nc["solver"].values) == ["mf", "ed:tri12"]
     nc.close()
 
 

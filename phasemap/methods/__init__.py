@@ -162,10 +162,22 @@ class Method:
     def check_setup(self, spec: "MethodSpec", models, fraction: str = "1/3") -> None:
         """Refuse (ConfigError) what this method cannot do for ``models`` before anything is solved."""
 
-    def strain_step(self, models, fraction: str, spec: "MethodSpec", **kw):
-        """The plateau (or finite-cluster step) at ``fraction`` for every model:
-        a :class:`phasemap.strain.engine.PlateauRecord`."""
+    def strain_step(self, spec: "MethodSpec", models, fraction: str, **kw):
+        """The plateau (or finite-lattice step) at ``fraction`` for every model:
+        a :class:`phasemap.strain.record.StepRecord`. ``kw``: the workflow's search settings
+        (``mu``, ``tol``, ``width_floor``, ``jump_tol``, ``thresholds``, ``n_mu``, ...); take what applies."""
         raise ConfigError(f"method {self.name}: not available in the strain workflow")
+
+    def strain_critical(self, spec: "MethodSpec", table, strains, record, fraction: str, **kw):
+        """Critical strain along the path from the records at ``strains``: a
+        :class:`phasemap.strain.critical.CriticalResult` (sharp) or an
+        :class:`phasemap.strain.record.IndicatorResult` (finite lattices)."""
+        raise ConfigError(f"method {self.name}: not available in the strain workflow")
+
+    def strain_point(self, spec: "MethodSpec", model, record, mu, fraction: str, **kw) -> dict:
+        """Method-specific sections of a one-strain check (``check_strain``): e.g. the state at
+        ``mu``, the melt factor, the order parameter; plain JSON."""
+        return {}
 
     def __repr__(self) -> str:
         return f"<method {self.name}: {self.title}>"

@@ -33,5 +33,24 @@ class ExactDiagonalization(Method):
 
         ed_setup(spec, models, fraction)
 
+    def strain_step(self, spec, models, fraction, ed_thresholds=None, **kw):
+        from ..strain.ed_method import ed_plateaus
+
+        return ed_plateaus(models, spec, fraction, thresholds=ed_thresholds).to_record()
+
+    def strain_critical(self, spec, table, strains, record, fraction, **kw):
+        import numpy as np
+
+        from ..strain.ed_method import ed_indicator
+        from ..strain.record import IndicatorResult
+
+        vref = np.abs(table.params(strains)["V"]).max(1)
+        return IndicatorResult(spec.name, ed_indicator(strains, record.detail, vref, table.unit))
+
+    def strain_point(self, spec, model, record, mu, fraction, **kw):
+        from ..strain.ed_method import ed_report
+
+        return ed_report(model, record.detail, mu)
+
 
 METHOD = ExactDiagonalization()

@@ -36,6 +36,36 @@ class GrandCanonicalMethod(Method):
         """Points whose insulating winner is linearly unstable (None: no such test for this method)."""
         return None
 
+    # -- strain workflow ----------------------------------------------------------------------
+    _LOCATE = ("mu", "n_mu", "tol", "width_floor", "filling_tol", "jump_tol", "sections", "thresholds", "keep_grid")
+
+    def strain_step(self, spec, models, fraction, **kw):
+        from ..strain.engine import locate_plateaus
+
+        return locate_plateaus(models, fraction, spec, **{k: v for k, v in kw.items() if k in self._LOCATE}
+                               ).to_record(spec.name)
+
+    def strain_critical(self, spec, table, strains, record, fraction, xtol=None, width_floor=1e-3, **kw):
+        import numpy as np
+
+        from ..strain.critical import critical_strain
+
+        models = table.models(strains)
+        floor = np.array([width_floor * m.scale for m in models])
+        r = record.detail
+        H = np.where(r.reached, r.width, 0.0) - floor
+        kw = {k: v for k, v in kw.items() if k in self._LOCATE and k not in ("mu", "keep_grid")}
+        return critical_strain(table, spec, fraction, "width", coarse=(np.asarray(strains, float), H, r), xtol=xtol,
+                               width_floor=width_floor, **kw)
+
+    def strain_point(self, spec, model, record, mu, fraction, melt=True, melt_max=10.0, thresholds=None,
+                     width_floor=1e-3, jump_tol=1e-3, n_mu=121, **kw):
+        from ..strain.analysis import grand_canonical_report
+
+        return grand_canonical_report(spec, model, record.detail, mu, fraction, melt=melt, melt_max=melt_max,
+                                      thresholds=thresholds or Thresholds(), width_floor=width_floor,
+                                      jump_tol=jump_tol, n_mu=n_mu)
+
     def solve_point(self, model: Model, **options):
         from ..api import solutions_from_batch
 

@@ -162,6 +162,12 @@ def check_strain(table: StrainTable, strain: float, spec="mf", mu: float | None 
                  tol: float = 1e-4, width_floor: float = 1e-3, jump_tol: float = 1e-3, n_mu: int = 121) -> StrainCheck:
     """Is the system at ``strain`` in the commensurate solid, and how far from leaving it?
 
+    One path for every method: the method's :meth:`~phasemap.methods.Method.strain_step` gives
+    the plateau record (grand-canonical plateau, or the finite-cluster step of exact
+    diagonalization), the common part of the answer is built from it, and the method adds its
+    own sections (:meth:`~phasemap.methods.Method.strain_point`: state at ``mu``, melt factor,
+    order parameter, ...).
+
     Parameters
     ----------
     table : StrainTable
@@ -177,7 +183,7 @@ def check_strain(table: StrainTable, strain: float, spec="mf", mu: float | None 
         the plateau edges.
     fraction : str, default "1/3"
     melt : bool
-        Compute the melt factor (root-finding; the slowest part).
+        Compute the melt factor (root-finding; the slowest part; sharp methods only).
     tol, width_floor, jump_tol, n_mu
         See :func:`phasemap.strain.engine.locate_plateaus` (tol, width_floor relative to V).
 
@@ -192,109 +198,80 @@ def check_strain(table: StrainTable, strain: float, spec="mf", mu: float | None 
         mu = float(mu)
         if not math.isfinite(mu):
             raise ConfigError(f"mu: must be a finite number, got {mu}")
-    if not spec.capabilities.grand_canonical:
-        return _check_strain_ed(table, strain, spec, model, mu, lab)
     kw = dict(tol=tol, width_floor=width_floor, jump_tol=jump_tol, thresholds=thresholds, n_mu=n_mu)
-    res = locate_plateaus([model], lab, spec, **kw)
+    rec = spec.impl.strain_step(spec, [model], lab, **kw)
     Vref = max(abs(v) for v in model.V)
-    t_over_V = max(model.t) / Vref if Vref > 0 else math.inf
-    width = float(res.width[0])
-    plateau = {
-        "fraction": lab, "exists": bool(res.exists[0]), "reached": bool(res.reached[0]),
-        "mu_lo": float(res.mu_lo[0]), "mu_hi": float(res.mu_hi[0]), "width": width,
-        "width_over_V": width / Vref if Vref > 0 else None,
-        "label": str(res.label_center[0]) if res.exists[0] else "",
-        "lower_edge": _edge_kind(res.jump_lo[0], jump_tol) if math.isfinite(res.mu_lo[0]) else "open",
-        "upper_edge": _edge_kind(res.jump_hi[0], jump_tol) if math.isfinite(res.mu_hi[0]) else "open",
-        "below": str(res.label_below[0]), "above": str(res.label_above[0]),
-        "edge_precision": float(res.tol[0]),
-    }
+    rel = (lambda x: float(x) / Vref if Vref > 0 else None)  # noqa: E731
+    lo, hi, w = float(rec.mu_lo[0]), float(rec.mu_hi[0]), float(rec.width[0])
+    plateau = {"fraction": lab, "sharp": rec.sharp, "mu_lo": lo, "mu_hi": hi, "width": w,
+               "mu_lo_over_V": rel(lo), "mu_hi_over_V": rel(hi), "width_over_V": rel(w), "edges": rec.info["edges"]}
+    plateau.update({k: rec.info[k] for k in ("cluster", "n_sites", "N") if k in rec.info})
+    if rec.errors:
+        plateau["errors"] = {k: float(v[0]) for k, v in rec.errors.items()}
     data = {
         "strain": float(strain), "method": spec.name, "unit": table.unit, "fraction": lab,
         "table": table.path, "extrapolated": bool(not (table.span[0] <= strain <= table.span[1])),
         "parameters": {"t": list(model.t), "V": list(model.V), "U": "inf" if model.hardcore else model.U,
-                       "V2": model.V2, "t_over_V": t_over_V, "families": list(model.families)},
-        "plateau": plateau,
-        "fixed_filling": fixed_filling(res, 0, jump_tol),
-        "flags": list(res.flags[0]),
-        "caution": spec.impl.caution,
+                       "V2": model.V2, "t_over_V": max(model.t) / Vref if Vref > 0 else math.inf,
+                       "families": list(model.families)},
+        "plateau": plateau, "flags": list(rec.flags[0]), "caution": spec.impl.caution,
+        "converged": bool(rec.converged[0]),
     }
+    report = spec.impl.strain_point(spec, model, rec, mu, lab, melt=melt, melt_max=melt_max, **kw)
+    for k, v in report.items():
+        if k == "plateau":
+            data["plateau"].update(v)
+        elif k == "flags":
+            data["flags"] += v
+        else:
+            data[k] = v
+    return StrainCheck(data)
+
+
+def grand_canonical_report(spec, model: Model, res, mu, lab: str, melt=True, melt_max=10.0, thresholds=Thresholds(),
+                           width_floor=1e-3, jump_tol=1e-3, n_mu=121) -> dict:
+    """Sections of a one-strain check that only a grand-canonical plateau has (see :func:`check_strain`)."""
+    out = {"plateau": {
+        "exists": bool(res.exists[0]), "reached": bool(res.reached[0]),
+        "label": str(res.label_center[0]) if res.exists[0] else "",
+        "lower_edge": _edge_kind(res.jump_lo[0], jump_tol) if math.isfinite(res.mu_lo[0]) else "open",
+        "upper_edge": _edge_kind(res.jump_hi[0], jump_tol) if math.isfinite(res.mu_hi[0]) else "open",
+        "below": str(res.label_below[0]), "above": str(res.label_above[0]), "edge_precision": float(res.tol[0]),
+    }, "fixed_filling": fixed_filling(res, 0, jump_tol), "flags": []}
     if mu is not None:
         pt = evaluate_points([model], np.array([[mu]]), spec, thresholds)
         conv = bool(pt["converged"][0, 0])
         m = mu_margin(res, 0, mu)
-        inside = bool(res.exists[0] and m >= 0)
         nearest = None
         if res.exists[0] and res.reached[0]:
             d_lo, d_hi = abs(mu - res.mu_lo[0]), abs(mu - res.mu_hi[0])
             nearest = "lower" if d_lo <= d_hi else "upper"
-        data["at_mu"] = {"mu": mu, "converged": conv, "phase": str(pt["phase"][0, 0]) if conv else "unconverged",
-                         "label": str(pt["label"][0, 0]) if conv else "unconverged",
-                         "filling": float(pt["filling"][0, 0]) if conv else None,
-                         "inside_plateau": inside, "margin_mu": float(m) if math.isfinite(m) else None,
-                         "nearest_edge": nearest}
+        out["at_mu"] = {"mu": mu, "converged": conv, "phase": str(pt["phase"][0, 0]) if conv else "unconverged",
+                        "label": str(pt["label"][0, 0]) if conv else "unconverged",
+                        "filling": float(pt["filling"][0, 0]) if conv else None,
+                        "inside_plateau": bool(res.exists[0] and m >= 0), "margin_mu": float(m) if math.isfinite(m) else None,
+                        "nearest_edge": nearest}
         if not conv:
-            data["flags"].append(f"unconverged: the state at mu = {mu:g} did not converge (not classified)")
+            out["flags"].append(f"unconverged: the state at mu = {mu:g} did not converge (not classified)")
     if melt and res.reached[0]:
+        Vref = max(abs(v) for v in model.V)
+        t_over_V = max(model.t) / Vref if Vref > 0 else math.inf
         mf = melt_factor(model, spec, lab, f_max=melt_max, width_floor=width_floor, jump_tol=jump_tol,
                          thresholds=thresholds, n_mu=n_mu)
-        data["melt"] = {**mf, "t_over_V_at_melt": (mf["factor"] * t_over_V if mf["factor"] else None)}
-        data["flags"] += [f"melt search: {x}" for x in mf["flags"]]
-    ok = not any(x.startswith("unconverged") for x in data["flags"])
-    data["converged"] = ok
+        out["melt"] = {**mf, "t_over_V_at_melt": (mf["factor"] * t_over_V if mf["factor"] else None)}
+        out["flags"] += [f"melt search: {x}" for x in mf["flags"]]
+    ok = res.ok(0) and not any(x.startswith("unconverged") for x in out["flags"])
+    out["converged"] = ok
     if not res.reached[0]:
-        data["verdict"] = "not-reached"
+        out["verdict"] = "not-reached"
     elif not ok:
-        data["verdict"] = "uncertain"
+        out["verdict"] = "uncertain"
     else:
-        data["verdict"] = "holds" if res.exists[0] else "melted"
-    return StrainCheck(data)
+        out["verdict"] = "holds" if res.exists[0] else "melted"
+    return out
 
 
-def _check_strain_ed(table: StrainTable, strain: float, spec: MethodSpec, model: Model, mu, lab: str) -> StrainCheck:
-    """ED branch of :func:`check_strain`: the finite-cluster step at N = f L (no melt factor, no sharp edge)."""
-    from .ed_method import ed_plateaus
-
-    r = ed_plateaus([model], spec, lab)
-    Vref = max(abs(v) for v in model.V)
-    rel = (lambda x: x / Vref) if Vref > 0 else (lambda x: None)  # noqa: E731
-    lo, hi, gap = float(r.mu_minus[0]), float(r.mu_plus[0]), float(r.gap[0])
-    sk = float(r.sk[0])
-    data = {
-        "strain": float(strain), "method": spec.name, "kind": "ed", "ensemble": "canonical (finite periodic cluster)",
-        "cluster": r.cluster, "n_sites": r.n_sites, "N": r.N, "unit": table.unit, "fraction": lab,
-        "table": table.path, "extrapolated": bool(not (table.span[0] <= strain <= table.span[1])),
-        "parameters": {"t": list(model.t), "V": list(model.V), "U": "inf" if model.hardcore else model.U,
-                       "V2": model.V2, "t_over_V": max(model.t) / Vref if Vref > 0 else math.inf,
-                       "families": list(model.families)},
-        "plateau": {
-            "fraction": lab, "N": r.N, "n_sites": r.n_sites, "mu_lo": lo, "mu_hi": hi, "width": gap,
-            "mu_lo_over_V": rel(lo), "mu_hi_over_V": rel(hi), "width_over_V": rel(gap),
-            "edges": "canonical mu-(N) = E_c(N) - E_c(N-1), mu+(N) = E_c(N+1) - E_c(N); width = charge gap",
-            "E_canonical": {str(r.N - 1): float(r.e_canonical[0, 0]), str(r.N): float(r.e_canonical[0, 1]),
-                            str(r.N + 1): float(r.e_canonical[0, 2])},
-        },
-        "order": {"S(K)/N": sk, "threshold": r.threshold, "above_threshold": bool(sk > r.threshold),
-                  "perfect_solid": 1.0 / 9.0 if lab == "1/3" else None, "sq_max": float(r.sq_max[0]),
-                  "q_max": r.q_max[0],
-                  "threshold_source": "phasemap.ed.EDThresholds.sq (finite-size density-order indicator)"},
-        "critical": {"sharp": False,
-                     "text": "on a finite cluster the charge gap never closes exactly, so ED gives no sharp "
-                             "critical strain (compare clusters: only the scaling with size decides)"},
-        "residual": float(r.residual[0]), "seconds": float(r.seconds[0]),
-        "flags": list(r.flags[0]), "caution": spec.impl.caution, "converged": True,
-    }
-    if mu is not None:
-        m = min(mu - lo, hi - mu)
-        data["at_mu"] = {"mu": mu, "inside_step": bool(lo <= mu <= hi), "margin_mu": float(m),
-                         "margin_mu_over_V": rel(float(m)),
-                         "nearest_edge": "lower" if abs(mu - lo) <= abs(mu - hi) else "upper",
-                         "compared": f"N = {r.N - 1}, {r.N}, {r.N + 1} only"}
-    data["verdict"] = "ordered-on-cluster" if sk > r.threshold else "no-order-on-cluster"
-    return StrainCheck(data)
-
-
-def _verdict_text_ed(d: dict) -> str:
+def _verdict_text_step(d: dict) -> str:
     u = d["unit"]
     p, o = d["plateau"], d["order"]
     frac = d["fraction"]
@@ -331,9 +308,10 @@ def _closing_lines(d: dict) -> list[str]:
 
 
 def verdict_text(d: dict) -> str:
-    """Plain-language verdict from a :func:`check_strain` dictionary."""
-    if d.get("kind") == "ed":
-        return _verdict_text_ed(d)
+    """Plain-language verdict from a :func:`check_strain` dictionary (finite-lattice steps and
+    sharp plateaus are described in their own words)."""
+    if not d["plateau"].get("sharp", True):
+        return _verdict_text_step(d)
     u = d["unit"]
     p = d["plateau"]
     frac = d["fraction"]

@@ -87,6 +87,11 @@ class CriticalResult:
     extrapolation_hint: float | None = None
     flags: list = field(default_factory=list)
 
+    @property
+    def in_band(self) -> bool:
+        """A sharp critical strain was found (it enters the band across methods)."""
+        return self.strain_c is not None
+
     def to_dict(self) -> dict:
         return {
             "method": self.method, "fraction": self.fraction, "criterion": self.criterion, "status": self.status,

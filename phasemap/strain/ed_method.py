@@ -47,7 +47,7 @@ from ..model import ConfigError, Model
 from ..methods import MethodSpec, get_method
 from .engine import parse_fraction
 
-__all__ = ["DEFAULT_ED_CLUSTER", "ED_CAUTION", "EDPlateau", "ed_setup", "ed_plateaus", "ed_indicator",
+__all__ = ["DEFAULT_ED_CLUSTER", "ED_CAUTION", "EDPlateau", "ed_setup", "ed_plateaus", "ed_indicator", "ed_report",
            "clear_ed_cache"]
 
 DEFAULT_ED_CLUSTER = "tri12"
@@ -116,6 +116,23 @@ class EDPlateau:
     def ordered(self) -> np.ndarray:
         """S(K)/N above the density-order indicator threshold (finite-size indicator)."""
         return self.sk > self.threshold
+
+    def to_record(self):
+        """The common :class:`~phasemap.strain.record.StepRecord` (finite-cluster step, not sharp)."""
+        from .record import StepRecord
+
+        from ..ed.solve import RESIDUAL_TOL
+
+        scale = np.maximum(1.0, np.nanmax(np.abs(self.e_canonical), axis=1))
+        conv = self.residual <= RESIDUAL_TOL * scale  # eigen-residual, as in phasemap.ed.solve_ed
+        return StepRecord(
+            method=self.method, fraction=self.fraction, sharp=False, mu_lo=self.mu_minus, mu_hi=self.mu_plus,
+            width=self.gap, exists=self.ordered, converged=conv,
+            order={"S(K)/N": self.sk, "sq_max": self.sq_max},
+            flags=self.flags,
+            info={"cluster": self.cluster, "n_sites": self.n_sites, "N": self.N, "SK_threshold": self.threshold,
+                  "edges": "canonical mu-(N) = E_c(N) - E_c(N-1), mu+(N) = E_c(N+1) - E_c(N); width = charge gap"},
+            detail=self)
 
 
 def ed_setup(spec, models, fraction="1/3", budget_gib=None):
@@ -279,3 +296,35 @@ def ed_indicator(strains, ed: EDPlateau, vref, unit: str) -> dict:
             "smallest_gap": {"strain": float(s[k]), "gap": float(ed.gap[k]), "gap_over_V": float(ed.gap[k] / vref[k])},
             "SK_threshold": ed.threshold, "SK_above_threshold": [bool(x) for x in above],
             "text": txt}
+
+
+def ed_report(model: Model, r: EDPlateau, mu) -> dict:
+    """Sections of a one-strain check that the finite-cluster ED step has (see
+    :func:`phasemap.strain.check_strain`): ensemble, order S(K)/N, no sharp transition, state at mu."""
+    Vref = max(abs(v) for v in model.V)
+    rel = (lambda x: x / Vref) if Vref > 0 else (lambda x: None)  # noqa: E731
+    lo, hi = float(r.mu_minus[0]), float(r.mu_plus[0])
+    sk = float(r.sk[0])
+    lab = r.fraction
+    out = {
+        "kind": "ed", "ensemble": "canonical (finite periodic cluster)", "cluster": r.cluster,
+        "n_sites": r.n_sites, "N": r.N,
+        "plateau": {"E_canonical": {str(r.N - 1): float(r.e_canonical[0, 0]), str(r.N): float(r.e_canonical[0, 1]),
+                                    str(r.N + 1): float(r.e_canonical[0, 2])}},
+        "order": {"S(K)/N": sk, "threshold": r.threshold, "above_threshold": bool(sk > r.threshold),
+                  "perfect_solid": 1.0 / 9.0 if lab == "1/3" else None, "sq_max": float(r.sq_max[0]),
+                  "q_max": r.q_max[0],
+                  "threshold_source": "phasemap.ed.EDThresholds.sq (finite-size density-order indicator)"},
+        "critical": {"sharp": False,
+                     "text": "on a finite cluster the charge gap never closes exactly, so ED gives no sharp "
+                             "critical strain (compare clusters: only the scaling with size decides)"},
+        "residual": float(r.residual[0]), "seconds": float(r.seconds[0]),
+        "verdict": "ordered-on-cluster" if sk > r.threshold else "no-order-on-cluster",
+    }
+    if mu is not None:
+        m = min(mu - lo, hi - mu)
+        out["at_mu"] = {"mu": mu, "inside_step": bool(lo <= mu <= hi), "margin_mu": float(m),
+                        "margin_mu_over_V": rel(float(m)),
+                        "nearest_edge": "lower" if abs(mu - lo) <= abs(mu - hi) else "upper",
+                        "compared": f"N = {r.N - 1}, {r.N}, {r.N + 1} only"}
+    return out

@@ -33,10 +33,10 @@ import numpy as np
 
 from ..classify import Thresholds
 from ..model import ConfigError, Model
-from ..methods import MethodSpec, parse_specs as parse_methods
+from ..methods import MethodSpec
 from ..params import ParamBatch
 
-__all__ = ["MethodSpec", "parse_methods", "PlateauResult", "locate_plateaus", "evaluate_points",
+__all__ = ["PlateauResult", "locate_plateaus", "evaluate_points",
            "default_window", "parse_fraction", "INCOMPRESSIBLE", "clear_cache"]
 
 INCOMPRESSIBLE = ("empty", "full", "mott", "solid")
@@ -242,6 +242,17 @@ class PlateauResult:
     def ok(self, p: int) -> bool:
         """True when no non-converged point touched the answer of model ``p``."""
         return not any(f.startswith("unconverged") for f in self.flags[p])
+
+    def to_record(self, method: str):
+        """The common :class:`~phasemap.strain.record.StepRecord` (sharp grand-canonical edges)."""
+        from .record import StepRecord
+
+        return StepRecord(
+            method=method, fraction=self.fraction, sharp=True, mu_lo=self.mu_lo, mu_hi=self.mu_hi,
+            width=self.width, exists=self.exists, converged=np.array([self.ok(p) for p in range(self.size)]),
+            order={"sq_max": self.sq_center, "condensate_max": self.condensate_center},
+            flags=self.flags, info={"edges": "grand-canonical plateau edges (bisected on the filling)"},
+            grid=self.grid, detail=self)
 
 
 def _first_true(cond: np.ndarray, valid: np.ndarray) -> np.ndarray:

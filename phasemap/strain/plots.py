@@ -7,10 +7,11 @@
 * :func:`plot_phase_map` — (strain, mu) phase map, one panel per method;
 * :func:`plot_critical_vs_lambda` — critical strain versus the interaction scale factor.
 
-ED methods (``ed:<cluster>``, canonical finite cluster) appear as their own lines: the
-cluster's step edges mu-(N), mu+(N) at N = f L (open markers, not shaded: a finite-cluster
-gap is not a plateau), S(K)/N with the indicator threshold, and gap/V; their steepest-drop
-strain is marked as an indicator (triangle), never as a critical strain.
+Every method is drawn from its :class:`~phasemap.strain.record.StepRecord`. Methods with sharp
+edges (mf, cmf) are solid lines with the solid region shaded; finite-lattice methods (ed) are
+open markers, not shaded (a finite-cluster gap is not a plateau), with S(K)/N, the indicator
+threshold and gap/V; their steepest-drop strain is marked as an indicator (triangle), never as
+a critical strain.
 
 Sized for journal columns (3.4 in single, 7.0 in double), axis labels with units; written as
 PNG + PDF by :func:`save_all` through :func:`phasemap.plot.save_figure` (atomic).
@@ -46,17 +47,14 @@ def method_colors(names) -> dict:
     return {n: _CYCLE[i % len(_CYCLE)] for i, n in enumerate(names)}
 
 
-def _all_names(sweep) -> list:
-    return list(getattr(sweep, "all_names", sweep.names))
+def _finite_names(sweep) -> list:
+    """Methods whose record is a finite-lattice step (no sharp edges)."""
+    return [n for n in sweep.names if not sweep.records[n].sharp]
 
 
-def _ed_names(sweep) -> list:
-    return list(getattr(sweep, "ed_names", []))
-
-
-def _ed_label(sweep, n) -> str:
-    e = sweep.ed[n]
-    return f"{n} (ED, {e.n_sites} sites, N={e.N})"
+def _finite_label(sweep, n) -> str:
+    info = sweep.records[n].info
+    return f"{n} ({info.get('n_sites', '?')} sites, N={info.get('N', '?')})"
 
 
 def _fig(w, h):
@@ -71,7 +69,7 @@ def _mark_critical(ax, sweep, colors):
         ax.axvspan(b["lo"], b["hi"], color="0.85", zorder=0, lw=0, label="band across methods")
     for n in sweep.names:
         c = sweep.critical[n]
-        if c.strain_c is not None:
+        if c.in_band:
             ax.axvline(c.strain_c, color=colors[n], ls=":", lw=0.9)
 
 
@@ -80,11 +78,11 @@ def plot_plateau_edges(sweep) -> Figure:
     with rc_context(_style()):
         fig = _fig(SINGLE, 2.6)
         ax = fig.add_subplot()
-        colors = method_colors(_all_names(sweep))
+        colors = method_colors(sweep.names)
         _mark_critical(ax, sweep, colors)
         s = sweep.strains
-        for i, n in enumerate(sweep.names):
-            r = sweep.plateaus[n]
+        for i, n in enumerate(sweep.sharp_names):
+            r = sweep.records[n]
             ok = r.exists & np.isfinite(r.mu_lo) & np.isfinite(r.mu_hi)
             lo = np.where(ok, r.mu_lo, np.nan)
             hi = np.where(ok, r.mu_hi, np.nan)
@@ -93,28 +91,29 @@ def plot_plateau_edges(sweep) -> Figure:
             ax.plot(s, lo, ls=ls, color=colors[n], marker=".", ms=3, label=f"{n}")
             ax.plot(s, hi, ls=ls, color=colors[n], marker=".", ms=3)
             c = sweep.critical[n]
-            if c.strain_c is not None:
+            if c.in_band:
                 ax.plot([], [], color=colors[n], ls=":", lw=0.9, label=f"{n}: $s_c$ = {c.strain_c:.4g}")
-        for n in _ed_names(sweep):
-            e = sweep.ed[n]
-            ax.plot(s, e.mu_minus, ls="--", color=colors[n], marker="o", mfc="none", ms=3, lw=0.9,
-                    label=f"{_ed_label(sweep, n)}: μ∓(N)")
-            ax.plot(s, e.mu_plus, ls="--", color=colors[n], marker="o", mfc="none", ms=3, lw=0.9)
+        for n in _finite_names(sweep):
+            e = sweep.records[n]
+            ax.plot(s, e.mu_lo, ls="--", color=colors[n], marker="o", mfc="none", ms=3, lw=0.9,
+                    label=f"{_finite_label(sweep, n)}: μ∓(N)")
+            ax.plot(s, e.mu_hi, ls="--", color=colors[n], marker="o", mfc="none", ms=3, lw=0.9)
         ax.set_xlabel(sweep.table.strain_label)
         ax.set_ylabel(f"μ [{sweep.table.unit}]")
+        fin = _finite_names(sweep)
         title = f"{sweep.fraction} plateau (shaded: solid)"
-        if _ed_names(sweep):
-            title = f"{sweep.fraction} plateau (shaded: solid; ED: finite-cluster step)"
-        ax.set_title(title, fontsize=8 if not _ed_names(sweep) else 7)
-        ax.legend(frameon=False, loc="best", fontsize=5 if _ed_names(sweep) else None)
+        if fin:
+            title = f"{sweep.fraction} plateau (shaded: solid; open markers: finite-cluster step)"
+        ax.set_title(title, fontsize=8 if not fin else 7)
+        ax.legend(frameon=False, loc="best", fontsize=5 if fin else None)
     return fig
 
 
 def _mu_index(sweep, mu):
-    if not sweep.names:
+    if not sweep.grid_names:
         return None, mu
     if mu is None:
-        r = sweep.plateaus[sweep.names[0]]
+        r = sweep.records[sweep.grid_names[0]]
         ok = r.exists & np.isfinite(r.mu_lo) & np.isfinite(r.mu_hi)
         mu = 0.5 * (r.mu_lo[ok][0] + r.mu_hi[ok][0]) if ok.any() else sweep.mu[len(sweep.mu) // 2]
     return int(np.argmin(np.abs(sweep.mu - mu))), mu
@@ -129,34 +128,35 @@ def plot_order_parameters(sweep, mu=None) -> Figure:
     with rc_context(_style()):
         fig = _fig(SINGLE, 4.2)
         axes = fig.subplots(3, 1, sharex=True)
-        colors = method_colors(_all_names(sweep))
-        for i, n in enumerate(sweep.names):
-            g = sweep.plateaus[n].grid
+        colors = method_colors(sweep.names)
+        for i, n in enumerate(sweep.grid_names):
+            g = sweep.records[n].grid
             ls = _STYLES[i % len(_STYLES)]
             conv = g["converged"][:, k]
             sq = np.where(conv, g["sq_max"][:, k], np.nan)
             cd = np.where(conv, g["condensate_max"][:, k], np.nan)
             axes[0].plot(sweep.strains, sq, ls=ls, color=colors[n], marker=".", ms=3, label=n)
             axes[1].plot(sweep.strains, cd, ls=ls, color=colors[n], marker=".", ms=3, label=n)
-            r = sweep.plateaus[n]
+            r = sweep.records[n]
             axes[2].plot(sweep.strains, r.width / vref, ls=ls, color=colors[n], marker=".", ms=3, label=n)
             if (~conv).any():
                 axes[0].plot(sweep.strains[~conv], np.zeros((~conv).sum()), "x", color=colors[n], ms=4,
                              label=f"{n}: not converged")
-        eds = _ed_names(sweep)
+        eds = _finite_names(sweep)
         for n in eds:
-            e = sweep.ed[n]
-            axes[0].plot(sweep.strains, e.sk, ls="--", color=colors[n], marker="o", mfc="none", ms=3, lw=0.9,
-                         label=f"{_ed_label(sweep, n)}: S(K)/N")
-            axes[2].plot(sweep.strains, e.gap / vref, ls="--", color=colors[n], marker="o", mfc="none", ms=3, lw=0.9,
+            e = sweep.records[n]
+            sk = e.order.get("S(K)/N", np.full(len(sweep.strains), np.nan))
+            axes[0].plot(sweep.strains, sk, ls="--", color=colors[n], marker="o", mfc="none", ms=3, lw=0.9,
+                         label=f"{_finite_label(sweep, n)}: S(K)/N")
+            axes[2].plot(sweep.strains, e.width / vref, ls="--", color=colors[n], marker="o", mfc="none", ms=3, lw=0.9,
                          label=f"{n}: gap/V")
-            d = sweep.ed_critical[n].get("indicator_SK_drop")
+            d = sweep.critical[n].to_dict().get("indicator_SK_drop")
             if d:
-                axes[0].plot([d["strain"]], [np.interp(d["strain"], sweep.strains, e.sk)], marker="v", color=colors[n],
+                axes[0].plot([d["strain"]], [np.interp(d["strain"], sweep.strains, sk)], marker="v", color=colors[n],
                              ms=5, ls="none", label=f"{n}: steepest S(K)/N drop {d['strain']:.3g} (indicator)")
-        if eds:
-            thr = sweep.ed[eds[0]].threshold
-            axes[0].axhline(thr, color="0.4", lw=0.6, ls=":", label=f"ED order indicator {thr:g}")
+        thr = [sweep.records[n].info["SK_threshold"] for n in eds if "SK_threshold" in sweep.records[n].info]
+        if thr:
+            axes[0].axhline(thr[0], color="0.4", lw=0.6, ls=":", label=f"finite-cluster order indicator {thr[0]:g}")
         for ax in axes:
             _mark_critical(ax, sweep, colors)
         axes[0].set_ylabel("S(Q) (solid order)" if not eds else "S(Q), ED: S(K)/N")
@@ -178,10 +178,10 @@ def plot_phase_map(sweep) -> Figure:
     """(strain, mu) phase map, one panel per method, with the plateau edges overlaid."""
     from ..plot import phase_colors, sort_labels
 
-    names = sweep.names
+    names = sweep.grid_names
     if not names:
-        return None  # ED only: canonical, no (strain, mu) map
-    labels = sort_labels(np.unique(np.concatenate([sweep.plateaus[n].grid["label"].ravel() for n in names])))
+        return None  # finite-lattice methods only: no (strain, mu) map
+    labels = sort_labels(np.unique(np.concatenate([sweep.records[n].grid["label"].ravel() for n in names])))
     colors = phase_colors(labels)
     idx = {lab: i for i, lab in enumerate(labels)}
     cmap = ListedColormap([colors[lab] for lab in labels])
@@ -192,15 +192,15 @@ def plot_phase_map(sweep) -> Figure:
         axes = np.atleast_1d(fig.subplots(1, len(names), sharey=True))
         s, mu = sweep.strains, sweep.mu
         for ax, n in zip(axes, names):
-            lab = sweep.plateaus[n].grid["label"]
+            lab = sweep.records[n].grid["label"]
             codes = np.vectorize(idx.get)(lab)
             ax.pcolormesh(_edges(s), _edges(mu), codes.T, cmap=cmap, norm=norm, shading="flat", rasterized=True)
-            r = sweep.plateaus[n]
+            r = sweep.records[n]
             ok = r.exists
             ax.plot(s[ok], r.mu_lo[ok], "k-", lw=0.7)
             ax.plot(s[ok], r.mu_hi[ok], "k-", lw=0.7)
             c = sweep.critical[n]
-            if c.strain_c is not None:
+            if c.in_band:
                 ax.axvline(c.strain_c, color="k", ls=":", lw=0.8)
             ax.set_title(n, fontsize=8)
             ax.set_xlabel(sweep.table.strain_label)
@@ -226,7 +226,7 @@ def plot_critical_vs_lambda(sweep) -> Figure | None:
     with rc_context(_style()):
         fig = _fig(SINGLE, 2.6)
         ax = fig.add_subplot()
-        colors = method_colors(_all_names(sweep))
+        colors = method_colors(sweep.names)
         for i, n in enumerate(sweep.names):
             L = sweep.lambdas.get(n)
             if L is None:

@@ -1,13 +1,16 @@
 """Strain sweep for several methods: plateau edges, (strain, mu) phase map, critical strain, lambda scan.
 
-:func:`strain_sweep` solves, per method, every strain of the path on one common chemical-
-potential grid in one batched call (the phase map), locates the plateau edges at every
-strain, and polishes the critical strain with brentq from those samples (so the sweep's
-critical strain *is* the root-finding answer). ED methods (``ed:<cluster>``, canonical) give
-the finite-cluster step mu-(N), mu+(N), its charge gap and S(K)/N at N = f L at every strain
-of the path (:mod:`phasemap.strain.ed_method`); they have no sharp critical strain, only a
-labelled steepest-drop indicator, and are never part of the band. :meth:`StrainSweep.save` writes labelled
-data (NetCDF + CSV with metadata + JSON) atomically; :mod:`phasemap.strain.plots` draws it.
+:func:`strain_sweep` runs one path for every method: the method's
+:meth:`~phasemap.methods.Method.strain_step` gives a :class:`~phasemap.strain.record.StepRecord`
+at every strain of the path and :meth:`~phasemap.methods.Method.strain_critical` the critical
+strain. Grand-canonical methods (mf, cmf:<cluster>) solve every strain on one common
+chemical-potential grid in one batched call (the phase map), locate the plateau edges, and
+polish the critical strain with brentq from those samples (so the sweep's critical strain *is*
+the root-finding answer). Finite-lattice methods (ed:<cluster>) give the step mu-(N), mu+(N),
+its gap and S(K)/N at N = f L; they have no sharp critical strain, only a labelled
+steepest-drop indicator, and are never part of the band. :meth:`StrainSweep.save` writes
+labelled data (NetCDF + CSV with metadata + JSON, one method dimension ``solver``) atomically;
+:mod:`phasemap.strain.plots` draws it.
 """
 
 from __future__ import annotations
@@ -20,11 +23,10 @@ import numpy as np
 import xarray as xr
 
 from ..classify import Thresholds
+from ..methods import parse_specs
 from .analysis import CAUTION
-from .ed_method import ED_CAUTION
-from .critical import coarse_strains, critical_band, critical_strain
-from ..methods import parse_specs as parse_methods
-from .engine import default_window, fixed_filling, locate_plateaus, parse_fraction
+from .critical import coarse_strains, critical_band
+from .engine import default_window, fixed_filling, parse_fraction
 from .sensitivity import critical_vs_lambda
 from .table import StrainTable
 
@@ -36,81 +38,64 @@ class StrainSweep:
     """Everything a strain sweep computed (see :func:`strain_sweep`)."""
 
     table: StrainTable
-    methods: list
+    methods: list  # MethodSpec of every method, in the order given
     fraction: str
     strains: np.ndarray
     mu: np.ndarray
-    plateaus: dict  # method name -> PlateauResult (with grid)
-    critical: dict  # method name -> CriticalResult
+    records: dict  # method name -> StepRecord along the path
+    critical: dict  # method name -> CriticalResult (sharp) or IndicatorResult (finite lattice)
     band: dict
     lambdas: dict = field(default_factory=dict)  # method name -> LambdaScan
     seconds: dict = field(default_factory=dict)
-    ed_methods: list = field(default_factory=list)  # MethodSpec of the ED methods
-    ed: dict = field(default_factory=dict)  # ED method name -> EDPlateau
-    ed_critical: dict = field(default_factory=dict)  # ED method name -> indicator dict (no sharp transition)
     notes: list = field(default_factory=list)
 
     @property
     def names(self) -> list[str]:
-        """Grand-canonical methods (mf, cmf:<cluster>)."""
         return [m.name for m in self.methods]
 
     @property
-    def ed_names(self) -> list[str]:
-        return [m.name for m in self.ed_methods]
+    def sharp_names(self) -> list[str]:
+        """Methods with thermodynamic plateau edges (their critical strains form the band)."""
+        return [n for n in self.names if self.records[n].sharp]
 
     @property
-    def all_names(self) -> list[str]:
-        return self.names + self.ed_names
+    def grid_names(self) -> list[str]:
+        """Methods that computed the (strain, mu) map."""
+        return [n for n in self.names if self.records[n].grid is not None]
 
     def vref(self) -> np.ndarray:
         return np.abs(self.table.params(self.strains)["V"]).max(1)
 
-    def ed_table(self) -> dict:
-        """Long-format ED columns: one row per (ED method, strain)."""
-        cols = {k: [] for k in ("method", "cluster", "n_sites", "N", "strain", "t_over_V", "mu_minus", "mu_plus",
-                                "gap", "mu_minus_over_V", "mu_plus_over_V", "gap_over_V", "SK_per_site",
-                                "SK_above_indicator", "sq_max", "q_max", "residual")}
+    def plateau_table(self) -> dict:
+        """Long-format columns: one row per (method, strain); columns a method lacks are empty/NaN."""
+        nan = float("nan")
+        order_keys = sorted({k for r in self.records.values() for k in r.order})
+        err_keys = sorted({k for r in self.records.values() for k in r.errors})
+        cols = {k: [] for k in ("method", "sharp", "strain", "t_over_V", "mu_lo", "mu_hi", "width", "width_over_V",
+                                "plateau", "converged", "fixed_filling_state", "fixed_filling_label",
+                                "lower_edge_jump", "upper_edge_jump", "cluster", "n_sites", "N")}
+        cols.update({f"order_{k}": [] for k in order_keys})
+        cols.update({f"error_{k}": [] for k in err_keys})
         ratio = self.table.ratio(self.strains)
         vref = self.vref()
-        for name in self.ed_names:
-            e = self.ed[name]
-            for i, s in enumerate(self.strains):
-                for k, v in (("method", name), ("cluster", e.cluster), ("n_sites", e.n_sites), ("N", e.N),
-                             ("strain", float(s)), ("t_over_V", float(ratio[i])),
-                             ("mu_minus", float(e.mu_minus[i])), ("mu_plus", float(e.mu_plus[i])),
-                             ("gap", float(e.gap[i])), ("mu_minus_over_V", float(e.mu_minus[i] / vref[i])),
-                             ("mu_plus_over_V", float(e.mu_plus[i] / vref[i])), ("gap_over_V", float(e.gap[i] / vref[i])),
-                             ("SK_per_site", float(e.sk[i])), ("SK_above_indicator", bool(e.ordered[i])),
-                             ("sq_max", float(e.sq_max[i])), ("q_max", str(e.q_max[i])),
-                             ("residual", float(e.residual[i]))):
-                    cols[k].append(v)
-        return cols
-
-    def plateau_table(self) -> dict:
-        """Long-format columns: one row per (method, strain)."""
-        cols = {k: [] for k in ("method", "strain", "t_over_V", "mu_lo", "mu_hi", "width", "width_over_V",
-                                "plateau", "fixed_filling_state", "fixed_filling_label", "lower_edge_jump",
-                                "upper_edge_jump", "converged")}
-        ratio = self.table.ratio(self.strains)
-        vref = np.abs(self.table.params(self.strains)["V"]).max(1)
         for name in self.names:
-            r = self.plateaus[name]
+            r = self.records[name]
+            d = r.detail
             for i, s in enumerate(self.strains):
-                ff = fixed_filling(r, i)
-                cols["method"].append(name)
-                cols["strain"].append(float(s))
-                cols["t_over_V"].append(float(ratio[i]))
-                cols["mu_lo"].append(float(r.mu_lo[i]))
-                cols["mu_hi"].append(float(r.mu_hi[i]))
-                cols["width"].append(float(r.width[i]))
-                cols["width_over_V"].append(float(r.width[i] / vref[i]) if vref[i] > 0 else float("nan"))
-                cols["plateau"].append(bool(r.exists[i]))
-                cols["fixed_filling_state"].append(ff.get("state", ""))
-                cols["fixed_filling_label"].append(ff.get("label", ""))
-                cols["lower_edge_jump"].append(float(r.jump_lo[i]))
-                cols["upper_edge_jump"].append(float(r.jump_hi[i]))
-                cols["converged"].append(bool(r.ok(i)))
+                ff = fixed_filling(d, i) if r.sharp else {}
+                row = {"method": name, "sharp": bool(r.sharp), "strain": float(s), "t_over_V": float(ratio[i]),
+                       "mu_lo": float(r.mu_lo[i]), "mu_hi": float(r.mu_hi[i]), "width": float(r.width[i]),
+                       "width_over_V": float(r.width[i] / vref[i]) if vref[i] > 0 else nan,
+                       "plateau": bool(r.exists[i]), "converged": bool(r.converged[i]),
+                       "fixed_filling_state": ff.get("state", ""), "fixed_filling_label": ff.get("label", ""),
+                       "lower_edge_jump": float(d.jump_lo[i]) if r.sharp else nan,
+                       "upper_edge_jump": float(d.jump_hi[i]) if r.sharp else nan,
+                       "cluster": str(r.info.get("cluster", "")), "n_sites": int(r.info.get("n_sites", 0)),
+                       "N": int(r.info.get("N", -1))}
+                row.update({f"order_{k}": float(r.order[k][i]) if k in r.order else nan for k in order_keys})
+                row.update({f"error_{k}": float(r.errors[k][i]) if k in r.errors else nan for k in err_keys})
+                for k, v in row.items():
+                    cols[k].append(v)
         return cols
 
     def metadata(self) -> dict:
@@ -123,88 +108,89 @@ class StrainSweep:
             "lattice": self.table.lattice, "hardcore": int(self.table.hardcore), "fraction": self.fraction,
             "methods": json.dumps(self.names), "critical": json.dumps({k: v.to_dict() for k, v in self.critical.items()}),
             "band": json.dumps(self.band), "caution": CAUTION, "phasemap_version": __version__,
-            "ed_methods": json.dumps(self.ed_names), "ed_critical": json.dumps(self.ed_critical),
-            "ed_caution": ED_CAUTION if self.ed_names else "",
+            "method_cautions": json.dumps({m.name: m.impl.caution for m in self.methods}),
             "table_rows": json.dumps(self.table.to_dict()),
         }
 
     def to_dataset(self) -> xr.Dataset:
-        """Labelled arrays: (method, strain, mu) map and (method, strain) plateau data."""
+        """Labelled arrays with one method dimension, ``solver`` (every method of the sweep; not
+        called "method" because ``Dataset.sel(method=...)`` is xarray's interpolation keyword): the
+        (solver, strain, mu) map of the methods that computed one, and the (solver, strain)
+        plateau record of every method."""
         from ..api import phase_codes
 
         codes = phase_codes()
         names = self.names
-        shp = (len(names), len(self.strains), len(self.mu))
-        fill = np.full(shp, np.nan)
-        sq = np.full(shp, np.nan)
-        cond = np.full(shp, np.nan)
-        conv = np.zeros(shp, bool)
-        code = np.full(shp, -1, np.int8)
-        label = np.empty(shp, dtype=object)
-        per = {k: np.full(shp[:2], np.nan) for k in ("mu_lo", "mu_hi", "width", "jump_lo", "jump_hi")}
-        exists = np.zeros(shp[:2], bool)
-        for a, n in enumerate(names):
-            r = self.plateaus[n]
-            g = r.grid
-            fill[a], sq[a], cond[a] = g["filling"], g["sq_max"], g["condensate_max"]
-            conv[a] = g["converged"]
-            code[a] = np.vectorize(lambda x: codes.get(x, -1))(g["phase"])
-            label[a] = g["label"]
-            for k in per:
-                per[k][a] = getattr(r, k)
-            exists[a] = r.exists
-        p = self.table.params(self.strains)
-        fams = list(self.table.families)
+        A, S_, M = len(names), len(self.strains), len(self.mu)
         u = self.table.unit
-        gc = {
-                "filling": (("solver", "strain", "mu"), fill, {"long_name": "filling per site"}),
-                "sq_max": (("solver", "strain", "mu"), sq, {"long_name": "largest S(Q) at nonzero Q (solid order)"}),
-                "condensate_max": (("solver", "strain", "mu"), cond, {"long_name": "max |<b>| (condensate)"}),
-                "converged": (("solver", "strain", "mu"), conv),
-                "phase_code": (("solver", "strain", "mu"), code,
-                               {"flag_values": list(codes.values()), "flag_meanings": " ".join(codes)}),
-                "label": (("solver", "strain", "mu"), label.astype(str)),
-                "mu_lo": (("solver", "strain"), per["mu_lo"], {"units": u, "long_name": f"{self.fraction} plateau lower edge"}),
-                "mu_hi": (("solver", "strain"), per["mu_hi"], {"units": u, "long_name": f"{self.fraction} plateau upper edge"}),
-                "width": (("solver", "strain"), per["width"], {"units": u, "long_name": "plateau width"}),
-                "jump_lo": (("solver", "strain"), per["jump_lo"], {"long_name": "filling jump at the lower edge"}),
-                "jump_hi": (("solver", "strain"), per["jump_hi"], {"long_name": "filling jump at the upper edge"}),
-                "plateau": (("solver", "strain"), exists),
-        } if names else {}
-        common = {
-                "t": (("strain", "family"), p["t"], {"units": u, "long_name": "hopping (PCHIP)"}),
-                "V": (("strain", "family"), p["V"], {"units": u, "long_name": "NN repulsion (PCHIP)"}),
-                "V2": (("strain",), p["V2"], {"units": u}),
-                "t_over_V": (("strain",), self.table.ratio(self.strains), {"long_name": "max t / max V"}),
+        nanmap = lambda: np.full((A, S_, M), np.nan)  # noqa: E731
+        fill, sq, cond = nanmap(), nanmap(), nanmap()
+        conv = np.zeros((A, S_, M), bool)
+        code = np.full((A, S_, M), -1, np.int8)
+        label = np.full((A, S_, M), "", dtype=object)
+        per = {k: np.full((A, S_), np.nan) for k in ("mu_lo", "mu_hi", "width", "jump_lo", "jump_hi")}
+        exists = np.zeros((A, S_), bool)
+        rconv = np.zeros((A, S_), bool)
+        order_keys = sorted({k for r in self.records.values() for k in r.order})
+        err_keys = sorted({k for r in self.records.values() for k in r.errors})
+        order = {k: np.full((A, S_), np.nan) for k in order_keys}
+        errs = {k: np.full((A, S_), np.nan) for k in err_keys}
+        ecan = np.full((A, S_, 3), np.nan)
+        for a, n in enumerate(names):
+            r = self.records[n]
+            if r.grid is not None:
+                g = r.grid
+                fill[a], sq[a], cond[a] = g["filling"], g["sq_max"], g["condensate_max"]
+                conv[a] = g["converged"]
+                code[a] = np.vectorize(lambda x: codes.get(x, -1))(g["phase"])
+                label[a] = g["label"]
+            per["mu_lo"][a], per["mu_hi"][a], per["width"][a] = r.mu_lo, r.mu_hi, r.width
+            if r.sharp:
+                per["jump_lo"][a], per["jump_hi"][a] = r.detail.jump_lo, r.detail.jump_hi
+            if getattr(r.detail, "e_canonical", None) is not None:
+                ecan[a] = r.detail.e_canonical
+            exists[a], rconv[a] = r.exists, r.converged
+            for k in r.order:
+                order[k][a] = r.order[k]
+            for k in r.errors:
+                errs[k][a] = r.errors[k]
+        p = self.table.params(self.strains)
+        m3, m2 = ("solver", "strain", "mu"), ("solver", "strain")
+        data = {
+            "filling": (m3, fill, {"long_name": "filling per site (methods with a grand-canonical map)"}),
+            "sq_max": (m3, sq, {"long_name": "largest S(Q) at nonzero Q (solid order)"}),
+            "condensate_max": (m3, cond, {"long_name": "max |<b>| (condensate)"}),
+            "converged": (m3, conv),
+            "phase_code": (m3, code, {"flag_values": list(codes.values()), "flag_meanings": " ".join(codes)}),
+            "label": (m3, label.astype(str)),
+            "mu_lo": (m2, per["mu_lo"], {"units": u, "long_name": f"{self.fraction} plateau lower edge "
+                                         "(finite lattice: mu-(N) = E_c(N) - E_c(N-1))"}),
+            "mu_hi": (m2, per["mu_hi"], {"units": u, "long_name": f"{self.fraction} plateau upper edge "
+                                         "(finite lattice: mu+(N) = E_c(N+1) - E_c(N))"}),
+            "width": (m2, per["width"], {"units": u, "long_name": "plateau width (finite lattice: charge gap, never "
+                                         "exactly 0)"}),
+            "width_over_V": (m2, per["width"] / self.vref()[None, :], {"long_name": "width / max V"}),
+            "jump_lo": (m2, per["jump_lo"], {"long_name": "filling jump at the lower edge (sharp methods)"}),
+            "jump_hi": (m2, per["jump_hi"], {"long_name": "filling jump at the upper edge (sharp methods)"}),
+            "plateau": (m2, exists, {"long_name": "plateau present (sharp) / density order indicated (finite lattice)"}),
+            "plateau_converged": (m2, rconv),
+            "E_canonical": (("solver", "strain", "dN"), ecan,
+                            {"units": u, "long_name": "E0 + mu N at N-1, N, N+1 (canonical methods)"}),
+            "t": (("strain", "family"), p["t"], {"units": u, "long_name": "hopping (PCHIP)"}),
+            "V": (("strain", "family"), p["V"], {"units": u, "long_name": "NN repulsion (PCHIP)"}),
+            "V2": (("strain",), p["V2"], {"units": u}),
+            "t_over_V": (("strain",), self.table.ratio(self.strains), {"long_name": "max t / max V"}),
         }
-        coords = {"strain": self.strains, "mu": self.mu, "family": fams}
-        if names:
-            coords["solver"] = names
-        ed = {}
-        if self.ed_names:
-            E = [self.ed[n] for n in self.ed_names]
-            vref = self.vref()
-            st = lambda f: np.array([f(e) for e in E], float)  # noqa: E731
-            ed = {
-                "ed_mu_minus": (("ed_solver", "strain"), st(lambda e: e.mu_minus),
-                                {"units": u, "long_name": "ED canonical mu-(N) = E_c(N) - E_c(N-1), N = f L"}),
-                "ed_mu_plus": (("ed_solver", "strain"), st(lambda e: e.mu_plus),
-                               {"units": u, "long_name": "ED canonical mu+(N) = E_c(N+1) - E_c(N), N = f L"}),
-                "ed_gap": (("ed_solver", "strain"), st(lambda e: e.gap),
-                           {"units": u, "long_name": "ED charge gap mu+ - mu- (finite cluster: never exactly 0)"}),
-                "ed_gap_over_V": (("ed_solver", "strain"), st(lambda e: e.gap / vref), {"long_name": "ED gap / max V"}),
-                "ed_SK_per_site": (("ed_solver", "strain"), st(lambda e: e.sk),
-                                   {"long_name": "ED S(K)/N = <|rho_K|^2> at N = f L (perfect 1/3 solid: 1/9)",
-                                    "indicator_threshold": E[0].threshold}),
-                "ed_sq_max": (("ed_solver", "strain"), st(lambda e: e.sq_max), {"long_name": "ED max S(Q)/L, Q != 0"}),
-                "ed_E_canonical": (("ed_solver", "strain", "dN"), st(lambda e: e.e_canonical),
-                                   {"units": u, "long_name": "E0 + mu N at N-1, N, N+1"}),
-            }
-            coords.update({"ed_solver": self.ed_names, "dN": [-1, 0, 1],
-                           "ed_cluster": ("ed_solver", [e.cluster for e in E]),
-                           "ed_n_sites": ("ed_solver", [e.n_sites for e in E]),
-                           "ed_N": ("ed_solver", [e.N for e in E])})
-        ds = xr.Dataset({**gc, **common, **ed}, coords=coords, attrs=self.metadata())
+        for k in order_keys:
+            data[f"order_{_var(k)}"] = (m2, order[k], {"long_name": f"{k} at the plateau"})
+        for k in err_keys:
+            data[f"error_{_var(k)}"] = (m2, errs[k], {"long_name": f"one-sigma statistical error of {k}"})
+        info = lambda k, d: [self.records[n].info.get(k, d) for n in names]  # noqa: E731
+        coords = {"strain": self.strains, "mu": self.mu, "family": list(self.table.families), "solver": names,
+                  "dN": [-1, 0, 1], "sharp": ("solver", [bool(self.records[n].sharp) for n in names]),
+                  "cluster": ("solver", [str(x) for x in info("cluster", "")]),
+                  "n_sites": ("solver", info("n_sites", 0)), "N": ("solver", info("N", -1))}
+        ds = xr.Dataset(data, coords=coords, attrs=self.metadata())
         ds["mu"].attrs["units"] = u
         ds["strain"].attrs["long_name"] = self.table.strain_label
         return ds
@@ -224,12 +210,12 @@ class StrainSweep:
     def summary(self) -> dict:
         """Plain-JSON summary (critical strains, band, lambda scans, timings)."""
         return {
-            "table": self.table.path, "unit": self.table.unit, "fraction": self.fraction, "methods": self.all_names,
-            "critical": {**{k: v.to_dict() for k, v in self.critical.items()}, **self.ed_critical},
+            "table": self.table.path, "unit": self.table.unit, "fraction": self.fraction, "methods": self.names,
+            "critical": {k: v.to_dict() for k, v in self.critical.items()},
             "band": self.band,
             "lambda": {k: v.to_dict() for k, v in self.lambdas.items()},
-            "ed_methods": self.ed_names, "notes": list(self.notes),
-            "seconds": self.seconds, "caution": CAUTION, **({"ed_caution": ED_CAUTION} if self.ed_names else {}),
+            "notes": list(self.notes), "seconds": self.seconds, "caution": CAUTION,
+            "method_cautions": {m.name: m.impl.caution for m in self.methods},
         }
 
     def text(self) -> str:
@@ -238,60 +224,46 @@ class StrainSweep:
             lines.append("  " + self.critical[n].summary())
             if n in self.lambdas:
                 lines.append("  " + self.lambdas[n].summary())
-        for n in self.ed_names:
-            lines.append("  " + self.ed_critical[n]["text"])
         lines.append("  " + self.band["text"])
         for x in self.notes:
             lines.append(f"  note: {x}")
-        lines.append(f"  caution: {CAUTION}")
-        if self.ed_names:
-            lines.append(f"  caution (ED): {ED_CAUTION}")
+        shown = set()
+        for m in self.methods:
+            if m.impl.caution not in shown:
+                shown.add(m.impl.caution)
+                lines.append(f"  caution ({m.impl.name}): {m.impl.caution}")
         return "\n".join(lines)
 
     def save(self, outdir, figures: bool = True, formats=("png", "pdf")) -> list[Path]:
         """Write sweep.nc, plateau.csv, critical.csv, summary.json (+ lambda.csv/nc, figures) atomically."""
-        from ..store import atomic_write_text, save_csv, save_netcdf
-        from ..store import dumps_json
+        from ..store import atomic_write_text, dumps_json, save_csv, save_netcdf
 
         out = Path(outdir)
         paths = [save_netcdf(self.to_dataset(), out / "sweep.nc")]
-        meta = {k: v for k, v in self.metadata().items() if k not in ("critical", "table_rows", "ed_critical")}
-        if self.names:
-            paths.append(save_csv(out / "plateau.csv", self.plateau_table(), meta))
-        if self.ed_names:
-            paths.append(save_csv(out / "ed_plateau.csv", self.ed_table(), meta))
+        meta = {k: v for k, v in self.metadata().items() if k not in ("critical", "table_rows")}
+        paths.append(save_csv(out / "plateau.csv", self.plateau_table(), meta))
+        nan = float("nan")
         crit = {k: [] for k in ("method", "status", "strain_c", "xtol", "interpolation_uncertainty", "t_over_V_c",
                                 "closest_strain", "closest_width", "band_lo", "band_hi", "in_band",
                                 "indicator_SK_drop_strain", "indicator_SK_drop_resolution",
                                 "indicator_gap_drop_strain", "indicator_gap_drop_resolution")}
-        nan = float("nan")
+        band = {"band_lo": self.band["lo"] if self.band["lo"] is not None else nan,
+                "band_hi": self.band["hi"] if self.band["hi"] is not None else nan}
         for n in self.names:
-            c = self.critical[n]
-            crit["method"].append(n)
-            crit["status"].append(c.status)
-            crit["strain_c"].append(c.strain_c if c.strain_c is not None else float("nan"))
-            crit["xtol"].append(c.xtol)
-            crit["interpolation_uncertainty"].append(c.interpolation_uncertainty or float("nan"))
-            crit["t_over_V_c"].append(c.t_over_V_c if c.t_over_V_c is not None else float("nan"))
-            crit["closest_strain"].append(c.closest["strain"])
-            crit["closest_width"].append(c.closest["value"])
-            crit["band_lo"].append(self.band["lo"] if self.band["lo"] is not None else float("nan"))
-            crit["band_hi"].append(self.band["hi"] if self.band["hi"] is not None else float("nan"))
-            crit["in_band"].append(c.strain_c is not None)
-            for k in ("indicator_SK_drop_strain", "indicator_SK_drop_resolution", "indicator_gap_drop_strain",
-                      "indicator_gap_drop_resolution"):
-                crit[k].append(nan)
-        for n in self.ed_names:
-            c = self.ed_critical[n]
-            row = {"method": n, "status": c["status"], "strain_c": nan, "xtol": nan,
-                   "interpolation_uncertainty": nan, "t_over_V_c": nan, "closest_strain": c["smallest_gap"]["strain"],
-                   "closest_width": c["smallest_gap"]["gap"],
-                   "band_lo": self.band["lo"] if self.band["lo"] is not None else nan,
-                   "band_hi": self.band["hi"] if self.band["hi"] is not None else nan, "in_band": False}
+            d = self.critical[n].to_dict()
+            row = {"method": n, "status": d["status"], "in_band": bool(self.critical[n].in_band), **band}
+            sc = d.get("strain_c")
+            row.update(strain_c=sc if sc is not None else nan, xtol=d.get("xtol", nan),
+                       interpolation_uncertainty=d.get("interpolation_uncertainty") or nan,
+                       t_over_V_c=d.get("t_over_V_c") if d.get("t_over_V_c") is not None else nan)
+            close = d.get("closest") or {}
+            gap = d.get("smallest_gap") or {}
+            row["closest_strain"] = close.get("strain", gap.get("strain", nan))
+            row["closest_width"] = close.get("value", gap.get("gap", nan))
             for tag, key in (("SK", "indicator_SK_drop"), ("gap", "indicator_gap_drop")):
-                d = c[key]
-                row[f"indicator_{tag}_drop_strain"] = d["strain"] if d else nan
-                row[f"indicator_{tag}_drop_resolution"] = d["resolution"] if d else nan
+                ind = d.get(key)
+                row[f"indicator_{tag}_drop_strain"] = ind["strain"] if ind else nan
+                row[f"indicator_{tag}_drop_resolution"] = ind["resolution"] if ind else nan
             for k in crit:
                 crit[k].append(row[k])
         paths.append(save_csv(out / "critical.csv", crit, meta))
@@ -315,24 +287,30 @@ class StrainSweep:
         return paths
 
 
+def _var(key: str) -> str:
+    """A NetCDF-safe variable name for an order-parameter key (``S(K)/N`` -> ``SK_per_site``)."""
+    return {"S(K)/N": "SK_per_site"}.get(key, "".join(c if c.isalnum() or c == "_" else "_" for c in key))
+
+
 def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int | None = None, mu=None,
                  n_mu: int = 121, fraction="1/3", lambdas=None, param: str = "V", xtol: float | None = None,
                  width_floor: float = 1e-3, thresholds=Thresholds(), ed_thresholds=None, **locate_kw) -> StrainSweep:
-    """Sweep the strain path for every method.
+    """Sweep the strain path for every method (one path: each method's strain hooks).
 
     Parameters
     ----------
     table : StrainTable
     methods : str or list
-        ``"mf,cmf:tri12,ed:tri21"`` or a list of names / :class:`MethodSpec`. ED methods give the
-        finite-cluster step and S(K)/N per strain (no critical strain, not in the band).
+        ``"mf,cmf:tri12,ed:tri21"`` or a list of names / :class:`MethodSpec`. Finite-lattice
+        methods (ed) give the finite-cluster step and S(K)/N per strain (no critical strain,
+        not in the band).
     strains : array, optional
         Strain path (default :func:`~phasemap.strain.critical.coarse_strains`).
     mu : array, optional
-        Common absolute chemical-potential grid (default ``n_mu`` points over the union of
-        the default windows along the path).
+        Common absolute chemical-potential grid of the grand-canonical maps (default ``n_mu``
+        points over the union of the default windows along the path).
     lambdas : array or str, optional
-        Also scan the critical strain versus the scale factor of ``param``.
+        Also scan the critical strain versus the scale factor of ``param`` (sharp methods).
 
     Returns
     -------
@@ -340,54 +318,41 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
     """
     import time
 
-    from .ed_method import ed_indicator, ed_plateaus, ed_setup
-
-    specs = parse_methods(methods)
+    specs = parse_specs(methods)
     lab, f = parse_fraction(fraction)
     S = coarse_strains(table, n_strain) if strains is None else np.asarray(strains, float)
     table.check_range(S)
     models = table.models(S)
-    ed_specs = [sp for sp in specs if not sp.capabilities.grand_canonical]
-    specs = [sp for sp in specs if sp.capabilities.grand_canonical]
-    for sp in ed_specs:  # refuse before anything is solved (cluster, filling, bonds, memory guard)
-        ed_setup(sp, models, lab)
+    for sp in specs:  # refuse before anything is solved (cluster, filling, bonds, memory guard)
+        sp.impl.check_setup(sp, models, lab)
     if mu is None:
         w = np.array([default_window(m, f) for m in models])
         mu = np.linspace(w[:, 0].min(), w[:, 1].max(), int(n_mu))
     mu = np.asarray(mu, float)
-    plate, crit, lams, secs = {}, {}, {}, {}
+    kw = dict(width_floor=width_floor, thresholds=thresholds, ed_thresholds=ed_thresholds, **locate_kw)
+    recs, crit, lams, secs, notes = {}, {}, {}, {}, []
     for sp in specs:
         t0 = time.perf_counter()
-        r = locate_plateaus(models, lab, sp, mu=mu, keep_grid=True, width_floor=width_floor, thresholds=thresholds,
-                            **locate_kw)
-        floor = np.array([width_floor * m.scale for m in models])
-        H = np.where(r.reached, r.width, 0.0) - floor
-        plate[sp.name] = r
-        crit[sp.name] = critical_strain(table, sp, lab, "width", coarse=(S, H, r), xtol=xtol,
-                                        width_floor=width_floor, thresholds=thresholds, **locate_kw)
+        rec = sp.impl.strain_step(sp, models, lab, mu=mu, keep_grid=True, **kw)
+        recs[sp.name] = rec
+        crit[sp.name] = sp.impl.strain_critical(sp, table, S, rec, lab, xtol=xtol, **kw)
         secs[sp.name] = time.perf_counter() - t0
         if lambdas is not None:
-            t1 = time.perf_counter()
-            lams[sp.name] = critical_vs_lambda(table, sp, lambdas, param, lab, n_strain=n_strain,
-                                               width_floor=width_floor, thresholds=thresholds, **locate_kw)
-            secs[f"{sp.name} lambda"] = time.perf_counter() - t1
-    ed, ed_crit, notes = {}, {}, []
-    vref = np.abs(table.params(S)["V"]).max(1)
-    for sp in ed_specs:
-        t0 = time.perf_counter()
-        e = ed_plateaus(models, sp, lab, thresholds=ed_thresholds)
-        ed[sp.name] = e
-        ed_crit[sp.name] = ed_indicator(S, e, vref, table.unit)
-        secs[sp.name] = time.perf_counter() - t0
-    if ed_specs and lambdas is not None:
-        notes.append(f"lambda scan not done for {', '.join(sp.name for sp in ed_specs)}: ED has no sharp critical strain")
-    band = critical_band(list(crit.values()))
-    if not specs:
-        band["text"] = "no grand-canonical method (mf, cmf) in the sweep, so no critical-strain band"
-    if ed_specs:
-        band["text"] += (f"; {', '.join(sp.name for sp in ed_specs)} not in the band (finite cluster: no sharp "
+            if rec.sharp:
+                t1 = time.perf_counter()
+                lams[sp.name] = critical_vs_lambda(table, sp, lambdas, param, lab, n_strain=n_strain,
+                                                   width_floor=width_floor, thresholds=thresholds, **locate_kw)
+                secs[f"{sp.name} lambda"] = time.perf_counter() - t1
+            else:
+                notes.append(f"lambda scan not done for {sp.name}: a finite lattice has no sharp critical strain")
+    sharp = [crit[sp.name] for sp in specs if recs[sp.name].sharp]
+    band = critical_band(sharp)
+    if not sharp:
+        band["text"] = "no method with sharp plateau edges (mf, cmf) in the sweep, so no critical-strain band"
+    excluded = [sp.name for sp in specs if not recs[sp.name].sharp]
+    if excluded:
+        band["text"] += (f"; {', '.join(excluded)} not in the band (finite cluster: no sharp "
                          "transition; steepest-drop strains are indicators only)")
-        band["excluded"] = [sp.name for sp in ed_specs]
-    return StrainSweep(table=table, methods=specs, fraction=lab, strains=S, mu=mu, plateaus=plate, critical=crit,
-                       band=band, lambdas=lams, seconds=secs, ed_methods=ed_specs, ed=ed,
-                       ed_critical=ed_crit, notes=notes)
+        band["excluded"] = excluded
+    return StrainSweep(table=table, methods=specs, fraction=lab, strains=S, mu=mu, records=recs, critical=crit,
+                       band=band, lambdas=lams, seconds=secs, notes=notes)
