@@ -36,8 +36,10 @@ def select_winners(result, thresholds: Thresholds = Thresholds()):
     k = np.where(ok, best, np.argmin(result.residual, axis=1))
     impl = get_method(result.method)
     orbits = impl.site_orbits(result)  # open cluster: only equivalent sites must agree
+    T = getattr(result, "T", None)
+    thermal = None if T is None else np.asarray(T) > 0
     cls = lambda kk, okk: classify_arrays(result.batch.base, result.cell, result.n[r, kk],  # noqa: E731
-                                          np.abs(result.phi[r, kk]), okk, thresholds, orbits)
+                                          np.abs(result.phi[r, kk]), okk, thresholds, orbits, thermal)
     phase, label, pattern = cls(k, ok)
     unstable = impl.unstable_insulators(result, phase, k)
     unstable = np.zeros(P, bool) if unstable is None else ok & unstable
@@ -89,6 +91,10 @@ def solutions_from_batch(result, thresholds: Thresholds = Thresholds(), method: 
             seed=result.seeds[k].name, pattern=pattern, order=order_parameters(result.cell, n, phi),
             flags=flags, sites=result.cell.sites.copy(), branches=branches,
         ))
+        T = getattr(result, "T", None)
+        if T is not None and T[p] > 0:
+            sols[-1].temperature = float(T[p])
+            sols[-1].entropy = float(result.entropy[p, k])
     return sols
 
 

@@ -8,6 +8,9 @@ Decision table (DESIGN.md §3), with documented thresholds (:class:`Thresholds`)
   *mott* if uniform with integer n, *solid* if density-modulated. A state with zero
   condensate whose pattern is not one of the named ones keeps its actual pattern
   (``pattern="other"``) and is labelled by its filling only.
+* at a temperature T > 0: a uniform state without condensate at non-integer filling is the
+  *normal* fluid (thermal gas); density-modulated states without condensate are (thermal)
+  *solid*.
 * non-converged points are *unconverged*, never classified.
 
 Thresholds near continuous transitions are fragile: boundaries are located by
@@ -110,7 +113,7 @@ def density_wave_contrast(cell: Supercell, n, orbits, sublattice_tol: float) -> 
 
 
 def classify_arrays(model, cell: Supercell, densities, condensate, converged,
-                    thresholds: Thresholds = Thresholds(), orbits=None):
+                    thresholds: Thresholds = Thresholds(), orbits=None, thermal=None):
     """Vectorized classification of P states on ``cell``.
 
     ``orbits``: symmetry orbits of the sites (see :func:`phasemap.lattice.tile_orbits`); a
@@ -118,12 +121,15 @@ def classify_arrays(model, cell: Supercell, densities, condensate, converged,
     (periodic mean-field cells). Cluster mean field passes the tile's orbits, so the
     edge-induced density differences of an open cluster are not mistaken for a solid.
 
+    ``thermal``: (P,) bool (or one bool), True where the state is at a temperature T > 0.
+
     Returns ``(phase, label, pattern)``: three object arrays of shape (P,).
     """
     th = thresholds
     n = np.atleast_2d(np.asarray(densities, float))
     phi = np.atleast_2d(np.asarray(condensate, float))
     conv = np.broadcast_to(np.asarray(converged, bool), n.shape[:1])
+    hot = np.broadcast_to(np.asarray(False if thermal is None else thermal, bool), n.shape[:1])
     nbar = n.mean(1)
     contrast = density_wave_contrast(cell, n, orbits, th.cluster_sublattice_tol)
     cond = phi.max(1) > th.condensate_tol
@@ -167,6 +173,8 @@ def classify_arrays(model, cell: Supercell, densities, condensate, converged,
                 phase[p] = label[p] = "full"
             else:
                 phase[p], label[p] = "mott", f"mott n={k}"
+        elif not modulated[p] and hot[p]:
+            phase[p], label[p] = "normal", f"normal n={nbar[p]:.3g}"
         elif not modulated[p]:
             # no condensate, no density wave, non-integer filling: a degenerate point (t = 0 edge)
             # or a cluster's resonating number eigenstate (DESIGN.md §6) — labelled as what it is

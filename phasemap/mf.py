@@ -16,6 +16,15 @@ soft-core bosons, for all points x seeds x sites at once. Solutions are compared
 variational energy per site :math:`\langle H\rangle/N` of the product state (not the sum
 of local eigenvalues, which double-counts bonds).
 
+At a temperature :math:`T > 0` (option ``T``, or a scanned ``T`` axis) every site is in the
+thermal state :math:`\rho_s = e^{-h_s/T}/Z_s` of its local problem (all levels with Boltzmann
+weights; hard-core: :math:`\langle n\rangle = \tfrac12 - \tfrac{\epsilon}{2r}\tanh\tfrac{r}{2T}`,
+:math:`\langle b\rangle = \tfrac{\Phi}{r}\tanh\tfrac{r}{2T}`, :math:`r = \sqrt{\epsilon^2+4\Phi^2}`),
+and solutions are compared by the variational grand potential per site of the product state,
+:math:`\Omega/N = \langle H\rangle/N - T\,\overline{S_s}` (same decoupling constants; an
+upper bound on the true one by the Gibbs-Bogoliubov inequality). ``energy`` then holds
+:math:`\Omega/N`. T = 0 runs the ground-state arithmetic unchanged. See docs/thermal.md.
+
 Caution: site-decoupled mean field overestimates ordered phases, badly so on the frustrated
 triangular lattice; use cluster mean field or exact diagonalization to judge boundaries.
 
@@ -62,6 +71,9 @@ class MFOptions:
     engine : {"auto", "numba", "numpy"}
         "auto"/"numba": compiled per-row loop (default); "numpy": batched array path (same
         algorithm, kept as an independent cross-check).
+    T : float, default 0
+        Temperature in the model's energy unit (0: ground state). A scanned ``T`` axis
+        (:class:`~phasemap.params.ParamBatch` ``T``) takes precedence.
     """
 
     tol: float = 1e-10
@@ -73,6 +85,18 @@ class MFOptions:
     weight_warn: float = 1e-3
     patience: int = 25
     engine: str = "auto"
+    T: float = 0.0
+
+    def __post_init__(self):
+        from .model import ConfigError
+
+        try:
+            T = float(self.T)
+        except (TypeError, ValueError):
+            raise ConfigError(f"T: temperature must be a number >= 0, got {self.T!r}") from None
+        if not (np.isfinite(T) and T >= 0):
+            raise ConfigError(f"T: temperature must be a finite number >= 0 (energy unit of the model), got {self.T!r}")
+        object.__setattr__(self, "T", T)
 
 
 class CellOps:
@@ -123,15 +147,37 @@ class CellOps:
 
 
 # -- local problems -----------------------------------------------------------------------
-def _local_hardcore(Phi, eps, n_in):
+def _hot(T, shape):
+    """(hot mask, safe temperatures) broadcast to ``shape``; ``T`` None means T = 0 everywhere."""
+    if T is None:
+        return None, None
+    T = np.broadcast_to(np.asarray(T, float), shape)
+    hot = T > 0
+    return (hot, np.where(hot, T, 1.0)) if hot.any() else (None, None)
+
+
+def _local_hardcore(Phi, eps, n_in, T=None):
+    """Local ground state (T = 0) or thermal state of the 2x2 problem; returns
+    (n, phi, <n(n-1)> = 0, top weight = 0, entropy)."""
     r = np.sqrt(eps * eps + 4.0 * Phi * Phi)
     safe = np.where(r > 0, r, 1.0)
     n = np.where(r > 0, 0.5 * (1.0 - eps / safe), n_in)  # zero field: keep the occupation
     phi = np.where(r > 0, Phi / safe, 0.0)
-    return n, phi, np.zeros_like(n), np.zeros_like(n)
+    ent = np.zeros_like(n)
+    hot, Ts = _hot(T, r.shape)
+    if hot is not None:  # levels -r/2, +r/2: <sigma> weighted by tanh(y), y = r / 2T
+        y = 0.5 * r / Ts
+        w = np.where(y > 1e-8, np.tanh(y) / safe, 0.5 / Ts)
+        n = np.where(hot, 0.5 - 0.5 * eps * w, n)
+        phi = np.where(hot, Phi * w, phi)
+        e2 = np.exp(-2.0 * y)  # S = ln(2 cosh y) - y tanh y, written without overflow
+        ent = np.where(hot, 2.0 * y * e2 / (1.0 + e2) + np.log1p(e2), 0.0)
+    return n, phi, np.zeros_like(n), np.zeros_like(n), ent
 
 
-def _local_softcore(Phi, eps, U, n_max):
+def _local_softcore(Phi, eps, U, n_max, T=None):
+    """Local ground state (T = 0) or thermal state (all levels with Boltzmann weights) of the
+    soft-core problem; returns (n, phi, <n(n-1)>, weight of n_max, entropy)."""
     d = n_max + 1
     m = np.arange(d, dtype=float)
     H = np.zeros(Phi.shape + (d, d))
@@ -148,7 +194,22 @@ def _local_softcore(Phi, eps, U, n_max):
     n = (p * m).sum(-1)
     phi = (g[..., 1:] * g[..., :-1] * np.sqrt(m[1:])).sum(-1)
     nn1 = (p * m * (m - 1)).sum(-1)
-    return n, phi, nn1, p[..., -1]
+    top = p[..., -1]
+    ent = np.zeros_like(n)
+    hot, Ts = _hot(T, n.shape)
+    if hot is not None:
+        x = (w - w[..., :1]) / Ts[..., None]
+        pk = np.exp(-x)
+        pk /= pk.sum(-1, keepdims=True)  # (..., k) level weights
+        occ = np.einsum("...k,...ak->...a", pk, v * v)  # occupation distribution
+        ph_k = (v[..., 1:, :] * v[..., :-1, :] * np.sqrt(m[1:])[:, None]).sum(-2)  # <k|b|k>
+        n = np.where(hot, (occ * m).sum(-1), n)
+        phi = np.where(hot, (pk * ph_k).sum(-1), phi)
+        nn1 = np.where(hot, (occ * m * (m - 1)).sum(-1), nn1)
+        top = np.where(hot, occ[..., -1], top)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ent = np.where(hot, -np.where(pk > 0, pk * np.log(pk), 0.0).sum(-1), 0.0)
+    return n, phi, nn1, top, ent
 
 
 @dataclass
@@ -171,6 +232,10 @@ class MFBatchResult:
     top_weight: np.ndarray
     options: MFOptions = field(default_factory=MFOptions)
     method: str = "mf"  # cluster mean field sets "cmf"
+    #: (P,) temperature of each point (None: T = 0); at T > 0 ``energy`` is the grand potential
+    #: per site <H>/N - T S/N and ``entropy`` (P, K) the entropy per site of each seed's end state
+    T: np.ndarray | None = None
+    entropy: np.ndarray | None = None
 
     @property
     def seed_names(self) -> list[str]:
@@ -190,7 +255,7 @@ class MFBatchResult:
 
 
 def _iterate(ops: CellOps, batch: ParamBatch, n0, phi0, opt: MFOptions):
-    """Self-consistency for all (P, K) rows of one supercell group.
+    """Self-consistency for all (P, K) rows of one supercell group (at each point's temperature).
 
     Works on a compact set of live rows: finished rows (converged, or stalled = no fixed point
     reachable from this seed) are written out and dropped once they make up a tenth of the set.
@@ -200,27 +265,32 @@ def _iterate(ops: CellOps, batch: ParamBatch, n0, phi0, opt: MFOptions):
     rows = P * K
     rep = lambda a: np.repeat(a, K, axis=0)  # noqa: E731
     t, V, V2, mu, U = rep(batch.t), rep(batch.V), rep(batch.V2), rep(batch.mu), rep(batch.U)
+    T = rep(batch.temperatures(opt.T))
+    hot = bool(np.any(T > 0))
     x_out = np.concatenate([n0.reshape(rows, S), phi0.reshape(rows, S)], axis=1)
     iters = np.zeros(rows, int)
     resid = np.full(rows, np.inf)
     conv = np.zeros(rows, bool)
     m = opt.anderson
 
-    def G(xa, sel):
+    def G(xa, sel, with_entropy=False):
         Phi, eps = ops.fields(t[sel], V[sel], V2[sel], mu[sel], xa[:, :S], xa[:, S:])
+        Ts = T[sel][:, None] if hot else None
         if hard:
-            n, ph, nn1, top = _local_hardcore(Phi, eps, xa[:, :S])
+            n, ph, nn1, top, ent = _local_hardcore(Phi, eps, xa[:, :S], Ts)
         else:
-            n, ph, nn1, top = _local_softcore(Phi, eps, U[sel][:, None], batch.n_max)
-        return np.concatenate([n, ph], axis=1), nn1, top
+            n, ph, nn1, top, ent = _local_softcore(Phi, eps, U[sel][:, None], batch.n_max, Ts)
+        x = np.concatenate([n, ph], axis=1)
+        return (x, nn1, top, ent) if with_entropy else (x, nn1, top)
 
     if opt.engine in ("auto", "numba"):
         from .mf_kernel import iterate_rows
 
         x_out, iters, resid, conv = iterate_rows(
-            t, V, V2, mu, np.where(np.isfinite(U), U, 0.0), batch.n_max, ops.plus, ops.minus, ops.nnn_plus,
+            t, V, V2, mu, np.where(np.isfinite(U), U, 0.0), T, batch.n_max, ops.plus, ops.minus, ops.nnn_plus,
             ops.nnn_minus, x_out, opt.tol, opt.max_iter, opt.mixing, max(opt.anderson, 0), opt.patience)
-        return _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, P, K, S, mapped=hard)
+        return _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, T, P, K, S,
+                       mapped=hard and not hot)
     # compact state
     idx = np.arange(rows)
     x = x_out.copy()
@@ -274,26 +344,32 @@ def _iterate(ops: CellOps, batch: ParamBatch, n0, phi0, opt: MFOptions):
     else:
         g = idx[live]
         x_out[g], iters[g], resid[g] = x[live], opt.max_iter, np.abs(f[live]).max(axis=1)
-    return _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, P, K, S)
+    return _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, T, P, K, S)
 
 
-def _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, P, K, S, mapped=False):
-    """Energies from the local states built from the final fields.
+def _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, T, P, K, S, mapped=False):
+    """Energies (grand potentials at T > 0) from the local states built from the final fields.
 
-    ``mapped``: ``x_out`` already holds the local states' values (hard-core kernel), so the
-    map need not be applied again (hard-core states carry no <n(n-1)> and no cut-off weight).
+    ``mapped``: ``x_out`` already holds the local states' values (hard-core kernel at T = 0),
+    so the map need not be applied again (hard-core states carry no <n(n-1)> and no cut-off
+    weight). At T > 0 the map is applied once more, so densities, condensates and entropy all
+    belong to one product of local thermal states (the variational state whose grand
+    potential is reported).
     """
     hard = batch.hardcore
     if mapped:
-        gx, nn1, top = x_out, None, np.zeros((P * K, S))
+        gx, nn1, top, ent = x_out, None, np.zeros((P * K, S)), np.zeros((P * K, S))
     else:
-        gx, nn1, top = G(x_out, np.arange(P * K))
+        gx, nn1, top, ent = G(x_out, np.arange(P * K), with_entropy=True)
     n, ph = gx[:, :S], gx[:, S:]
     onsite = (0.0 if hard else 0.5 * U * nn1.mean(1)) - mu * n.mean(1)
     E = ops.bond_energy(t, V, V2, n, ph) + onsite
+    Sbar = ent.mean(1)
+    if np.any(T > 0):
+        E = E - T * Sbar
     sh = (P, K)
     return (E.reshape(sh), conv.reshape(sh), iters.reshape(sh), resid.reshape(sh),
-            n.reshape(P, K, S), ph.reshape(P, K, S), top.max(axis=1).reshape(sh))
+            n.reshape(P, K, S), ph.reshape(P, K, S), top.max(axis=1).reshape(sh), Sbar.reshape(sh))
 
 
 _OPS_CACHE: dict = {}
@@ -321,7 +397,7 @@ def solve_batch(batch: ParamBatch, options: MFOptions = MFOptions(), seeds: list
     out = dict(
         energy=np.empty((P, K)), converged=np.empty((P, K), bool), iterations=np.empty((P, K), int),
         residual=np.empty((P, K)), n=np.empty((P, K, big.n_sites)), phi=np.empty((P, K, big.n_sites)),
-        top_weight=np.empty((P, K)),
+        top_weight=np.empty((P, K)), entropy=np.zeros((P, K)),
     )
     groups: dict = {}
     for k, s in enumerate(seeds):
@@ -337,8 +413,8 @@ def solve_batch(batch: ParamBatch, options: MFOptions = MFOptions(), seeds: list
         else:
             n0 = np.broadcast_to(np.stack([seeds[k].n0 for k in ks]), (P, len(ks), cell.n_sites)).copy()
             phi0 = np.broadcast_to(np.stack([seeds[k].phi0 for k in ks]), (P, len(ks), cell.n_sites)).copy()
-        E, conv, it, res, n, ph, top = _iterate(ops, batch, n0, phi0, options)
-        _retry_unstable(ops, batch, n0, phi0, options, (E, conv, it, res, n, ph, top))
+        E, conv, it, res, n, ph, top, ent = _iterate(ops, batch, n0, phi0, options)
+        _retry_unstable(ops, batch, n0, phi0, options, (E, conv, it, res, n, ph, top, ent))
         out["energy"][:, ks] = E
         out["converged"][:, ks] = conv
         out["iterations"][:, ks] = it
@@ -346,20 +422,23 @@ def solve_batch(batch: ParamBatch, options: MFOptions = MFOptions(), seeds: list
         out["n"][:, ks] = n[:, :, unfold]
         out["phi"][:, ks] = ph[:, :, unfold]
         out["top_weight"][:, ks] = top
-    return MFBatchResult(batch=batch, cell=big, seeds=seeds, options=options, **out)
+        out["entropy"][:, ks] = ent
+    T = batch.temperatures(options.T)
+    return MFBatchResult(batch=batch, cell=big, seeds=seeds, options=options, T=T if np.any(T > 0) else None,
+                         **out)
 
 
 def _retry_unstable(ops, batch, n0, phi0, options, out):
     """Re-run, without Anderson steps, seeds that started condensed but converged onto a
     linearly unstable insulator (Anderson is a root finder and can land on unstable fixed
     points; plain mixing follows the instability to the condensed state)."""
-    E, conv, it, res, n, ph, top = out
+    E, conv, it, res, n, ph, top, ent = out
     cand = conv & (ph.max(-1) < 1e-8) & (phi0.max(-1) > 0) & np.any(batch.t > 0, axis=1)[:, None]
     if not cand.any():
         return
     p, k = np.nonzero(cand)
     sub = batch.take(p)
-    lam = insulator_instability(sub, n[p, k], ops.cell)
+    lam = insulator_instability(sub, n[p, k], ops.cell, T=sub.temperatures(options.T))
     bad = lam > 1.0 + 1e-9
     if not bad.any():
         return
@@ -371,7 +450,8 @@ def _retry_unstable(ops, batch, n0, phi0, options, out):
         arr[p, k] = new[:, 0]
 
 
-def insulator_instability(batch: ParamBatch, n: np.ndarray, cell: Supercell | None = None) -> np.ndarray:
+def insulator_instability(batch: ParamBatch, n: np.ndarray, cell: Supercell | None = None,
+                          T: np.ndarray | None = None) -> np.ndarray:
     r"""Largest eigenvalue of :math:`\chi^{1/2} T \chi^{1/2}` for the insulator with densities ``n``.
 
     For a state without condensate (Fock state :math:`|m_s\rangle` on each site) the linear
@@ -383,9 +463,42 @@ def insulator_instability(batch: ParamBatch, n: np.ndarray, cell: Supercell | No
 
     ``n`` has shape (P, S) on ``cell`` (default: the search cell); values are rounded to
     the nearest integer occupation.
+
+    At a temperature ``T`` > 0 (array (P,), default all 0) the non-condensed state is the
+    product of local thermal states in the fields of the densities ``n`` (not rounded), and
+    :math:`\chi_s = \sum_m (p_m - p_{m+1})(m+1)/(e_{m+1}-e_m)` with the Boltzmann weights
+    :math:`p_m`; the normal state is unstable towards a condensate when the value exceeds 1
+    (hard-core: :math:`\chi = \tanh(\epsilon/2T)/\epsilon`, :math:`1/2T` at :math:`\epsilon = 0`).
     """
     cell = cell or search_cell(batch.base.lattice)
     ops = cell_ops(cell)
+    if T is not None and np.any(np.asarray(T) > 0):
+        T = np.asarray(T, float)
+        out = np.empty(batch.size)
+        hot = T > 0
+        if (~hot).any():
+            out[~hot] = insulator_instability(batch.take(np.nonzero(~hot)[0]), np.asarray(n)[~hot], cell)
+        idx = np.nonzero(hot)[0]
+        sub = batch.take(idx)
+        nn = np.asarray(n, float)[idx]
+        _, eps = ops.fields(sub.t, sub.V, sub.V2, sub.mu, nn, np.zeros_like(nn))
+        m = np.arange(batch.n_max + 1, dtype=float)
+        U = 0.0 if batch.hardcore else sub.U[:, None, None]
+        e = 0.5 * U * m * (m - 1) + eps[..., None] * m  # (P, S, levels)
+        Tm = T[idx][:, None, None]
+        x = -(e - e.min(-1, keepdims=True)) / Tm
+        p = np.exp(x)
+        p /= p.sum(-1, keepdims=True)
+        gap = e[..., 1:] - e[..., :-1]
+        small = np.abs(gap / Tm) < 1e-6  # degenerate pair: (p_m - p_{m+1})/gap -> p_m/T
+        with np.errstate(divide="ignore", invalid="ignore"):
+            ratio = np.where(small, 0.5 * (p[..., :-1] + p[..., 1:]) / Tm,
+                             (p[..., :-1] - p[..., 1:]) / np.where(small, 1.0, gap))
+        chi = (ratio * m[1:]).sum(-1)
+        sq = np.sqrt(chi)
+        M = sq[:, :, None] * ops.hopping_matrix(sub.t) * sq[:, None, :]
+        out[idx] = np.linalg.eigvalsh(M)[:, -1]
+        return out
     m = np.rint(np.asarray(n, float))
     _, eps = ops.fields(batch.t, batch.V, batch.V2, batch.mu, m, np.zeros_like(m))
     up = eps + (0.0 if batch.hardcore else batch.U[:, None] * m)  # e_{m+1} - e_m
@@ -405,7 +518,7 @@ def insulator_instability(batch: ParamBatch, n: np.ndarray, cell: Supercell | No
     return out
 
 
-INSULATING = ("empty", "full", "mott", "solid")
+INSULATING = ("empty", "full", "mott", "solid", "normal")
 
 
 def unstable_insulators(result, phase, k) -> np.ndarray:
@@ -421,6 +534,8 @@ def unstable_insulators(result, phase, k) -> np.ndarray:
     out = np.zeros(len(phase), bool)
     if ins.any():
         p = np.nonzero(ins)[0]
-        lam = insulator_instability(result.batch.take(p), result.n[p, k[p]], result.cell)
+        sub = result.batch.take(p)
+        T = getattr(result, "T", None)
+        lam = insulator_instability(sub, result.n[p, k[p]], result.cell, T=None if T is None else T[p])
         out[p] = lam > 1.0 + 1e-9
     return out

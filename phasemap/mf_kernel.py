@@ -1,7 +1,8 @@
 """Compiled mean-field self-consistency (numba), one row = one point x seed.
 
 Same algorithm as the NumPy path of :mod:`phasemap.mf` (closed-form 2x2 local problem for
-hard-core bosons, LAPACK eigh of the (n_max+1)-dimensional one for soft-core,
+hard-core bosons, LAPACK eigh of the (n_max+1)-dimensional one for soft-core; at a temperature
+T > 0 every local level enters with its Boltzmann weight,
 linear mixing + Anderson type-II acceleration, stall detection), but each row iterates
 independently inside a parallel loop, so the per-iteration interpreter overhead vanishes.
 """
@@ -40,8 +41,9 @@ def _solve_small(A, b, k):
 
 
 @njit(cache=True)
-def _map(x, g, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, S, H):
-    """One self-consistency map: local ground states in the fields of the current iterate."""
+def _map(x, g, t, V, V2, mu, U, T, nmax, plus, minus, nplus, nminus, S, H):
+    """One self-consistency map: local ground states (T = 0) or local thermal states (T > 0)
+    in the fields of the current iterate."""
     F = plus.shape[0]
     K2 = nplus.shape[0]
     d = nmax + 1
@@ -57,7 +59,12 @@ def _map(x, g, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, S, H):
         eps -= mu
         if nmax == 1:  # hard-core: closed-form 2x2
             r = np.sqrt(eps * eps + 4.0 * Phi * Phi)
-            if r > 0.0:
+            if T > 0.0:  # <sigma> of the two levels -r/2, +r/2 weighted by tanh(r / 2T)
+                y = 0.5 * r / T
+                wt = np.tanh(y) / r if y > 1e-8 else 0.5 / T
+                g[s] = 0.5 - 0.5 * eps * wt
+                g[S + s] = Phi * wt
+            elif r > 0.0:
                 g[s] = 0.5 * (1.0 - eps / r)
                 g[S + s] = Phi / r
             else:  # zero field (t = 0 at a degenerate point): keep the occupation
@@ -74,6 +81,18 @@ def _map(x, g, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, S, H):
         w, v = np.linalg.eigh(H)
         nn = 0.0  # <n> and <b> = sum sqrt(a) v_a v_(a-1): both independent of the sign of v
         ph = 0.0
+        if T > 0.0:  # Boltzmann weights of every level
+            z = 0.0
+            for k in range(d):
+                pk = np.exp(-(w[k] - w[0]) / T)
+                z += pk
+                for a in range(d):
+                    nn += pk * a * v[a, k] * v[a, k]
+                    if a > 0:
+                        ph += pk * np.sqrt(a) * v[a, k] * v[a - 1, k]
+            g[s] = nn / z
+            g[S + s] = ph / z
+            continue
         for a in range(d):
             nn += a * v[a, 0] * v[a, 0]
             if a > 0:
@@ -83,7 +102,7 @@ def _map(x, g, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, S, H):
 
 
 @njit(cache=True)
-def _one_row(r, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
+def _one_row(r, t, V, V2, mu, U, T, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
              out, iters, resid, conv):
     """Iterate row ``r`` of ``x0`` to self-consistency, writing into out/iters/resid/conv."""
     D = x0.shape[1]
@@ -106,7 +125,7 @@ def _one_row(r, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_
     res = np.inf
     while it < max_iter:
         it += 1
-        _map(x, g, t[r], V[r], V2[r], mu[r], U[r], nmax, plus, minus, nplus, nminus, S, H)
+        _map(x, g, t[r], V[r], V2[r], mu[r], U[r], T[r], nmax, plus, minus, nplus, nminus, S, H)
         res = 0.0
         for d in range(D):
             f[d] = g[d] - x[d]
@@ -119,7 +138,7 @@ def _one_row(r, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_
         if res < 0.999 * best:
             best = res
             last = it
-        insulating = True  # a seed with no condensate anywhere can only flip occupations
+        insulating = T[r] == 0.0  # at T = 0 a seed with no condensate anywhere can only flip occupations
         for d in range(S, D):
             if x[d] != 0.0 or g[d] != 0.0:
                 insulating = False
@@ -169,25 +188,25 @@ def _one_row(r, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_
                 step = 0.5 * x[d]
             x[d] = step
     else:
-        _map(x, g, t[r], V[r], V2[r], mu[r], U[r], nmax, plus, minus, nplus, nminus, S, H)
+        _map(x, g, t[r], V[r], V2[r], mu[r], U[r], T[r], nmax, plus, minus, nplus, nminus, S, H)
         out[r] = g
     iters[r] = it
     resid[r] = res
 
 
 @njit(cache=True)
-def _rows_serial(t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
+def _rows_serial(t, V, V2, mu, U, T, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
                  out, iters, resid, conv):
     for r in range(x0.shape[0]):
-        _one_row(r, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
+        _one_row(r, t, V, V2, mu, U, T, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
                  out, iters, resid, conv)
 
 
 @njit(parallel=True, cache=True)
-def _rows_parallel(t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
+def _rows_parallel(t, V, V2, mu, U, T, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
                    out, iters, resid, conv):
     for r in prange(x0.shape[0]):
-        _one_row(r, t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
+        _one_row(r, t, V, V2, mu, U, T, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
                  out, iters, resid, conv)
 
 
@@ -195,11 +214,13 @@ def _rows_parallel(t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, m
 PARALLEL_MIN_ROWS = 20000
 
 
-def iterate_rows(t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience):
+def iterate_rows(t, V, V2, mu, U, T, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience):
     """Iterate every row of ``x0`` (rows, 2S: densities then condensates) to self-consistency.
 
+    ``T`` (rows,): temperature of each row (0: ground state, the T = 0 arithmetic unchanged).
     Returns (g, iterations, residual, converged), ``g`` the densities and condensates of the
-    local ground states in the fields of each row's last iterate. Large batches run on all cores.
+    local ground (thermal) states in the fields of each row's last iterate. Large batches run
+    on all cores.
     """
     rows = x0.shape[0]
     out = x0.copy()
@@ -207,6 +228,6 @@ def iterate_rows(t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max
     resid = np.full(rows, np.inf)
     conv = np.zeros(rows, np.bool_)
     run = _rows_parallel if rows >= PARALLEL_MIN_ROWS else _rows_serial
-    run(t, V, V2, mu, U, nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
+    run(t, V, V2, mu, U, np.ascontiguousarray(T, dtype=np.float64), nmax, plus, minus, nplus, nminus, x0, tol, max_iter, mixing, m, patience,
         out, iters, resid, conv)
     return out, iters, resid, conv

@@ -15,7 +15,8 @@ __all__ = ["ParamBatch", "AXES", "grid", "points", "axis_names"]
 class ParamBatch:
     """P parameter points sharing lattice, hard-core-ness and n_max.
 
-    Arrays: ``t``, ``V`` of shape (P, F); ``U``, ``V2``, ``mu`` of shape (P,).
+    Arrays: ``t``, ``V`` of shape (P, F); ``U``, ``V2``, ``mu`` of shape (P,); ``T`` (P,) the
+    temperature of each point when it is scanned (``None``: the method's ``T`` option, default 0).
     """
 
     base: Model
@@ -24,6 +25,11 @@ class ParamBatch:
     U: np.ndarray
     V2: np.ndarray
     mu: np.ndarray
+    T: np.ndarray | None = None
+
+    def temperatures(self, default: float = 0.0) -> np.ndarray:
+        """(P,) temperatures: the scanned ``T`` if any, else ``default`` (a method's ``T`` option)."""
+        return np.full(self.size, float(default)) if self.T is None else np.asarray(self.T, float)
 
     @property
     def size(self) -> int:
@@ -65,7 +71,8 @@ class ParamBatch:
 
     def take(self, idx) -> "ParamBatch":
         idx = np.asarray(idx)
-        return ParamBatch(self.base, self.t[idx], self.V[idx], self.U[idx], self.V2[idx], self.mu[idx])
+        return ParamBatch(self.base, self.t[idx], self.V[idx], self.U[idx], self.V2[idx], self.mu[idx],
+                          None if self.T is None else np.asarray(self.T)[idx])
 
 
 #: Scan axes: name -> description. "t" scales every family's hopping keeping their ratios
@@ -76,6 +83,7 @@ AXES = {
     "mu": "chemical potential",
     "U": "on-site repulsion",
     "V2": "next-nearest-neighbour repulsion",
+    "T": "temperature (mean-field methods with capabilities.temperature)",
 }
 
 
@@ -118,6 +126,7 @@ def points(model: Model, axes: dict, relative: bool = False) -> ParamBatch:
     U = np.full(P, model.U, float)
     V2 = np.full(P, model.V2, float)
     mu = np.full(P, model.mu, float)
+    T = None
     fams = model.families
     for n, g in zip(names, mesh):
         g = g * scale
@@ -132,6 +141,8 @@ def points(model: Model, axes: dict, relative: bool = False) -> ParamBatch:
             U[:] = g
         elif n == "V2":
             V2[:] = g
+        elif n == "T":
+            T = g.copy()
         else:
             base, fam = n.split("_", 1)
             (t if base == "t" else V)[:, fams.index(fam)] = g
@@ -139,9 +150,12 @@ def points(model: Model, axes: dict, relative: bool = False) -> ParamBatch:
         raise ConfigError("scan axis: hopping values must be >= 0 (frustrated t < 0 not supported)")
     if not model.hardcore and np.any(U <= 0):
         raise ConfigError("scan axis U: values must be > 0")
+    if T is not None and np.any(T < 0):
+        raise ConfigError("scan axis T: temperatures must be >= 0 (in the energy unit; ratio to V or U "
+                          "on relative axes)")
     base = model
     if not model.hardcore and model._auto_n_max:
         need = Model.default_n_max(float(mu.max()), float(U.min()))
         if need > model.n_max:
             base = model.replace(n_max=need)
-    return ParamBatch(base, t, V, U, V2, mu)
+    return ParamBatch(base, t, V, U, V2, mu, T)

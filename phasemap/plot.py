@@ -36,10 +36,10 @@ __all__ = ["WIDTHS", "FORMATS", "figure_width", "phase_colors", "plot_phase_map"
 WIDTHS = {"single": 3.4, "double": 7.0}
 #: Figure formats we write.
 FORMATS = ("png", "pdf", "svg")
-FAMILY_ORDER = ("empty", "mott", "solid", "supersolid", "superfluid", "full", "unconverged")
+FAMILY_ORDER = ("empty", "mott", "solid", "supersolid", "superfluid", "normal", "full", "unconverged")
 _FAMILY_RANGE = {"mott": ("Greens", 0.35, 0.75), "solid": ("YlOrRd", 0.3, 0.8),
                  "supersolid": ("Purples", 0.35, 0.75), "superfluid": ("Blues", 0.35, 0.65)}
-_FIXED = {"empty": "#f5f5f0", "full": "#8c510a", "unconverged": "#bdbdbd"}
+_FIXED = {"empty": "#f5f5f0", "full": "#8c510a", "unconverged": "#bdbdbd", "normal": "#fbe3ee"}
 UNCONVERGED_HATCH = "xxxx"
 STYLE = {"font.size": 8, "axes.labelsize": 8, "legend.fontsize": 6.5, "xtick.labelsize": 7,
          "ytick.labelsize": 7, "axes.linewidth": 0.6, "lines.linewidth": 1.0, "pdf.fonttype": 42}

@@ -17,7 +17,8 @@ from .model import Model
 __all__ = ["Solution", "PHASES", "UNCONVERGED"]
 
 #: The phase names of the classification, in the order of the phase codes stored in files.
-PHASES = ("empty", "full", "mott", "solid", "supersolid", "superfluid")
+#: "normal" (uniform, no condensate, non-integer filling) only occurs at a temperature T > 0.
+PHASES = ("empty", "full", "mott", "solid", "supersolid", "superfluid", "normal")
 #: Phase value of a point whose solve did not converge (never silently classified).
 UNCONVERGED = "unconverged"
 
@@ -40,7 +41,8 @@ class Solution:
     densities, condensate : ndarray
         Site densities ``<n_s>`` and condensate amplitudes ``|<b_s>|`` on ``sites``.
     energy : float
-        Variational (mean field) or exact (ED) energy per site, in the model's unit.
+        Variational (mean field) or exact (ED) energy per site, in the model's unit; at a
+        temperature T > 0 the (variational) grand potential per site <H - mu N>/N - T S/N.
     converged : bool
     iterations : int
     residual : float
@@ -57,6 +59,10 @@ class Solution:
         (N, 2) integer lattice coordinates of the sites the arrays refer to.
     branches : list of dict
         Every seed's end state: seed name, energy, converged, filling, phase.
+    temperature : float
+        Temperature in the model's unit (0: ground state).
+    entropy : float or None
+        Entropy per site (in units of k_B) of the winning state at T > 0.
     errors : dict
         One-sigma statistical errors keyed like the fields they belong to (``"energy"``,
         ``"filling"``, ``"compressibility"``, ``"structure_factor"``, ``"stiffness"``, or an
@@ -83,6 +89,8 @@ class Solution:
     compressibility: float | None = None
     extra: dict = field(default_factory=dict)
     errors: dict = field(default_factory=dict)
+    temperature: float = 0.0
+    entropy: float | None = None
 
     # scipy-like reading
     @property
@@ -114,7 +122,9 @@ class Solution:
             f"method   : {self.method}",
             f"phase    : {self.phase}   ({self.label})",
             f"filling  : {self.filling:.6f}{self._pm('filling')}",
-            f"energy   : {self.energy:.10g}{self._pm('energy')} {m.unit} per site",
+            (f"energy   : {self.energy:.10g}{self._pm('energy')} {m.unit} per site" if not self.temperature else
+             f"T        : {self.temperature:.6g} {m.unit}; entropy {self.entropy:.6g} per site\n"
+             f"grand pot: {self.energy:.10g}{self._pm('energy')} {m.unit} per site (<H - mu N>/N - T S/N)"),
             f"status   : {self.message}; winning seed {self.seed!r}",
             "densities: " + " ".join(f"{x:.4f}" for x in self.densities),
             "|<b>|    : " + " ".join(f"{x:.4f}" for x in self.condensate),
@@ -148,6 +158,7 @@ class Solution:
             "flags": list(self.flags),
             "sites": None if self.sites is None else np.asarray(self.sites).tolist(),
             "branches": [{k: _jsonable(v) for k, v in b.items()} for b in self.branches],
+            **({"temperature": self.temperature, "entropy": _jsonable(self.entropy)} if self.temperature else {}),
             "errors": {k: _jsonable(v) for k, v in self.errors.items()},
         }
         if self.extra:

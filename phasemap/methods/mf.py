@@ -15,7 +15,7 @@ class SiteMeanField(GrandCanonicalMethod):
     name = "mf"
     title = "site-decoupled mean field"
     Options = MFOptions
-    capabilities = Capabilities(grand_canonical=True, sharp_edges=True)
+    capabilities = Capabilities(grand_canonical=True, sharp_edges=True, temperature=True)
     caution = ("mean field overestimates the solid (site-decoupled badly so on the triangular lattice): "
                "its plateau widths and critical strains are bound-like estimates; compare cluster mean field")
 
