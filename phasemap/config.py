@@ -39,8 +39,8 @@ __all__ = ["RunConfig", "ScanSpec", "Output", "load_config", "parse_config", "du
 
 SECTIONS = ("meta", "model", "scan", "thresholds", "solver", "output")
 META_KEYS = ("title", "description", "invented", "notes", "source")
-MAP_KEYS = ("name", "kind", "x", "y", "relative", "method", "cluster", "refine", "refine_tol", "chunk")
-CURVE_KEYS = ("name", "kind", "x", "relative", "method", "cluster", "refine", "edge_tol", "jump_tol")
+MAP_KEYS = ("name", "kind", "x", "y", "relative", "method", "cluster", "refine", "refine_tol", "chunk", "T")
+CURVE_KEYS = ("name", "kind", "x", "relative", "method", "cluster", "refine", "edge_tol", "jump_tol", "T")
 OUTPUT_KEYS = ("folder", "formats", "width", "dpi", "figures")
 #: Largest number of grid points of one scan axis.
 MAX_AXIS = 10001
@@ -55,7 +55,7 @@ _SOLVER_RANGES = {
     "weight_warn": ("float", 0.0, 1.0, True), "patience": ("int", 1, 10**7, False),
     "dense_max": ("int", 1, 10**5, False), "eig_tol": ("float", 0.0, 1.0, True),
     "memory_mb": ("float", 0.0, 10**7, True), "max_dim": ("int", 1, 2**31, False),
-    "continuation": ("bool",), "patterns": ("strings",),
+    "continuation": ("bool",), "patterns": ("strings",), "T": ("float", 0.0, 1e6, False),
 }
 _THRESHOLD_RANGES = {"condensate_tol": ("float", 0.0, 1.0, True), "contrast_tol": ("float", 0.0, 1.0, True),
                      "integer_tol": ("float", 0.0, 0.5, True), "max_denominator": ("int", 1, 1000, False),
@@ -87,6 +87,7 @@ class ScanSpec:
     chunk: int | None = None
     edge_tol: float = 1e-6
     jump_tol: float = 1e-3
+    T: float | None = None  # temperature of this scan (same units as the axes: ratio when relative)
 
     def to_dict(self) -> dict:
         d = {"name": self.name, "kind": self.kind, "x": self.x.spec}
@@ -98,6 +99,8 @@ class ScanSpec:
                      jump_tol=self.jump_tol)
         if self.cluster is not None:
             d["cluster"] = self.cluster
+        if self.T is not None:
+            d["T"] = self.T
         return d
 
 
@@ -134,6 +137,8 @@ class RunConfig:
         opts = dict(self.solver)
         if scan.cluster is not None:
             opts["cluster"] = scan.cluster
+        if scan.T is not None:  # [scan] T (ratio to the model's scale when relative) overrides [solver] T
+            opts["T"] = scan.T * (self.model.scale if scan.relative else 1.0)
         return opts
 
     def to_dict(self) -> dict:
@@ -294,6 +299,8 @@ def _scan(where: str, d, model: Model, default_name: str) -> ScanSpec:
     if impl.capabilities.cluster:
         s.cluster = _cluster(f"{where}.cluster", d.get("cluster", opts.get("cluster")), model, impl)
     s.refine = _bool(f"{where}.refine", d.get("refine", True))
+    if "T" in d:
+        s.T = _number(f"{where}.T", d["T"], 0.0, 1e6)
     axes = {s.x.name: s.x.values}
     if kind == "map":
         if "y" not in d:
@@ -314,6 +321,10 @@ def _scan(where: str, d, model: Model, default_name: str) -> ScanSpec:
         s.edge_tol = _number(f"{where}.edge_tol", d.get("edge_tol", 1e-6), 0.0, 1.0, lo_open=True)
         s.jump_tol = _number(f"{where}.jump_tol", d.get("jump_tol", 1e-3), 0.0, 1.0, lo_open=True)
     grid(model, axes, relative=s.relative)  # every scanned point is a valid model (raises ConfigError)
+    if (s.T or "T" in axes) and not impl.capabilities.temperature:
+        ok = [n for n in available() if get_method(n).capabilities.temperature]
+        raise ConfigError(f"{where}: a temperature (T) needs a method with a finite-temperature mode "
+                          f"({', '.join(ok)}); {impl.name!r} has none")
     return s
 
 

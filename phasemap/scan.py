@@ -23,7 +23,7 @@ from .api import phase_codes, select_winners
 from .classify import Thresholds, filling_label
 from .model import ConfigError, Model
 from .params import ParamBatch, grid, points
-from .methods import resolve
+from .methods import check_temperature, resolve
 
 __all__ = ["phase_map", "filling_curve", "filling_curves", "FillingCurve", "refine_boundaries", "evaluate"]
 
@@ -46,6 +46,7 @@ def evaluate(batch: ParamBatch, method="mf", options=None, thresholds=Thresholds
     to resume a long scan chunk by chunk (see :class:`phasemap.store.ChunkStore`).
     """
     impl, options = resolve(method, options)
+    check_temperature(impl, batch.T)
     solver = impl.batch_solver(options)
     P = batch.size
     starts = list(range(0, P, chunk))
@@ -124,7 +125,7 @@ def _dataset(flat, dims, coords, sites, attrs):
 
 def _axis_label(name, model, relative):
     unit = model.scale_name if relative else model.unit
-    sym = {"mu": "μ", "t": "t", "V": "V", "U": "U", "V2": "V₂"}.get(name, name)
+    sym = {"mu": "μ", "t": "t", "V": "V", "U": "U", "V2": "V₂", "T": "T"}.get(name, name)
     return f"{sym}/{unit}" if relative else f"{sym} [{unit}]"
 
 

@@ -178,3 +178,38 @@ def test_engines_agree_at_finite_temperature(lattice, kw):
         assert x.energy == pytest.approx(y.energy, abs=1e-9)
         assert x.filling == pytest.approx(y.filling, abs=1e-7)
         assert x.condensate.max() == pytest.approx(y.condensate.max(), abs=1e-6)
+
+
+def test_transition_temperatures_sqrt3_first_order_and_xy_continuous():
+    """Ordering temperatures by bisection with the order of the transition recorded.
+
+    * Triangular t = 0 at mu = 2V - T_inst ln 2 (uniform n = 1/3 at T_inst = 2V/3, derived in the
+      module docstring): the solid must survive up to at least T_inst; the three-sublattice order
+      parameter admits a cubic Landau invariant (3-state Potts class; mean-field theory of such a
+      term gives a first-order transition — standard Landau argument, from memory), so the computed
+      transition is first order, above T_inst, with a finite jump of the density contrast.
+      Recorded: T_c = 0.684 V (computed), jump of the contrast about 0.30.
+    * Square XY limit: continuous at the closed-form T_c = z t / 2 (derived above).
+    """
+    from phasemap.thermal import transition_temperatures
+
+    T_inst = 2.0 / 3.0
+    tri = phasemap.Model(lattice="triangular", t=0.0, V=1.0)
+    ds = transition_temperatures(tri, {"mu": [2.0 - T_inst * np.log(2.0)]}, T_max=1.2, n_T=12)
+    assert ds["phase_T0"].values[0] == "solid 1/3"
+    Tc = ds["Tc_density"].values[0]
+    assert T_inst < Tc < 1.1 * T_inst
+    assert bool(ds["first_order_density"].values[0]) and ds["jump_density"].values[0] > 0.1
+    assert np.isnan(ds["Tc_condensate"].values[0])  # no condensate at t = 0
+    t = 0.25
+    sq = phasemap.Model(lattice="square", t=t, V=0.0, mu=0.0)
+    ds = transition_temperatures(sq, None, T_max=1.5, n_T=6, relative=False)
+    assert ds["Tc_condensate"].values[0] == pytest.approx(4 * t / 2, abs=2 * 1.5e-4)
+    assert not bool(ds["first_order_condensate"].values[0])
+    assert np.isnan(ds["Tc_density"].values[0])
+
+
+def test_temperature_refused_by_methods_without_it():
+    m = phasemap.Model(lattice="triangular", t=0.05, V=1.0, mu=1.5)
+    with pytest.raises(ConfigError, match="T: method 'ed'"):
+        phasemap.solve(m, method="ed:tri12", T=0.3)

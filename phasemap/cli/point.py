@@ -10,6 +10,7 @@ HELP = "solve one parameter point and print its phase (or --json)"
 EPILOG = """examples:
   phasemap point --lattice triangular --t 0.05 --V 1 --hardcore --mu 1.5
   phasemap point --lattice square --t 0.02 --U 1 --mu 0.5 --n-max 4 --json
+  phasemap point --lattice triangular --t 0 --V 1 --hardcore --mu 1.5 --T 0.6
   phasemap point --t 0.05,0.05,0.08 --V 1,1,0.8 --hardcore --mu 2 --method cmf --cluster tri3"""
 
 
@@ -26,6 +27,9 @@ def register(sub) -> None:
                    "same as writing --method cmf:tri12")
     p.add_argument("--particles", type=int, default=None, metavar="N",
                    help="particle number (canonical methods such as ed; default: the N minimising E0(N) - mu N)")
+    p.add_argument("--T", type=float, default=None, metavar="T",
+                   help="temperature in the model's energy unit (methods with a finite-temperature mode: "
+                        "mf, cmf); default 0 = ground state")
     p.add_argument("--json", action="store_true", help="print the Solution as JSON")
     p.set_defaults(func=run)
 
@@ -43,6 +47,8 @@ def run(args) -> int:
         if ":" in args.method:
             raise ConfigError(f"--cluster: --method {args.method} already names the cluster; give one of the two")
         opts["cluster"] = args.cluster
+    if args.T is not None:
+        opts["T"] = args.T
     if args.particles is not None:
         if not impl.capabilities.canonical:
             raise ConfigError(f"--particles: only used with a canonical method such as ed ({impl.name} is grand canonical)")

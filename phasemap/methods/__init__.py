@@ -24,7 +24,7 @@ from dataclasses import dataclass
 
 from ..model import ConfigError, check_keys
 
-__all__ = ["Method", "Capabilities", "MethodSpec", "register", "unregister", "get_method", "resolve",
+__all__ = ["Method", "Capabilities", "MethodSpec", "register", "unregister", "get_method", "resolve", "check_temperature",
            "parse_spec", "parse_specs", "available", "BUILTIN"]
 
 #: Built-in method modules, one line each (``phasemap.methods.<module>`` defines ``METHOD``).
@@ -237,14 +237,34 @@ def resolve(method, options=None) -> tuple[Method, dict]:
     """
     options = dict(options or {})
     if isinstance(method, MethodSpec):
-        return method.impl, {**method.option_dict, **options}
+        impl, options = method.impl, {**method.option_dict, **options}
+        check_temperature(impl, options.get("T"))
+        return impl, options
     head, _, arg = str(method).partition(":")
     impl = get_method(head)
     if impl.capabilities.cluster:
         options.update(impl.parse_arg(arg or options.get("cluster")))
     else:
         impl.parse_arg(arg)
+    check_temperature(impl, options.get("T"))
     return impl, options
+
+
+def check_temperature(method, T) -> None:
+    """ConfigError when a temperature ``T`` (a number, an array or None) is given to a method
+    without ``capabilities.temperature`` (T = 0 / None is always accepted)."""
+    import numpy as np
+
+    if T is None or method.capabilities.temperature:
+        return
+    try:
+        hot = bool(np.any(np.asarray(T, float) != 0))
+    except (TypeError, ValueError):
+        hot = True
+    if hot:
+        ok = [n for n in available() if get_method(n).capabilities.temperature]
+        raise ConfigError(f"T: method {method.name!r} ({method.title}) has no finite-temperature mode; "
+                          f"use one of {', '.join(ok)} (or T = 0)")
 
 
 @dataclass(frozen=True)
