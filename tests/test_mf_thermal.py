@@ -188,7 +188,8 @@ def test_transition_temperatures_sqrt3_first_order_and_xy_continuous():
       parameter admits a cubic Landau invariant (3-state Potts class; mean-field theory of such a
       term gives a first-order transition — standard Landau argument, from memory), so the computed
       transition is first order, above T_inst, with a finite jump of the density contrast.
-      Recorded: T_c = 0.684 V (computed), jump of the contrast about 0.30.
+      Recorded: T_c = 0.684 V, jump of the contrast about 0.30 — checked against an independent
+      scipy minimisation of the three-sublattice grand potential (below).
     * Square XY limit: continuous at the closed-form T_c = z t / 2 (derived above).
     """
     from phasemap.thermal import transition_temperatures
@@ -201,12 +202,42 @@ def test_transition_temperatures_sqrt3_first_order_and_xy_continuous():
     assert T_inst < Tc < 1.1 * T_inst
     assert bool(ds["first_order_density"].values[0]) and ds["jump_density"].values[0] > 0.1
     assert np.isnan(ds["Tc_condensate"].values[0])  # no condensate at t = 0
+    # independent general-purpose computation: at t = 0 the sqrt3 product state is three
+    # sublattice densities with Omega/N = V (nA nB + nB nC + nC nA) - mu <n> + T <n ln n + (1-n) ln(1-n)>;
+    # minimise it with scipy from an ordered and a uniform start, bisect on "ordered is lower"
+    Tc_ref, jump_ref = _sqrt3_first_order_reference(2.0 - T_inst * np.log(2.0))
+    assert Tc == pytest.approx(Tc_ref, abs=2e-4)
+    assert ds["jump_density"].values[0] == pytest.approx(jump_ref, abs=0.01)
     t = 0.25
     sq = phasemap.Model(lattice="square", t=t, V=0.0, mu=0.0)
     ds = transition_temperatures(sq, None, T_max=1.5, n_T=6, relative=False)
     assert ds["Tc_condensate"].values[0] == pytest.approx(4 * t / 2, abs=2 * 1.5e-4)
     assert not bool(ds["first_order_condensate"].values[0])
     assert np.isnan(ds["Tc_density"].values[0])
+
+
+def _sqrt3_first_order_reference(mu, V=1.0):
+    from scipy.optimize import minimize
+
+    def omega(n, T):
+        n = np.clip(n, 1e-15, 1 - 1e-15)
+        ent = (n * np.log(n) + (1 - n) * np.log(1 - n)).mean()
+        return V * (n[0] * n[1] + n[1] * n[2] + n[2] * n[0]) - mu * n.mean() + T * ent
+
+    def best(T, start):
+        r = minimize(omega, start, args=(T,), method="L-BFGS-B", bounds=[(1e-14, 1 - 1e-14)] * 3,
+                     options=dict(ftol=1e-15, gtol=1e-12))
+        return r.fun, r.x
+
+    lo, hi = 0.6 * V, 0.8 * V
+    for _ in range(30):
+        mid = 0.5 * (lo + hi)
+        (fo, xo), (fu, _) = best(mid, [0.9, 0.05, 0.05]), best(mid, [1 / 3] * 3)
+        if fo < fu - 1e-13 and np.ptp(xo) > 1e-3:
+            lo, jump = mid, np.ptp(xo)
+        else:
+            hi = mid
+    return 0.5 * (lo + hi), jump
 
 
 def test_temperature_refused_by_methods_without_it():
