@@ -244,3 +244,30 @@ def test_temperature_refused_by_methods_without_it():
     m = phasemap.Model(lattice="triangular", t=0.05, V=1.0, mu=1.5)
     with pytest.raises(ConfigError, match="T: method 'ed'"):
         phasemap.solve(m, method="ed:tri12", T=0.3)
+
+
+def test_temperature_map_and_config():
+    """A (T, mu) map at t = 0, V = 0 is the exact Fermi function on every grid point (exact), and
+    TOML [scan] T / T axes are validated and refused for methods without a temperature."""
+    import tomllib
+
+    from phasemap.config import parse_config
+    from phasemap.scan import phase_map
+
+    m = phasemap.Model(lattice="triangular", t=0.0, V=0.0, mu=0.0, unit="K")
+    T = np.array([0.2, 0.5, 1.0])
+    mu = np.array([-1.0, 0.0, 0.7])
+    ds = phase_map(m, x=("T", T), y=("mu", mu), relative=False, refine=False, progress=False)
+    assert np.allclose(ds["filling"].values, 1 / (1 + np.exp(-mu[None, :] / T[:, None])), atol=1e-10)
+    assert set(ds["label"].values.ravel()) <= {"normal n=" + f"{x:.3g}" for x in ds["filling"].values.ravel()}
+    base = """[model]\nlattice = "triangular"\nt = 0.0\nV = 1.0\nU = "hardcore"\n"""
+    cfg = parse_config(tomllib.loads(base + """[scan]\nkind = "curve"\nx = {name = "mu", start = -1, stop = 7, num = 5}
+T = 0.5\n"""), name="c")
+    assert cfg.options(cfg.scans[0])["T"] == pytest.approx(0.5)
+    parse_config(tomllib.loads(base + """[scan]\nx = {name = "T", start = 0, stop = 1, num = 3}
+y = {name = "mu", start = -1, stop = 7, num = 3}\n[solver]\nT = 0.1\n"""), name="m")
+    with pytest.raises(ConfigError, match=r"\[scan\].T"):
+        parse_config(tomllib.loads(base + """[scan]\nkind = "curve"\nx = {name = "mu", values = [0, 1]}\nT = -1\n"""))
+    with pytest.raises(ConfigError, match="scan axis T"):
+        parse_config(tomllib.loads(base + """[scan]\nx = {name = "T", values = [-1, 1]}
+y = {name = "mu", values = [0, 1]}\n"""))
