@@ -25,7 +25,7 @@ from fractions import Fraction
 
 import numpy as np
 
-from .lattice import Supercell, patterns_for
+from .lattice import Supercell, patterns_for, sq_peak
 from .solution import UNCONVERGED
 
 __all__ = ["Thresholds", "classify", "classify_arrays", "filling_label", "order_parameters"]
@@ -74,15 +74,14 @@ def _label_periodic(cell: Supercell, pat) -> bool:
 def order_parameters(cell: Supercell, densities, condensate) -> dict:
     """S(Q) maximum over nonzero allowed momenta, density contrast, condensate."""
     q, sq = cell.structure_factor(densities)
-    nonzero = np.any(np.abs(q) > 1e-12, axis=1)
+    peak, k = sq_peak(q, sq)
     out = {
         "contrast": float(np.ptp(densities)),
         "condensate_max": float(np.max(condensate)),
         "condensate_mean": float(np.mean(condensate)),
     }
-    if nonzero.any():
-        k = int(np.argmax(np.where(nonzero, sq, -1)))
-        out["sq_max"] = float(sq[k])
+    if k >= 0:
+        out["sq_max"] = float(peak)
         out["q_max"] = cell.momentum_name(q[k])
     else:
         out["sq_max"], out["q_max"] = 0.0, "Gamma"

@@ -18,6 +18,7 @@ from functools import cached_property
 import numpy as np
 
 __all__ = [
+    "sq_peak",
     "Lattice",
     "Supercell",
     "Pattern",
@@ -359,3 +360,19 @@ def tile_orbits(cell: Supercell, t, V) -> np.ndarray:
     roots = [find(a) for a in range(cell.n_sites)]
     _, orbit = np.unique(roots, return_inverse=True)
     return orbit
+
+
+def sq_peak(q, sq):
+    """Largest S(Q) over the nonzero momenta of the last axis (Q != 0 modulo reciprocal vectors).
+
+    ``q``: (Nq, 2) momenta in units of the primitive reciprocal vectors; ``sq``: (..., Nq).
+    Returns ``(value, index)`` of shape ``sq.shape[:-1]``; value 0 and index -1 where the cell
+    has no nonzero momentum. The one helper for every S(Q) maximum (classification, scans, ED).
+    """
+    q = np.asarray(q, float)
+    sq = np.asarray(sq, float)
+    nz = np.any(np.abs(np.mod(q + 0.5, 1) - 0.5) > 1e-9, axis=-1)
+    if not nz.any():
+        return np.zeros(sq.shape[:-1]), np.full(sq.shape[:-1], -1)
+    k = np.argmax(np.where(nz, sq, -np.inf), axis=-1)
+    return np.take_along_axis(sq, np.asarray(k)[..., None], -1)[..., 0], k

@@ -21,6 +21,7 @@ import xarray as xr
 
 from .api import phase_codes, select_winners
 from .classify import Thresholds, filling_label
+from .lattice import sq_peak
 from .model import ConfigError, Model
 from .params import ParamBatch, grid, points
 from .methods import check_temperature, resolve
@@ -68,10 +69,8 @@ def _extract(res, thresholds):
     P = res.batch.size
     r = np.arange(P)
     n, phi = res.n[r, k], np.abs(res.phi[r, k])
-    _, sq = res.cell.structure_factor(n)
-    q = res.cell.momenta
-    nonzero = np.any(np.abs(q) > 1e-12, axis=1)
-    sqm = np.where(nonzero[None, :], sq, -1).max(1) if nonzero.any() else np.zeros(P)
+    q, sq = res.cell.structure_factor(n)
+    sqm, _ = sq_peak(q, sq)
     E = np.where(res.converged, res.energy, np.inf)
     second = np.sort(E, axis=1)[:, 1] if E.shape[1] > 1 else np.full(P, np.inf)
     return dict(

@@ -41,7 +41,12 @@ def build_parser() -> argparse.ArgumentParser:
 
 def main(argv=None) -> int:
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as e:  # argparse's one-line error (already printed): exit code 2, no traceback
+        if e.code == 2:
+            return 2
+        raise  # --help, --version
     if not getattr(args, "func", None):
         parser.print_help()
         return 0

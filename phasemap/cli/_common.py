@@ -8,33 +8,60 @@ import math
 from ..store import dumps_json  # noqa: F401  (re-exported for the commands)
 
 __all__ = ["float_list", "finite_float", "positive_int", "width_arg", "dumps_json", "add_model_options",
-           "model_from_args", "add_method_option", "method_help", "resolve_method"]
+           "model_from_args", "model_overrides", "add_method_option", "method_help", "resolve_method", "u_value"]
 
 
-def add_model_options(p, mu_help: str = "chemical potential (default 0)") -> None:
-    """The model options shared by every command that takes a model on the command line."""
-    p.add_argument("--lattice", default="triangular", choices=("triangular", "square"), help="lattice (default triangular)")
-    p.add_argument("--t", type=float_list, default=0.0, metavar="T",
-                   help="hopping: one value or a comma list, one per bond family (default 0)")
-    p.add_argument("--V", type=float_list, default=0.0, metavar="V",
-                   help="nearest-neighbour repulsion: one value or one per bond family (default 0)")
+def u_value(text: str) -> float:
+    """argparse type of --U: a finite number, or 'inf' / 'hardcore' for hard-core bosons."""
+    if text.strip().lower() in ("inf", "hardcore", "hard-core"):
+        return math.inf
+    return finite_float(text)
+
+
+#: Defaults of the model options (None: the Model's own default).
+MODEL_DEFAULTS = {"lattice": "triangular", "t": 0.0, "V": 0.0, "U": None, "V2": 0.0, "mu": 0.0, "n_max": None,
+                  "unit": None}
+
+
+def add_model_options(p, mu_help: str = "chemical potential", overrides: bool = False) -> None:
+    """The model options shared by every command that takes a model on the command line.
+
+    ``overrides=True``: every default is None so that only the options given on the command
+    line override a model read from a config file (:func:`model_overrides`).
+    """
+    d = (lambda k: None) if overrides else MODEL_DEFAULTS.get  # noqa: E731
+    tail = (lambda k: "") if overrides else (lambda k: f" (default {MODEL_DEFAULTS[k]})")  # noqa: E731
+    p.add_argument("--lattice", default=d("lattice"), choices=("triangular", "square"), help="lattice" + tail("lattice"))
+    p.add_argument("--t", type=float_list, default=d("t"), metavar="T",
+                   help="hopping: one value or a comma list, one per bond family" + tail("t"))
+    p.add_argument("--V", type=float_list, default=d("V"), metavar="V",
+                   help="nearest-neighbour repulsion: one value or one per bond family" + tail("V"))
     core = p.add_mutually_exclusive_group()
-    core.add_argument("--U", type=finite_float, default=None, metavar="U", help="on-site repulsion (soft-core bosons)")
+    core.add_argument("--U", type=u_value, default=None, metavar="U",
+                      help="on-site repulsion (soft-core bosons; 'inf' = hard-core)")
     core.add_argument("--hardcore", action="store_true", help="hard-core bosons, U = inf (the default without --U)")
-    p.add_argument("--V2", type=finite_float, default=0.0, help="next-nearest-neighbour repulsion (default 0)")
-    p.add_argument("--mu", type=finite_float, default=0.0, help=mu_help)
+    p.add_argument("--V2", type=finite_float, default=d("V2"), help="next-nearest-neighbour repulsion" + tail("V2"))
+    p.add_argument("--mu", type=finite_float, default=d("mu"), help=mu_help + tail("mu"))
     p.add_argument("--n-max", type=positive_int, default=None, dest="n_max",
                    help="occupation cut-off for soft-core bosons (default chosen from mu/U)")
     p.add_argument("--unit", default=None, help="energy unit label of all energies (default: V for hard-core, U for soft-core)")
+
+
+def model_overrides(args) -> dict:
+    """The model fields given on the command line (options of :func:`add_model_options`)."""
+    d = {k: getattr(args, k) for k in MODEL_DEFAULTS if getattr(args, k, None) is not None}
+    if getattr(args, "hardcore", False):
+        d["U"] = math.inf
+    return d
 
 
 def model_from_args(args):
     """The :class:`phasemap.Model` described by the options of :func:`add_model_options`."""
     from ..model import Model
 
-    U = math.inf if args.U is None else args.U
-    return Model(lattice=args.lattice, t=args.t, V=args.V, U=U, V2=args.V2, mu=args.mu, n_max=args.n_max,
-                 unit=args.unit)
+    d = {**{k: v for k, v in MODEL_DEFAULTS.items() if v is not None}, **model_overrides(args)}
+    d.setdefault("U", math.inf)
+    return Model(**d)
 
 
 def method_help(grand_canonical_only: bool = False) -> str:

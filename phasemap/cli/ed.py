@@ -28,7 +28,7 @@ def register(sub) -> None:
                        "ground state at N (with observables); a range or no --particles gives the "
                        "canonical staircase and a figure against the mean-field filling curves.",
                        epilog=EPILOG, formatter_class=argparse.RawDescriptionHelpFormatter)
-    add_model_options(p, mu_help="chemical potential included in E0 (default 0)")
+    add_model_options(p, mu_help="chemical potential included in E0")
     p.add_argument("--cluster", default="tri12", help="library name or vectors 'i1,j1;i2,j2' (default tri12)")
     p.add_argument("--particles", default=None, metavar="N|A:B",
                    help="particle number N, or inclusive range A:B (default: all N = staircase)")

@@ -28,6 +28,7 @@ import sys
 import tempfile
 
 from ..model import ConfigError, Model, check_keys
+from ._common import add_model_options, model_overrides
 
 __all__ = ["register", "run"]
 
@@ -46,14 +47,7 @@ def register(subparsers) -> None:
         epilog="library clusters: " + ", ".join(_library()))
     g = p.add_argument_group("model")
     g.add_argument("--config", help="TOML file with [model] and [scaling] tables")
-    g.add_argument("--lattice", help="triangular (default) or square")
-    g.add_argument("--t", help="hopping: one number or comma-separated per family")
-    g.add_argument("--V", help="nearest-neighbour repulsion: one number or per family")
-    g.add_argument("--U", help="on-site repulsion (default inf = hard-core)")
-    g.add_argument("--V2", help="next-nearest-neighbour repulsion")
-    g.add_argument("--mu", help="chemical potential")
-    g.add_argument("--n-max", dest="n_max", help="occupation cut-off (soft-core)")
-    g.add_argument("--unit", help="energy unit label")
+    add_model_options(g, overrides=True)  # only the options given override the config's [model]
     s = p.add_argument_group("scaling")
     s.add_argument("--quantity", choices=("lobe-tip", "transition", "order"), help="default: transition")
     s.add_argument("--clusters", help="comma-separated library names (default: all of the lattice up to 12 sites)")
@@ -121,21 +115,7 @@ def _gather(args):
         model_d = dict(cfg.get("model", {}))
         sc = dict(cfg.get("scaling", {}))
         check_keys("scaling", sc, _SCALING_KEYS)
-    for k in ("lattice", "unit"):
-        if getattr(args, k) is not None:
-            model_d[k] = getattr(args, k)
-    for k in ("t", "V"):
-        v = getattr(args, k)
-        if v is not None:
-            parts = [x for x in v.split(",") if x.strip()]
-            model_d[k] = [_num(k, x) for x in parts] if len(parts) > 1 else _num(k, parts[0] if parts else v)
-    for k in ("V2", "mu"):
-        if getattr(args, k) is not None:
-            model_d[k] = _num(k, getattr(args, k))
-    if args.U is not None:
-        model_d["U"] = args.U if args.U.strip().lower() in ("inf", "hardcore", "hard-core") else _num("U", args.U)
-    if args.n_max is not None:
-        model_d["n_max"] = _num("n_max", args.n_max, int)
+    model_d.update(model_overrides(args))
     model = Model.from_dict(model_d)
     for k in ("quantity", "axis", "order"):
         if getattr(args, k) is not None:

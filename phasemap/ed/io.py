@@ -6,7 +6,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["save_dataset", "filling_from_staircase"]
+__all__ = ["save_dataset", "filling_from_staircase", "canonical_mu"]
 
 
 def save_dataset(ds, path) -> Path:
@@ -38,3 +38,21 @@ def filling_from_staircase(ds, mu) -> np.ndarray:
     N = ds["N"].values
     k = np.argmin(Ec[None, :] - mu[:, None] * N[None, :], axis=1)
     return N[k] / int(ds.attrs["n_sites"])
+
+
+def canonical_mu(ns, Ec):
+    """Canonical chemical potentials of a staircase: ``(mu_minus, mu_plus)``.
+
+    ``mu_minus(N) = E_c(N) - E_c(N-1)``, ``mu_plus(N) = E_c(N+1) - E_c(N)`` along the last axis of
+    ``Ec`` (``E_c = E0 + mu N``) at particle numbers ``ns``; NaN where the neighbour N +- 1 is
+    not in ``ns``. The one helper for every mu+-(N) (staircase, solve_ed, strain ED step).
+    """
+    ns = np.asarray(ns)
+    Ec = np.asarray(Ec, float)
+    mu_m = np.full(Ec.shape, np.nan)
+    mu_p = np.full(Ec.shape, np.nan)
+    step = np.diff(ns) == 1
+    d = np.diff(Ec, axis=-1)
+    mu_p[..., :-1] = np.where(step, d, np.nan)
+    mu_m[..., 1:] = np.where(step, d, np.nan)
+    return mu_m, mu_p

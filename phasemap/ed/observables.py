@@ -37,6 +37,7 @@ import numpy as np
 import math
 
 from ..model import ConfigError
+from ..lattice import sq_peak
 from .sector import Sector
 
 __all__ = ["density_correlation", "structure_factor", "one_body", "stiffness", "measure"]
@@ -122,11 +123,10 @@ def measure(gs, which=("sq", "condensate", "stiffness"), phi: float = 1e-2, tol:
     if "sq" in which:
         mom, sq = structure_factor(sec, q, vec)
         sq_n = sq / cell.n_sites
-        nz = np.any(np.abs(np.mod(mom + 0.5, 1) - 0.5) > 1e-9, axis=1)
         out["momenta"], out["sq"] = mom, sq
-        if nz.any():
-            k = int(np.argmax(np.where(nz, sq_n, -np.inf)))
-            out["sq_max"], out["q_max"] = float(sq_n[k]), cell.momentum_name(mom[k])
+        peak, k = sq_peak(mom, sq_n)
+        if k >= 0:
+            out["sq_max"], out["q_max"] = float(peak), cell.momentum_name(mom[k])
         if "K" in cell.lattice.special_q:
             Kq = np.array(cell.lattice.special_q["K"], float)
             hit = np.all(np.abs(np.mod(mom - Kq + 0.5, 1) - 0.5) < 1e-9, axis=1)

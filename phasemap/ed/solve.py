@@ -39,6 +39,7 @@ from ..lattice import patterns_for
 from ..model import ConfigError, Model, check_keys
 from ..solution import Solution
 from .groundstate import ground_state
+from .io import canonical_mu
 from .observables import measure as observables
 
 __all__ = ["EDThresholds", "solve_ed", "observables", "indicator", "scan_ed"]
@@ -165,10 +166,12 @@ def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Soluti
             if 0 <= N + dn <= model.n_max * L:
                 side = {k: v for k, v in gs_opts.items() if k != "all_momenta"}
                 e_side[dn] = ground_state(model, cell, N + dn, **side).e0
-        if 1 in e_side:
-            mu_p = e_side[1] - gs.e0 + model.mu
-        if -1 in e_side:
-            mu_m = gs.e0 - e_side[-1] + model.mu
+        e_side[0] = gs.e0
+        ns = sorted(e_side)
+        m_m, m_p = canonical_mu([N + d for d in ns], [e_side[d] + model.mu * (N + d) for d in ns])
+        k = ns.index(0)
+        mu_m = None if math.isnan(m_m[k]) else float(m_m[k])
+        mu_p = None if math.isnan(m_p[k]) else float(m_p[k])
         if mu_p is not None and mu_m is not None:
             gap = mu_p - mu_m
     phase, label, pattern, flags = indicator(model, cell, N, obs, gap, th)

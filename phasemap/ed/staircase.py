@@ -34,7 +34,7 @@ from ..model import ConfigError, Model
 from .clusters import get_cluster
 from .groundstate import check_particles, ground_state
 from .guard import DEFAULT_BUDGET_GIB
-from .io import filling_from_staircase  # noqa: F401  (public here too)
+from .io import canonical_mu, filling_from_staircase  # noqa: F401  (filling_from_staircase public here too)
 
 __all__ = ["staircase", "filling_from_staircase", "particle_hole_shift"]
 
@@ -120,13 +120,7 @@ def staircase(model: Model, cluster="tri12", n_range=None, particle_hole: bool =
                 rec[N] = dict(src, E0=src["E0"] + particle_hole_shift(model, L, L - N), ph=True, time_s=0.0)
     E0 = np.array([rec[N]["E0"] for N in ns])
     Ec = E0 + model.mu * np.array(ns)
-    mu_p = np.full(len(ns), np.nan)
-    mu_m = np.full(len(ns), np.nan)
-    for a, N in enumerate(ns):
-        if a + 1 < len(ns) and ns[a + 1] == N + 1:
-            mu_p[a] = Ec[a + 1] - Ec[a]
-        if a > 0 and ns[a - 1] == N - 1:
-            mu_m[a] = Ec[a] - Ec[a - 1]
+    mu_m, mu_p = canonical_mu(ns, Ec)
     data = {
         "E0": ("N", E0, {"long_name": "ground-state energy (incl. -mu N)", "units": model.unit}),
         "E0_per_site": ("N", E0 / L, {"units": model.unit}),

@@ -198,6 +198,7 @@ def ed_plateaus(models: list[Model], spec=f"ed:{DEFAULT_ED_CLUSTER}", fraction="
     Results are cached per (cluster, model).
     """
     from ..ed import EDThresholds, ground_state, observables
+    from ..ed.io import canonical_mu
 
     spec = MethodSpec.parse(spec)
     th = thresholds or EDThresholds()
@@ -236,8 +237,7 @@ def ed_plateaus(models: list[Model], spec=f"ed:{DEFAULT_ED_CLUSTER}", fraction="
             fl.append("note: E_c(N) is not convex at N (mu+ < mu-): the cluster skips N grand-canonically")
         flags.append(fl)
         secs[p] = time.perf_counter() - t0
-    mu_m = Ec[:, 1] - Ec[:, 0]
-    mu_p = Ec[:, 2] - Ec[:, 1]
+    mu_m, mu_p = (x[:, 1] for x in canonical_mu([N - 1, N, N + 1], Ec))
     return EDPlateau(method=spec.name, cluster=name, n_sites=cell.n_sites, N=N, fraction=lab, e_canonical=Ec,
                      mu_minus=mu_m, mu_plus=mu_p, gap=mu_p - mu_m, sk=sk, sq_max=sqm, q_max=qmax, residual=res,
                      seconds=secs, threshold=float(th.sq), flags=flags)
