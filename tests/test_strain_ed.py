@@ -147,7 +147,12 @@ def test_sweep_with_ed_writes_lines_and_claims_no_critical_strain(tmp_path, caps
     assert (out / "plateau.csv").exists() and (out / "strain_plateau_edges.png").exists()
     nc = xr.open_dataset(out / "sweep.nc")
     assert json.loads(nc.attrs["methods"]) == ["mf", "ed:tri12"] and list(nc["solver"].values) == ["mf", "ed:tri12"]
+    assert bool(nc["in_band"].sel(solver="mf")) == (sw.critical["mf"].strain_c is not None)
+    assert not bool(nc["in_band"].sel(solver="ed:tri12")) and np.isnan(float(nc["strain_c"].sel(solver="ed:tri12")))
     nc.close()
+    capsys.readouterr()
+    assert main(["replot", str(out / "sweep.nc")]) == 2  # a sweep is refused by replot with a clear message
+    assert "strain sweep" in capsys.readouterr().err
 
 
 @pytest.mark.parametrize("method, extra, pattern", [

@@ -37,6 +37,9 @@ def load_result(path):
     if path.suffix != ".nc":
         raise ConfigError(f"input file: {str(path)!r}: expected a .nc or .csv file written by phasemap")
     ds = load_netcdf(path)
+    if "strain" in ds.dims:
+        raise ConfigError(f"input file: {str(path)!r} is a strain sweep; its figures are written by "
+                          "'phasemap strain-sweep' (replot draws phase maps and filling curves)")
     if "y_axis" in ds.attrs:
         return ds, "map"
     if "mu" in ds.dims and "filling" in ds:

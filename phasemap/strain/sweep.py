@@ -106,10 +106,11 @@ class StrainSweep:
             "table": self.table.path or "", "table_description": self.table.meta.get("description", ""),
             "table_invented": self.table.meta.get("invented", ""), "energy_unit": self.table.unit,
             "lattice": self.table.lattice, "hardcore": int(self.table.hardcore), "fraction": self.fraction,
-            "methods": json.dumps(self.names), "critical": json.dumps({k: v.to_dict() for k, v in self.critical.items()}),
-            "band": json.dumps(self.band), "caution": CAUTION, "phasemap_version": __version__,
+            "methods": json.dumps(self.names),
+            "band_lo": self.band["lo"] if self.band["lo"] is not None else float("nan"),
+            "band_hi": self.band["hi"] if self.band["hi"] is not None else float("nan"),
+            "band_text": self.band["text"], "caution": CAUTION, "phasemap_version": __version__,
             "method_cautions": json.dumps({m.name: m.impl.caution for m in self.methods}),
-            "table_rows": json.dumps(self.table.to_dict()),
         }
 
     def to_dataset(self) -> xr.Dataset:
@@ -183,6 +184,18 @@ class StrainSweep:
         }
         for k in order_keys:
             data[f"order_{_var(k)}"] = (m2, order[k], {"long_name": f"{k} at the plateau"})
+        crit = [self.critical[n].to_dict() for n in names]
+        num = lambda x: float("nan") if x is None else float(x)  # noqa: E731
+        data.update({
+            "strain_c": (("solver",), [num(c.get("strain_c")) for c in crit],
+                         {"long_name": "critical strain (NaN: none in the table, or a finite lattice)"}),
+            "strain_c_xtol": (("solver",), [num(c.get("xtol")) for c in crit], {"long_name": "root-finding tolerance"}),
+            "critical_status": (("solver",), [str(c["status"]) for c in crit]),
+            "in_band": (("solver",), [bool(self.critical[n].in_band) for n in names]),
+            "table_strain": (("row",), self.table.strain, {"long_name": "strain of the table rows (input)"}),
+        })
+        for k, v in self.table.columns().items():
+            data[f"table_{k}"] = (("row",), v, {"units": u, "long_name": f"{k} of the table rows (input)"})
         for k in err_keys:
             data[f"error_{_var(k)}"] = (m2, errs[k], {"long_name": f"one-sigma statistical error of {k}"})
         info = lambda k, d: [self.records[n].info.get(k, d) for n in names]  # noqa: E731
@@ -240,7 +253,7 @@ class StrainSweep:
 
         out = Path(outdir)
         paths = [save_netcdf(self.to_dataset(), out / "sweep.nc")]
-        meta = {k: v for k, v in self.metadata().items() if k not in ("critical", "table_rows")}
+        meta = dict(self.metadata())
         paths.append(save_csv(out / "plateau.csv", self.plateau_table(), meta))
         nan = float("nan")
         crit = {k: [] for k in ("method", "status", "strain_c", "xtol", "interpolation_uncertainty", "t_over_V_c",

@@ -260,7 +260,8 @@ class StrainTable:
         su = self.meta.get("strain_unit", "")
         return "strain" + (f" [{su}]" if su in ("%",) else "")
 
-    def _arrays(self) -> dict:
+    def columns(self) -> dict:
+        """The parameter columns of the table rows: t_<family>, V_<family>, V2 (and U for soft-core)."""
         d = {f"t_{f}": self.t[:, k] for k, f in enumerate(self.families)}
         d.update({f"V_{f}": self.V[:, k] for k, f in enumerate(self.families)})
         d["V2"] = self.V2
@@ -271,7 +272,7 @@ class StrainTable:
     def _splines(self) -> dict:
         sp = getattr(self, "_spl", None)
         if sp is None:
-            sp = {k: PchipInterpolator(self.strain, v, extrapolate=True) for k, v in self._arrays().items()}
+            sp = {k: PchipInterpolator(self.strain, v, extrapolate=True) for k, v in self.columns().items()}
             self._spl = sp
         return sp
 
@@ -352,7 +353,7 @@ class StrainTable:
         """
         out = {}
         R = self.n_rows
-        arrays = self._arrays()
+        arrays = self.columns()
         arrays["t/V"] = self.t.max(1) / np.where(np.abs(self.V).max(1) > 0, np.abs(self.V).max(1), 1.0)
         for name, v in arrays.items():
             err = np.zeros(R)
@@ -392,7 +393,7 @@ class StrainTable:
     # -- output -----------------------------------------------------------------------
     def to_dict(self) -> dict:
         d = {"unit": self.unit, "lattice": self.lattice, "strain": self.strain.tolist()}
-        for k, v in self._arrays().items():
+        for k, v in self.columns().items():
             d[k] = v.tolist()
         d["hardcore"] = self.hardcore
         d["meta"] = {k: v for k, v in self.meta.items()}
