@@ -91,7 +91,7 @@ def melt_factor(model: Model, spec: MethodSpec = MethodSpec(), fraction="1/3", f
         r = locate_plateaus([_scaled_t(model, f) for f in factors], fraction, spec, **kw)
         for p in range(r.size):
             if not r.ok(p):
-                flags.append(f"t x{factors[p]:.4g}: " + "; ".join(x for x in r.flags[p] if x.startswith("unconverged")))
+                flags.append(f"t x{factors[p]:.4g}: unconverged: " + "; ".join(r.unconverged[p]))
         return np.where(r.reached, r.width, 0.0) - floor
 
     h1 = widths([1.0])[0]
@@ -260,7 +260,7 @@ def grand_canonical_report(spec, model: Model, res, mu, lab: str, melt=True, mel
                          thresholds=thresholds, n_mu=n_mu)
         out["melt"] = {**mf, "t_over_V_at_melt": (mf["factor"] * t_over_V if mf["factor"] else None)}
         out["flags"] += [f"melt search: {x}" for x in mf["flags"]]
-    ok = res.ok(0) and not any(x.startswith("unconverged") for x in out["flags"])
+    ok = res.ok(0) and (mu is None or out["at_mu"]["converged"])  # melt-search flags are reported, not decisive
     out["converged"] = ok
     if not res.reached[0]:
         out["verdict"] = "not-reached"

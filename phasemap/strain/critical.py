@@ -207,17 +207,13 @@ def critical_strain(table: StrainTable, spec="mf", fraction="1/3", criterion="wi
         H, res, _ = criterion_values(table, S, spec, lab, criterion, mu, width_floor, **kw)
     flags = []
     for p in range(res.size):
-        for f in res.flags[p]:
-            if f.startswith("unconverged"):
-                flags.append(f"strain {S[p]:.4g}: {f}")
+        flags += [f"strain {S[p]:.4g}: unconverged: {f}" for f in res.unconverged[p]]
     count = [len(S)]
 
     def hv(xs):
         v, r, _ = criterion_values(table, list(xs), spec, lab, criterion, mu, width_floor, **kw)
         for p in range(r.size):
-            for f in r.flags[p]:
-                if f.startswith("unconverged"):
-                    flags.append(f"strain {xs[p]:.6g}: {f}")
+            flags.extend(f"strain {xs[p]:.6g}: unconverged: {f}" for f in r.unconverged[p])
         return v
 
     def h(s):

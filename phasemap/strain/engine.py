@@ -234,6 +234,7 @@ class PlateauResult:
     flags: list = field(default_factory=list)
     grid: dict | None = None
     grid_mu: np.ndarray | None = None
+    unconverged: list = field(default_factory=list)
 
     @property
     def size(self) -> int:
@@ -241,7 +242,7 @@ class PlateauResult:
 
     def ok(self, p: int) -> bool:
         """True when no non-converged point touched the answer of model ``p``."""
-        return not any(f.startswith("unconverged") for f in self.flags[p])
+        return not self.unconverged[p]
 
     def to_record(self, method: str):
         """The common :class:`~phasemap.strain.record.StepRecord` (sharp grand-canonical edges)."""
@@ -328,6 +329,12 @@ def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = Meth
     g = evaluate_points(models, grid_mu, spec, thresholds)
     n, conv = g["filling"].astype(float), g["converged"]
     flags = [[] for _ in range(P)]
+    unconv = [[] for _ in range(P)]  # what did not converge (a field, not flag text; also shown in flags)
+
+    def _fail(p, msg):
+        unconv[p].append(msg)
+        flags[p].append(f"unconverged: {msg}")
+
     bad = (~conv).sum(1)
     for p in range(P):
         if bad[p]:
@@ -420,7 +427,7 @@ def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = Meth
             w = b[p] - a[p]
             what = "lower" if side == 0 else "upper"
             if w > width_floor * scale[p]:
-                flags[p].append(f"unconverged: {what} edge bracket [{a[p]:.6g}, {b[p]:.6g}] could not be refined "
+                _fail(p, f"{what} edge bracket [{a[p]:.6g}, {b[p]:.6g}] could not be refined "
                                 "(every interior point failed to converge)")
             else:
                 flags[p].append(f"note: {what} edge known to +-{w / 2:.2g} only (closer points do not converge: "
@@ -452,10 +459,10 @@ def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = Meth
         elif exists[p] and c["phase"][p, 0] not in INCOMPRESSIBLE:
             flags[p].append(f"plateau centre is {c['label'][p, 0]!r}, not incompressible")
         if reached[p] and not c["converged"][p, 0]:
-            flags[p].append("unconverged: the state at the plateau centre / crossing did not converge")
+            _fail(p, "the state at the plateau centre / crossing did not converge")
         for side, key in ((0, "lo_a"), (0, "lo_b"), (1, "hi_a"), (1, "hi_b")):
             if reached[p] and not ends[key]["converged"][p] and not (lo_open[p] if side == 0 else hi_open[p]):
-                flags[p].append(f"unconverged: edge end state {key} did not converge")
+                _fail(p, f"edge end state {key} did not converge")
     n_below = np.where(lo_open, np.nan, ends["lo_a"]["filling"].astype(float))
     n_above = np.where(hi_open, np.nan, ends["hi_b"]["filling"].astype(float))
     res = PlateauResult(
@@ -471,7 +478,7 @@ def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = Meth
         mu_below=ends["lo_a"]["mu"].astype(float), mu_above=ends["hi_b"]["mu"].astype(float),
         reached=reached, tol=np.maximum(np.where(lo_open, 0, lo_b - lo_a), np.where(hi_open, 0, hi_b - hi_a)),
         sq_center=c["sq_max"][:, 0].astype(float), condensate_center=c["condensate_max"][:, 0].astype(float),
-        flags=flags, grid=g if keep_grid else None, grid_mu=grid_mu if keep_grid else None,
+        flags=flags, unconverged=unconv, grid=g if keep_grid else None, grid_mu=grid_mu if keep_grid else None,
     )
     return res
 

@@ -163,9 +163,7 @@ def critical_vs_lambda(table: StrainTable, spec="mf", lambdas=(0.7, 0.8, 0.9, 1.
         models = [tabs[i].model(s) for i, s in pairs]
         r = locate_plateaus(models, lab, spec, **kw)
         for p, (i, s) in enumerate(pairs):
-            for f in r.flags[p]:
-                if f.startswith("unconverged"):
-                    flags.append(f"lambda {lam[i]:.4g}, strain {s:.4g}: {f}")
+            flags.extend(f"lambda {lam[i]:.4g}, strain {s:.4g}: unconverged: {f}" for f in r.unconverged[p])
         floor = np.array([width_floor * m.scale for m in models])
         return np.where(r.reached, r.width, 0.0) - floor
 
@@ -275,7 +273,7 @@ def local_derivatives(table: StrainTable, strain: float, spec="mf", fraction="1/
         out.append({"param": name, "value": float(val), "dW_dp": float(dw),
                     "elasticity": None if el is None else float(el)})
     out.sort(key=lambda d: -abs(d["elasticity"]) if d["elasticity"] is not None else 0.0)
-    flags = [f for p in range(r.size) for f in r.flags[p] if f.startswith("unconverged")]
+    flags = [f"unconverged: {f}" for p in range(r.size) for f in r.unconverged[p]]
     most = out[0]["param"] if out and out[0]["elasticity"] is not None else None
     return {"strain": float(strain), "method": spec.name, "fraction": lab, "unit": table.unit, "width": w0,
             "rel_step": rel_step, "derivatives": out, "most_important": most, "flags": flags,
