@@ -1,0 +1,278 @@
+r"""Compiled (numba) hot loops of the stochastic series expansion: no Python per operator.
+
+Configuration
+-------------
+* ``state[i]`` in {0, 1}: occupation of site i in the propagated state at string position 0.
+* ``ops[p]`` for p in [0, M): ``-1`` identity, ``2 b`` diagonal operator on bond b,
+  ``2 b + 1`` off-diagonal (hopping) operator on bond b.
+* A vertex has four legs: 0 = site i below, 1 = site j below, 2 = site i above, 3 = site j
+  above (bond ``b = (i, j)``); its code is ``l0 + 2 l1 + 4 l2 + 8 l3`` with ``l`` the
+  occupations on the legs.
+* ``wtab[type, code]``: vertex weight (matrix element of ``C_b - H_b``), 0 if forbidden.
+* ``cum[type, code, in, out]``: cumulative directed-loop exit probabilities
+  (``phasemap.qmc.tables``).
+
+Random numbers: xoshiro256** (Blackman & Vigna 2018) on a ``uint64[4]`` state array owned by
+the caller, so that a checkpoint can store and restore it exactly.
+
+Per-sweep record (``rec[s, :]``): ``n_ops, N_particles, D_i, D_j, |rho_K|^2, |rho_K|^4`` where
+``D`` is the total particle displacement (lattice coordinates) accumulated by the hopping
+operators around imaginary time, and ``rho_K`` the order parameter averaged over the
+measured time slices.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+__all__ = ["seed_state", "sweep", "block", "NREC"]
+
+NREC = 6  # columns of the per-sweep record
+
+_M64 = (1 << 64) - 1
+
+
+def seed_state(seed: int, stream: int = 0) -> np.ndarray:
+    """xoshiro256** state from an integer seed and a stream (chain) index via splitmix64."""
+    x = (int(seed) * 0x9E3779B97F4A7C15 + int(stream) * 0xD1B54A32D192ED03 + 0x1234567) & _M64
+    out = []
+    for _ in range(4):
+        x = (x + 0x9E3779B97F4A7C15) & _M64
+        z = x
+        z = ((z ^ (z >> 30)) * 0xBF58476D1CE4E5B9) & _M64
+        z = ((z ^ (z >> 27)) * 0x94D049BB133111EB) & _M64
+        out.append(z ^ (z >> 31))
+    return np.array(out, dtype=np.uint64)
+
+
+@njit(inline="always")
+def _rotl(x, k):
+    return (x << np.uint64(k)) | (x >> np.uint64(64 - k))
+
+
+@njit(inline="always")
+def _next(s):
+    result = _rotl(s[1] * np.uint64(5), 7) * np.uint64(9)
+    t = s[1] << np.uint64(17)
+    s[2] ^= s[0]
+    s[3] ^= s[1]
+    s[1] ^= s[2]
+    s[0] ^= s[3]
+    s[2] ^= t
+    s[3] = _rotl(s[3], 45)
+    return result
+
+
+@njit(inline="always")
+def _uniform(s):
+    return float(_next(s) >> np.uint64(11)) * (1.0 / 9007199254740992.0)
+
+
+@njit(inline="always")
+def _randint(s, n):
+    k = int(_uniform(s) * n)
+    return k if k < n else n - 1
+
+
+@njit(cache=True)
+def sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
+          X, vtx, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, srow, do_measure):
+    """One Monte Carlo step: diagonal update, linked vertex list, ``nloops`` directed loops.
+
+    Measurements (when ``do_measure``) are taken on the configuration after the diagonal
+    update: the per-sweep record goes to ``rec[srow]``, slice-averaged ``|rho_Q|^2`` is added
+    to ``sq_acc``. Returns ``(n_ops, vertex_visits)``.
+    """
+    M = ops.shape[0]
+    N = state.shape[0]
+    Nb = bsite.shape[0]
+    # ---------------- diagonal update ----------------
+    n = 0
+    for p in range(M):
+        if ops[p] >= 0:
+            n += 1
+    aprob = beta * Nb
+    for p in range(M):
+        op = ops[p]
+        if op == -1:
+            b = _randint(rng, Nb)
+            i = bsite[b, 0]
+            j = bsite[b, 1]
+            code = state[i] + 2 * state[j] + 4 * state[i] + 8 * state[j]
+            w = wtab[btype[b], code]
+            if w > 0.0 and _uniform(rng) * (M - n) < aprob * w:
+                ops[p] = 2 * b
+                n += 1
+        elif (op & 1) == 0:
+            b = op >> 1
+            i = bsite[b, 0]
+            j = bsite[b, 1]
+            code = state[i] + 2 * state[j] + 4 * state[i] + 8 * state[j]
+            w = wtab[btype[b], code]
+            if _uniform(rng) * aprob * w < (M - n + 1):
+                ops[p] = -1
+                n -= 1
+        else:
+            b = op >> 1
+            i = bsite[b, 0]
+            j = bsite[b, 1]
+            state[i] = 1 - state[i]
+            state[j] = 1 - state[j]
+    # ---------------- linked vertex list (+ measurements) ----------------
+    for i in range(N):
+        first[i] = -1
+        last[i] = -1
+    Nq = cosq.shape[1]
+    npart = 0
+    for i in range(N):
+        npart += state[i]
+    di = 0
+    dj = 0
+    m2 = 0.0
+    m4 = 0.0
+    nsl = nslice if n > 0 else 1
+    if nsl > n and n > 0:
+        nsl = n
+    next_slice = 0
+    islice = 0
+    k = 0
+    for p in range(M):
+        op = ops[p]
+        if do_measure and islice < nsl and k == next_slice:
+            _measure_slice(state, cosq, sinq, kidx, sq_acc, nsl, N)
+            if kidx >= 0:
+                re = 0.0
+                im = 0.0
+                for s in range(N):
+                    if state[s] == 1:
+                        re += cosq[s, kidx]
+                        im += sinq[s, kidx]
+                a = (re * re + im * im) / (N * N)
+                m2 += a / nsl
+                m4 += a * a / nsl
+            islice += 1
+            next_slice = (islice * n) // nsl
+        if op == -1:
+            continue
+        b = op >> 1
+        i = bsite[b, 0]
+        j = bsite[b, 1]
+        si = state[i]
+        sj = state[j]
+        if op & 1:
+            if si == 1:
+                di += bvec[b, 0]
+                dj += bvec[b, 1]
+            else:
+                di -= bvec[b, 0]
+                dj -= bvec[b, 1]
+            state[i] = 1 - si
+            state[j] = 1 - sj
+        vtx[k] = si + 2 * sj + 4 * state[i] + 8 * state[j]
+        opidx[k] = p
+        v0 = 4 * k
+        if last[i] >= 0:
+            X[v0] = last[i]
+            X[last[i]] = v0
+        else:
+            first[i] = v0
+        last[i] = v0 + 2
+        if last[j] >= 0:
+            X[v0 + 1] = last[j]
+            X[last[j]] = v0 + 1
+        else:
+            first[j] = v0 + 1
+        last[j] = v0 + 3
+        k += 1
+    if do_measure:
+        while islice < nsl:  # n == 0 case
+            _measure_slice(state, cosq, sinq, kidx, sq_acc, nsl, N)
+            if kidx >= 0:
+                re = 0.0
+                im = 0.0
+                for s in range(N):
+                    if state[s] == 1:
+                        re += cosq[s, kidx]
+                        im += sinq[s, kidx]
+                a = (re * re + im * im) / (N * N)
+                m2 += a / nsl
+                m4 += a * a / nsl
+            islice += 1
+        rec[srow, 0] = n
+        rec[srow, 1] = npart
+        rec[srow, 2] = di
+        rec[srow, 3] = dj
+        rec[srow, 4] = m2
+        rec[srow, 5] = m4
+    for i in range(N):
+        if first[i] >= 0:
+            X[first[i]] = last[i]
+            X[last[i]] = first[i]
+    # ---------------- directed loops ----------------
+    visits = 0
+    if n > 0:
+        for _ in range(nloops):
+            j0 = _randint(rng, 4 * n)
+            jj = j0
+            while True:
+                kk = jj >> 2
+                li = jj & 3
+                c = vtx[kk]
+                ty = btype[ops[opidx[kk]] >> 1]
+                r = _uniform(rng)
+                lo = 3
+                for m in range(3):
+                    if r < cum[ty, c, li, m]:
+                        lo = m
+                        break
+                vtx[kk] = c ^ (1 << li) ^ (1 << lo)
+                visits += 1
+                jj = 4 * kk + lo
+                if jj == j0:
+                    break
+                jj = X[jj]
+                if jj == j0:
+                    break
+        # map back: operator types and the state at position 0
+        for kk in range(n):
+            p = opidx[kk]
+            b = ops[p] >> 1
+            c = vtx[kk]
+            if (c & 3) == (c >> 2):
+                ops[p] = 2 * b
+            else:
+                ops[p] = 2 * b + 1
+    for i in range(N):
+        if first[i] >= 0:
+            leg = first[i]
+            state[i] = (vtx[leg >> 2] >> (leg & 3)) & 1
+        elif _uniform(rng) < 0.5:
+            state[i] = 1 - state[i]
+    return n, visits
+
+
+@njit(inline="always")
+def _measure_slice(state, cosq, sinq, kidx, sq_acc, nsl, N):
+    Nq = cosq.shape[1]
+    norm = 1.0 / (nsl * N * N)
+    for q in range(Nq):
+        re = 0.0
+        im = 0.0
+        for s in range(N):
+            if state[s] == 1:
+                re += cosq[s, q]
+                im += sinq[s, q]
+        sq_acc[q] += (re * re + im * im) * norm
+
+
+@njit(cache=True)
+def block(nsw, ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
+          X, vtx, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0):
+    """``nsw`` measured sweeps; records go to ``rec[row0 : row0 + nsw]``. Returns vertex visits."""
+    tot = 0
+    for s in range(nsw):
+        n, v = sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
+                     X, vtx, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0 + s, True)
+        tot += v
+    return tot

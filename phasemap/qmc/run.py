@@ -1,0 +1,447 @@
+r"""Front door of quantum Monte Carlo: ``run_qmc(model, cluster=... | size=..., T=...) -> QMCResult``.
+
+One *chain* is one Markov chain: random start, ``thermalization`` sweeps (the operator-string
+cut-off grows and the number of loops per sweep is tuned), then ``sweeps`` measured sweeps cut
+into ``bins`` equal bins. Chains are independent (seeds ``(seed, chain)``), run in parallel
+processes, and their bins are pooled for the errors. A chain can checkpoint its complete
+state (configuration, random state, accumulated measurements) atomically and resume after
+being killed; with the same seed the result is identical to an uninterrupted run.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import os
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..model import ConfigError, Model
+from . import kernel
+from .geometry import Graph, torus
+from .stats import Estimate, estimate, vector_estimate
+
+__all__ = ["run_qmc", "QMCResult", "run_graph", "GROUND_STATE"]
+
+#: Ground-state search: start at beta = beta0 / max(t, V) ... doubled up to beta_max (see docs).
+GROUND_STATE = {"beta0": 4.0, "beta_max": 256.0, "nsigma": 2.0}
+
+
+# ----------------------------------------------------------------------------- one chain
+def _graph_key(g: Graph) -> dict:
+    return {"bonds": g.bonds.tolist(), "types": [{k: v for k, v in ty.items()} for ty in g.types],
+            "bond_type": g.bond_type.tolist()}
+
+
+def _job_hash(job: dict, g: Graph) -> str:
+    d = {k: v for k, v in job.items() if k not in ("graph", "checkpoint", "interval")}
+    d["graph"] = _graph_key(g)
+    return hashlib.sha256(json.dumps(d, sort_keys=True, default=str).encode()).hexdigest()[:20]
+
+
+def _save(path: str, arrays: dict) -> None:
+    """Atomic write: temporary file in the same folder, fsync, rename."""
+    tmp = f"{path}.tmp{os.getpid()}"
+    with open(tmp, "wb") as fh:
+        np.savez(fh, **arrays)
+        fh.flush()
+        os.fsync(fh.fileno())
+    os.replace(tmp, path)
+
+
+def _chain(job: dict) -> dict:
+    """Run one chain to the end (resuming from its checkpoint file if present)."""
+    g: Graph = job["graph"]
+    beta, sweeps, therm, bins, nslice = job["beta"], job["sweeps"], job["thermalization"], job["bins"], job["slices"]
+    N, Nb = g.n_sites, len(g.bonds)
+    key = _job_hash(job, g)
+    path = job.get("checkpoint")
+    interval = job.get("interval", 5.0)
+    qr = 2 * np.pi * (g.sites @ g.momenta.T) if len(g.momenta) else np.zeros((N, 0))
+    cosq, sinq = np.ascontiguousarray(np.cos(qr)), np.ascontiguousarray(np.sin(qr))
+    kidx = g.k_index
+    Nq = cosq.shape[1]
+    st = None
+    if path and os.path.exists(path):
+        with np.load(path) as z:
+            if str(z["key"]) == key:
+                st = {k: z[k].copy() for k in z.files}
+    if st is None:
+        init = np.random.default_rng([int(job["seed"]), int(job["chain"]), 7])
+        M0 = max(16, int(1.5 * N))
+        st = {
+            "key": np.array(key), "ops": np.full(M0, -1, np.int64), "state": init.integers(0, 2, N).astype(np.int64),
+            "rng": kernel.seed_state(job["seed"], job["chain"]), "nloops": np.array(1), "therm_done": np.array(0),
+            "tune_visits": np.array(0.0), "tune_loops": np.array(0.0), "meas_done": np.array(0),
+            "rec": np.zeros((sweeps, kernel.NREC)), "sq_bins": np.zeros((bins, Nq)), "sq_acc": np.zeros(Nq),
+            "visits": np.array(0), "elapsed": np.array(0.0),
+        }
+    ops, state, rng = st["ops"], st["state"], st["rng"]
+    nloops = int(st["nloops"])
+    t_start, last_save = time.perf_counter(), time.perf_counter()
+    elapsed0 = float(st["elapsed"])
+
+    def work(M):
+        return (np.zeros(4 * M, np.int64), np.zeros(M, np.int64), np.zeros(M, np.int64),
+                np.zeros(N, np.int64), np.zeros(N, np.int64))
+
+    X, vtx, opidx, first, last = work(len(ops))
+    dummy_rec = np.zeros((1, kernel.NREC))
+    dummy_sq = np.zeros(Nq)
+
+    def checkpoint(force=False):
+        nonlocal last_save
+        if path and (force or time.perf_counter() - last_save > interval):
+            st.update(ops=ops, state=state, rng=rng, nloops=np.array(nloops),
+                      elapsed=np.array(elapsed0 + time.perf_counter() - t_start))
+            _save(path, st)
+            last_save = time.perf_counter()
+
+    # -- thermalization: grow the cut-off, tune the loops per sweep
+    while int(st["therm_done"]) < therm:
+        n, v = kernel.sweep(ops, state, g.bonds, g.bond_type, g.bond_vec, g.wtab, g.cum, beta, nloops, rng,
+                            X, vtx, opidx, first, last, cosq, sinq, kidx, nslice, dummy_sq, dummy_rec, 0, False)
+        M = len(ops)
+        if n + n // 3 + 4 > M:
+            Mn = n + n // 3 + 4
+            ops = np.concatenate([ops, np.full(Mn - M, -1, np.int64)])
+            X, vtx, opidx, first, last = work(Mn)
+        st["tune_visits"] = st["tune_visits"] + v
+        st["tune_loops"] = st["tune_loops"] + nloops
+        if st["tune_visits"] > 0:
+            per_loop = float(st["tune_visits"]) / float(st["tune_loops"])
+            nloops = int(min(max(1, round(len(ops) / per_loop)), 10 * len(ops) + 10))
+        st["therm_done"] = st["therm_done"] + 1
+        if int(st["therm_done"]) == therm // 2:  # forget the early (far from equilibrium) loop lengths
+            st["tune_visits"], st["tune_loops"] = np.array(0.0), np.array(0.0)
+        checkpoint()
+    # -- measurement in equal bins
+    per_bin = sweeps // bins
+    rec, sq_bins, sq_acc = st["rec"], st["sq_bins"], st["sq_acc"]
+    chunk = 1
+    while int(st["meas_done"]) < sweeps:
+        done = int(st["meas_done"])
+        b = min(done // per_bin, bins - 1)
+        bin_end = (b + 1) * per_bin if b < bins - 1 else sweeps
+        k = min(chunk, bin_end - done)
+        t0 = time.perf_counter()
+        v = kernel.block(k, ops, state, g.bonds, g.bond_type, g.bond_vec, g.wtab, g.cum, beta, nloops, rng,
+                         X, vtx, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, done)
+        dt = time.perf_counter() - t0
+        chunk = max(1, min(chunk * 2, 1 << 20)) if dt < 0.25 else max(1, chunk // 2)
+        st["visits"] = st["visits"] + v
+        st["meas_done"] = np.array(done + k)
+        if done + k == bin_end:
+            sq_bins[b] = sq_acc / (bin_end - b * per_bin)
+            sq_acc[:] = 0.0
+        checkpoint()
+    st["elapsed"] = np.array(elapsed0 + time.perf_counter() - t_start)
+    checkpoint(force=True)
+    return {"rec": rec.copy(), "sq_bins": sq_bins.copy(), "M": len(ops), "nloops": nloops,
+            "visits": int(st["visits"]), "elapsed": float(st["elapsed"]), "max_ops": int(rec[:, 0].max()) if sweeps else 0}
+
+
+def _chain_entry(job):
+    return _chain(job)
+
+
+def _run_chains(jobs: list[dict], workers: int) -> list[dict]:
+    if workers <= 1 or len(jobs) == 1:
+        return [_chain(j) for j in jobs]
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor
+
+    ctx = mp.get_context("spawn" if os.name == "nt" else "fork")
+    with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as ex:
+        return list(ex.map(_chain_entry, jobs))
+
+
+# ----------------------------------------------------------------------------- result
+@dataclass
+class QMCResult:
+    """Measured thermal averages of one QMC run (all chains pooled).
+
+    Attributes
+    ----------
+    model : Model
+    cluster : str
+        Torus label ("tri12", "12x12", or the superlattice vectors).
+    n_sites : int
+    T, beta : float
+        Temperature of the run (``T = 1/beta``, model energy unit).
+    ground_state : bool
+        True if beta was chosen by doubling (``T`` not given); ``betas`` lists every beta run.
+    estimates : dict[str, Estimate]
+        ``energy`` (<H>/N incl. -mu N), ``filling`` (<N_p>/N), ``compressibility``
+        (beta (<N_p^2> - <N_p>^2)/N = d filling / d mu), ``S(K)/N`` (<|rho_K|^2>),
+        ``binder`` (<|rho_K|^4>/<|rho_K|^2>^2), ``stiffness`` (mean over families),
+        ``stiffness_<family>`` (twist along the unit vector of that bond family),
+        ``stiffness_xx``, ``stiffness_yy``, ``stiffness_xy`` (Cartesian tensor), ``n_ops``.
+    momenta : (Nq, 2) array; sq, sq_err : (Nq,) arrays
+        S(Q)/N = <|rho_Q|^2> at every momentum of the torus and its one-sigma errors.
+    decorrelated : bool
+        False if any reported estimate is flagged (``flags`` says which).
+    flags : list of str
+    sweeps, thermalization, bins, chains, seed : run parameters.
+    info : dict
+        cut-off M and loops per sweep of every chain, vertex visits, wall time, table bounce
+        probabilities, the shift C per bond type, ground-state search record.
+    """
+
+    model: Model
+    cluster: str
+    n_sites: int
+    T: float
+    beta: float
+    ground_state: bool
+    estimates: dict
+    momenta: np.ndarray
+    sq: np.ndarray
+    sq_err: np.ndarray
+    decorrelated: bool
+    flags: list
+    sweeps: int
+    thermalization: int
+    bins: int
+    chains: int
+    seed: int
+    betas: list = field(default_factory=list)
+    info: dict = field(default_factory=dict)
+
+    def __getitem__(self, name) -> Estimate:
+        return self.estimates[name]
+
+    @property
+    def energy(self) -> Estimate:
+        return self.estimates["energy"]
+
+    @property
+    def filling(self) -> Estimate:
+        return self.estimates["filling"]
+
+    def summary(self) -> str:
+        lines = [f"model   : {self.model.describe()}",
+                 f"torus   : {self.cluster} (N = {self.n_sites}), T = {self.T:.6g}, beta = {self.beta:.6g}"
+                 + (" (ground state by beta doubling)" if self.ground_state else ""),
+                 f"run     : {self.chains} chain(s) x {self.sweeps} sweeps ({self.bins} bins), "
+                 f"{self.thermalization} thermalization sweeps, seed {self.seed}"]
+        for k, e in self.estimates.items():
+            lines.append(f"{k:<16s}: {e.value:.8g} ± {e.error:.2g}  (tau_int {e.tau:.3g})"
+                         + ("" if e.decorrelated else "  NOT DECORRELATED"))
+        if self.flags:
+            lines.append("flags   : " + ", ".join(self.flags))
+        return "\n".join(lines)
+
+    def to_dict(self) -> dict:
+        return {"model": self.model.to_dict(), "cluster": self.cluster, "n_sites": self.n_sites, "T": self.T,
+                "beta": self.beta, "ground_state": self.ground_state, "betas": list(self.betas),
+                "estimates": {k: e.to_dict() for k, e in self.estimates.items()},
+                "momenta": self.momenta.tolist(), "sq": self.sq.tolist(), "sq_err": self.sq_err.tolist(),
+                "decorrelated": self.decorrelated, "flags": list(self.flags), "sweeps": self.sweeps,
+                "thermalization": self.thermalization, "bins": self.bins, "chains": self.chains, "seed": self.seed,
+                "info": json.loads(json.dumps(self.info, default=lambda o: np.asarray(o).tolist()))}
+
+    def to_solution(self, thresholds=None):
+        from .classify import to_solution
+
+        return to_solution(self, thresholds)
+
+
+# ----------------------------------------------------------------------------- analysis
+#: estimates that decide the decorrelation flag of the run
+_KEY_ESTIMATES = ("energy", "filling", "S(K)/N", "stiffness")
+
+
+def analyze(g: Graph, outs: list[dict], beta: float, bins: int) -> tuple[dict, np.ndarray, np.ndarray]:
+    N = g.n_sites
+    basis = np.array([g.lattice.a1, g.lattice.a2])
+    series = []
+    for o in outs:
+        r = o["rec"]
+        W = r[:, 2:4] @ basis  # Cartesian winding displacement
+        Np = r[:, 1]
+        series.append(np.column_stack([r[:, 0], Np, Np * Np, W[:, 0] ** 2, W[:, 1] ** 2, W[:, 0] * W[:, 1],
+                                       r[:, 4], r[:, 5]]))
+    est = {}
+    est["energy"] = estimate(series, bins, lambda m: (-m[0] / beta + g.shift) / N)
+    est["filling"] = estimate(series, bins, lambda m: m[1] / N)
+    est["compressibility"] = estimate(series, bins, lambda m: beta * (m[2] - m[1] ** 2) / N)
+    if g.k_index >= 0:
+        est["S(K)/N"] = estimate(series, bins, lambda m: m[6])
+        est["binder"] = estimate(series, bins, lambda m: m[7] / np.where(m[6] > 0, m[6] ** 2, np.nan))
+    if g.cell is not None:
+        D = g.lattice.cartesian(np.array(g.lattice.nn))
+        fams = []
+        for f, name in enumerate(g.lattice.families):
+            e = D[f] / np.linalg.norm(D[f])
+            fams.append((name, e))
+        c = 1.0 / (beta * N)
+        est["stiffness"] = estimate(series, bins, lambda m: c * np.mean(
+            [e[0] ** 2 * m[3] + e[1] ** 2 * m[4] + 2 * e[0] * e[1] * m[5] for _, e in fams], axis=0))
+        for name, e in fams:
+            est[f"stiffness_{name}"] = estimate(
+                series, bins, lambda m, e=e: c * (e[0] ** 2 * m[3] + e[1] ** 2 * m[4] + 2 * e[0] * e[1] * m[5]))
+        est["stiffness_xx"] = estimate(series, bins, lambda m: c * m[3])
+        est["stiffness_yy"] = estimate(series, bins, lambda m: c * m[4])
+        est["stiffness_xy"] = estimate(series, bins, lambda m: c * m[5])
+    est["n_ops"] = estimate(series, bins, lambda m: m[0])
+    if len(g.momenta):
+        sq, sq_err = vector_estimate([o["sq_bins"] for o in outs])
+    else:
+        sq, sq_err = np.zeros(0), np.zeros(0)
+    return est, sq, sq_err
+
+
+# ----------------------------------------------------------------------------- front door
+def _check_int(name, v, lo):
+    if isinstance(v, bool) or not isinstance(v, (int, np.integer)) or v < lo:
+        raise ConfigError(f"{name}: expected an integer >= {lo}, got {v!r}")
+    return int(v)
+
+
+def run_graph(g: Graph, beta: float, sweeps: int = 10000, thermalization: int | None = None, bins: int = 32,
+              seed: int = 0, chains: int = 1, checkpoint: str | None = None, workers: int | None = None,
+              slices: int = 4, checkpoint_interval: float = 5.0):
+    """Run ``chains`` chains on a prepared :class:`~phasemap.qmc.geometry.Graph` at inverse
+    temperature ``beta``. Returns ``(estimates, sq, sq_err, outs)``."""
+    sweeps = _check_int("sweeps", sweeps, 1)
+    bins = _check_int("bins", bins, 2)
+    chains = _check_int("chains", chains, 1)
+    slices = _check_int("slices", slices, 1)
+    if sweeps < bins:
+        raise ConfigError(f"sweeps: need at least one sweep per bin (sweeps >= bins = {bins}), got {sweeps}")
+    thermalization = max(sweeps // 5, 100) if thermalization is None else _check_int("thermalization", thermalization, 0)
+    if checkpoint is not None:
+        os.makedirs(checkpoint, exist_ok=True)
+    jobs = []
+    for c in range(chains):
+        jobs.append({"graph": g, "beta": float(beta), "sweeps": sweeps, "thermalization": thermalization,
+                     "bins": bins, "seed": int(seed), "chain": c, "slices": slices, "interval": checkpoint_interval,
+                     "checkpoint": None if checkpoint is None else os.path.join(
+                         checkpoint, f"{g.name}_beta{beta:.6g}_seed{seed}_chain{c}.npz")})
+    workers = min(chains, os.cpu_count() or 1) if workers is None else max(1, int(workers))
+    outs = _run_chains(jobs, workers)
+    est, sq, sq_err = analyze(g, outs, beta, bins)
+    return est, sq, sq_err, outs
+
+
+def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweeps: int = 10000,
+            thermalization: int | None = None, bins: int = 32, seed: int = 0, chains: int = 1,
+            checkpoint: str | None = None, *, workers: int | None = None, slices: int = 4,
+            epsilon: float | None = None, checkpoint_interval: float = 5.0,
+            beta0: float | None = None, beta_max: float | None = None) -> QMCResult:
+    r"""Stochastic series expansion QMC of hard-core bosons on a periodic torus.
+
+    Parameters
+    ----------
+    model : Model
+        Hard-core (``U = inf``) model with ``t >= 0`` on every family.
+    cluster : str or 2x2 int array, optional
+        Named torus of :data:`phasemap.ed.clusters.CLUSTERS` (``"tri12"``, ``"tri36"``,
+        ``"sq16"``, ...) or two superlattice vectors. Exactly one of ``cluster``/``size``.
+    size : (int, int), optional
+        ``L1 x L2`` rhombus (superlattice vectors ``(L1, 0)``, ``(0, L2)``); the √3×√3 order
+        (K point) needs L1 and L2 multiples of 3 on the triangular lattice.
+    T : float, optional
+        Temperature (model unit). Without it the ground state is approached by doubling beta
+        from ``beta0`` (default 4 / max(t, |V|, |V2|)) until energy, filling, S(K)/N and
+        stiffness of two successive betas agree within 2 combined sigma (or ``beta_max``,
+        default 256 / max coupling, is reached: flagged).
+    sweeps, thermalization, bins : int
+        Measured sweeps per chain (split into ``bins`` equal bins), warm-up sweeps per chain
+        (default ``max(sweeps // 5, 100)``).
+    seed : int
+        Same seed, same machine -> identical numbers (also after checkpoint/restart).
+    chains : int
+        Independent chains (seeds ``(seed, chain)``), run in parallel over ``workers``
+        processes (default: min(chains, cores)); errors from the pooled bins.
+    checkpoint : str, optional
+        Folder for per-chain checkpoint files, written atomically every
+        ``checkpoint_interval`` seconds of work; an existing file with the same run
+        parameters is resumed.
+    slices : int
+        Time slices per sweep at which S(Q) and the K-point moments are measured.
+    epsilon : float, optional
+        Constant added to every bond shift (default 0.25 t per bond type, see docs/qmc.md).
+
+    Returns
+    -------
+    QMCResult
+
+    Raises
+    ------
+    ConfigError
+        Soft-core model (U finite), t < 0, doubled bonds on a small torus, bad run parameters.
+    """
+    if not isinstance(model, Model):
+        raise ConfigError(f"model: expected a phasemap.Model, got {type(model).__name__}")
+    g = torus(model, cluster, size, epsilon)
+    kw = dict(sweeps=sweeps, thermalization=thermalization, bins=bins, seed=seed, chains=chains,
+              checkpoint=checkpoint, workers=workers, slices=slices, checkpoint_interval=checkpoint_interval)
+    flags = []
+    if g.k_index < 0 and model.lattice == "triangular":
+        flags.append("no-K-point (torus not sqrt3 x sqrt3 compatible: no S(K)/N, no Binder ratio)")
+    scale = max(max(model.t), max(abs(v) for v in model.V), abs(model.V2), 1e-12)
+    info = {"shift_per_type": {ty["name"]: ty["C"] for ty in g.types},
+            "bounce_max": [ti["bounce"] for ti in g.table_info],
+            "heat_bath_sets": [ti["heat_bath"] for ti in g.table_info], "n_bonds": int(len(g.bonds))}
+    if T is not None:
+        try:
+            T = float(T)
+        except (TypeError, ValueError):
+            raise ConfigError(f"T: expected a positive number, got {T!r}") from None
+        if not (T > 0 and math.isfinite(T)):
+            raise ConfigError(f"T: temperature must be > 0 and finite, got {T}")
+        beta = 1.0 / T
+        t0 = time.perf_counter()
+        est, sq, sq_err, outs = run_graph(g, beta, **kw)
+        betas, gs_record = [beta], []
+    else:
+        b = (GROUND_STATE["beta0"] if beta0 is None else float(beta0)) / scale
+        bmax = (GROUND_STATE["beta_max"] if beta_max is None else float(beta_max)) / scale
+        if not (b > 0) or not (bmax >= b):
+            raise ConfigError(f"beta0/beta_max: need 0 < beta0 <= beta_max, got {beta0}, {beta_max}")
+        t0 = time.perf_counter()
+        prev, betas, gs_record = None, [], []
+        while True:
+            cur = run_graph(g, b, **kw)
+            betas.append(b)
+            if prev is not None:
+                same = _agree(prev[0], cur[0])
+                gs_record.append({"beta": b, "agree_with_beta/2": same})
+                if same:
+                    break
+            if 2 * b > bmax * (1 + 1e-12):
+                if prev is not None:
+                    flags.append(f"ground-state-not-reached (beta_max = {bmax:.4g}: observables still change)")
+                break
+            prev = cur
+            b *= 2
+        est, sq, sq_err, outs = cur
+        beta = b
+    info.update({"cutoff_M": [o["M"] for o in outs], "loops_per_sweep": [o["nloops"] for o in outs],
+                 "vertex_visits": int(sum(o["visits"] for o in outs)),
+                 "chain_seconds": [o["elapsed"] for o in outs], "wall_seconds": time.perf_counter() - t0,
+                 "ground_state_search": gs_record})
+    bad = [k for k in _KEY_ESTIMATES if k in est and not est[k].decorrelated]
+    if bad:
+        flags.append("not decorrelated: " + ", ".join(bad) + " (error still grows with bin length; run longer)")
+    return QMCResult(model=model, cluster=g.name, n_sites=g.n_sites, T=1.0 / beta, beta=beta,
+                     ground_state=T is None, estimates=est, momenta=g.momenta.copy(), sq=sq, sq_err=sq_err,
+                     decorrelated=not bad, flags=flags, sweeps=int(sweeps), thermalization=int(kw["thermalization"] or
+                     max(sweeps // 5, 100)), bins=int(bins), chains=int(chains), seed=int(seed), betas=betas, info=info)
+
+
+def _agree(a: dict, b: dict, nsigma: float | None = None) -> bool:
+    """Ground-state criterion: every key observable of beta and 2 beta agrees within nsigma."""
+    nsigma = GROUND_STATE["nsigma"] if nsigma is None else nsigma
+    for k in _KEY_ESTIMATES:
+        if k in a and k in b:
+            d = abs(a[k].value - b[k].value)
+            s = math.hypot(a[k].error, b[k].error)
+            if not (d <= nsigma * s or d <= 1e-12):
+                return False
+    return True
