@@ -6,7 +6,7 @@ ED: only the site coordinates and the bond pairs of the torus are taken from
 Stiffness: rho_f = (1/N) d^2 F / d phi^2 with F = -T ln Tr exp(-H(phi)/T), the hopping along a
 bond with Cartesian displacement D carrying the phase exp(i phi e_f . D) (uniform vector
 potential along the unit vector e_f of family f; twisted boundary conditions in a
-translation-invariant gauge), by a Richardson-extrapolated central difference.
+translation-invariant gauge), by a central difference.
 """
 
 from __future__ import annotations
@@ -14,6 +14,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.special import logsumexp
 
+from phasemap.cmf.threads import blas_threads
 from phasemap.lattice import Supercell
 
 
@@ -68,7 +69,8 @@ def thermal(N, bonds, mu, T, A=None, sites=None, q=None):
                     k2 = pos[s2]
                     H[k2, k] += -t * ph
                     H[k, k2] += -t * np.conj(ph)
-        e, v = np.linalg.eigh(H)
+        with blas_threads(1):  # multithreaded BLAS is many times slower on a loaded machine
+            e, v = np.linalg.eigh(H if A is not None else H.real)
         logw.append(-beta * e)
         Es.append(e)
         Ns.append(np.full(dim, Np))
@@ -86,13 +88,13 @@ def thermal(N, bonds, mu, T, A=None, sites=None, q=None):
     return out
 
 
-def stiffness(N, bonds, mu, T, direction, h=0.02):
-    """rho along the unit Cartesian vector ``direction`` (see module notes)."""
+def stiffness(N, bonds, mu, T, direction, h=0.01, F0=None):
+    """rho along the unit Cartesian vector ``direction`` (see module notes); central difference
+    with step h (relative error ~ h^2 / 12 ~ 1e-5, far below the QMC errors compared with)."""
     e = np.asarray(direction, float) / np.linalg.norm(direction)
     F = lambda phi: -T * thermal(N, bonds, mu, T, A=phi * e)["lnZ"]  # noqa: E731
-    F0 = F(0.0)
-    c = [(F(x) + F(-x) - 2 * F0) / (N * x * x) for x in (h, 2 * h)]
-    return (4 * c[0] - c[1]) / 3
+    F0 = F(0.0) if F0 is None else F0
+    return (F(h) + F(-h) - 2 * F0) / (N * h * h)
 
 
 def free_fermion_chain(L, t, mu, T):

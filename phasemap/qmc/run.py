@@ -141,7 +141,7 @@ def _chain(job: dict) -> dict:
     st["elapsed"] = np.array(elapsed0 + time.perf_counter() - t_start)
     checkpoint(force=True)
     return {"rec": rec.copy(), "sq_bins": sq_bins.copy(), "M": len(ops), "nloops": nloops,
-            "visits": int(st["visits"]), "elapsed": float(st["elapsed"]), "max_ops": int(rec[:, 0].max()) if sweeps else 0}
+            "visits": int(st["visits"]), "elapsed": float(st["elapsed"]), "thermalization": therm}
 
 
 def _chain_entry(job):
@@ -169,6 +169,8 @@ class QMCResult:
     model : Model
     cluster : str
         Torus label ("tri12", "12x12", or the superlattice vectors).
+    vectors : list
+        Superlattice vectors of the torus in (i, j) coordinates (``Supercell(lattice, vectors)``).
     n_sites : int
     T, beta : float
         Temperature of the run (``T = 1/beta``, model energy unit).
@@ -209,6 +211,7 @@ class QMCResult:
     chains: int
     seed: int
     betas: list = field(default_factory=list)
+    vectors: list | None = None
     info: dict = field(default_factory=dict)
 
     def __getitem__(self, name) -> Estimate:
@@ -236,7 +239,7 @@ class QMCResult:
         return "\n".join(lines)
 
     def to_dict(self) -> dict:
-        return {"model": self.model.to_dict(), "cluster": self.cluster, "n_sites": self.n_sites, "T": self.T,
+        return {"model": self.model.to_dict(), "cluster": self.cluster, "vectors": self.vectors, "n_sites": self.n_sites, "T": self.T,
                 "beta": self.beta, "ground_state": self.ground_state, "betas": list(self.betas),
                 "estimates": {k: e.to_dict() for k, e in self.estimates.items()},
                 "momenta": self.momenta.tolist(), "sq": self.sq.tolist(), "sq_err": self.sq_err.tolist(),
@@ -431,8 +434,9 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
         flags.append("not decorrelated: " + ", ".join(bad) + " (error still grows with bin length; run longer)")
     return QMCResult(model=model, cluster=g.name, n_sites=g.n_sites, T=1.0 / beta, beta=beta,
                      ground_state=T is None, estimates=est, momenta=g.momenta.copy(), sq=sq, sq_err=sq_err,
-                     decorrelated=not bad, flags=flags, sweeps=int(sweeps), thermalization=int(kw["thermalization"] or
-                     max(sweeps // 5, 100)), bins=int(bins), chains=int(chains), seed=int(seed), betas=betas, info=info)
+                     decorrelated=not bad, flags=flags, sweeps=int(sweeps), thermalization=int(outs[0]["thermalization"]),
+                     bins=int(bins), chains=int(chains), seed=int(seed), betas=betas, vectors=g.cell.vectors.tolist(),
+                     info=info)
 
 
 def _agree(a: dict, b: dict, nsigma: float | None = None) -> bool:

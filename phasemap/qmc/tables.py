@@ -98,5 +98,10 @@ def loop_tables(wtab: np.ndarray):
                     worst = max(worst, prob[ty, c, k, k])
         info.append({"bounce": worst, "heat_bath": hb})
     cum = np.cumsum(prob, axis=-1)
-    cum[..., -1] = np.where(cum[..., -1] > 0, 1.0, 0.0)
+    # the last allowed exit closes every row exactly at 1, so rounding can never pick a
+    # forbidden (zero-probability) exit
+    for idx in np.ndindex(cum.shape[:-1]):
+        allowed = np.nonzero(prob[idx] > 0)[0]
+        if len(allowed):
+            cum[idx][allowed[-1]:] = 1.0
     return cum, info
