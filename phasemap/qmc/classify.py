@@ -18,7 +18,6 @@ A run that is not decorrelated (or a ground-state search that did not settle) is
 
 from __future__ import annotations
 
-import dataclasses
 import math
 from dataclasses import asdict, dataclass
 from fractions import Fraction
@@ -120,14 +119,9 @@ def to_solution(res, thresholds=None) -> Solution:
              "decorrelated": {k: e.decorrelated for k, e in est.items()},
              "sweeps": res.sweeps, "thermalization": res.thermalization, "bins": res.bins, "chains": res.chains,
              "seed": res.seed, "thresholds": asdict(th), "info": res.info}
-    kw = {}
-    if "errors" in {f.name for f in dataclasses.fields(Solution)}:
-        kw["errors"] = errors
-    else:
-        extra["errors"] = errors
     return Solution(
         model=model, method=f"qmc:{res.cluster}", phase=phase, label=label, filling=n,
         densities=np.full(N, n), condensate=np.full(N, math.nan), energy=est["energy"].value,
         converged=converged, iterations=res.sweeps * res.chains, residual=est["energy"].error,
         seed=f"seed={res.seed}", pattern=pattern, order=order, flags=flags, sites=cell.sites.copy(),
-        compressibility=est["compressibility"].value, extra=extra, **kw)
+        compressibility=est["compressibility"].value, extra=extra, errors=errors)
