@@ -11,7 +11,8 @@ EPILOG = """examples:
   phasemap point --lattice triangular --t 0.05 --V 1 --hardcore --mu 1.5
   phasemap point --lattice square --t 0.02 --U 1 --mu 0.5 --n-max 4 --json
   phasemap point --lattice triangular --t 0 --V 1 --hardcore --mu 1.5 --T 0.6
-  phasemap point --t 0.05,0.05,0.08 --V 1,1,0.8 --hardcore --mu 2 --method cmf --cluster tri3"""
+  phasemap point --t 0.05,0.05,0.08 --V 1,1,0.8 --hardcore --mu 2 --method cmf --cluster tri3
+  phasemap point --t 0.1 --V 1 --hardcore --mu 1.5 --method qmc:tri12 --T 0.1 --sweeps 20000 --seed 1 --json"""
 
 
 def register(sub) -> None:
@@ -29,8 +30,15 @@ def register(sub) -> None:
                    help="particle number (canonical methods such as ed; default: the N minimising E0(N) - mu N)")
     p.add_argument("--T", type=float, default=None, metavar="T",
                    help="temperature in the model's energy unit (methods with a finite-temperature mode: "
-                        "mf, cmf); default 0 = ground state")
+                        "mf, cmf, qmc); default 0 = ground state (qmc: beta doubled until observables settle)")
     p.add_argument("--json", action="store_true", help="print the Solution as JSON")
+    g = p.add_argument_group("Monte Carlo methods (qmc)")
+    g.add_argument("--sweeps", type=int, default=None, help="measured sweeps per chain")
+    g.add_argument("--thermalization", type=int, default=None, help="warm-up sweeps per chain")
+    g.add_argument("--bins", type=int, default=None, help="equal bins per chain for the error analysis")
+    g.add_argument("--seed", type=int, default=None, help="random seed (same seed, same numbers)")
+    g.add_argument("--chains", type=int, default=None, help="independent chains, run in parallel processes")
+    g.add_argument("--checkpoint", default=None, metavar="DIR", help="folder for resumable chain checkpoints")
     p.set_defaults(func=run)
 
 
@@ -53,6 +61,16 @@ def run(args) -> int:
         if not impl.capabilities.canonical:
             raise ConfigError(f"--particles: only used with a canonical method such as ed ({impl.name} is grand canonical)")
         opts["particles"] = args.particles
+    caps = impl.capabilities
+    for flag, allowed in (("sweeps", caps.error_bars), ("thermalization", caps.error_bars),
+                          ("bins", caps.error_bars), ("seed", caps.error_bars), ("chains", caps.error_bars),
+                          ("checkpoint", caps.error_bars)):
+        value = getattr(args, flag)
+        if value is None:
+            continue
+        if not allowed:
+            raise ConfigError(f"--{flag}: only used with a Monte Carlo method such as qmc ({impl.name} is deterministic)")
+        opts[flag] = value
     try:
         sol = solve(model, method=impl.name, **opts)
     except ImportError as e:

@@ -32,6 +32,7 @@ BUILTIN = (
     "mf",
     "cmf",
     "ed",
+    "qmc",
 )
 
 _REGISTRY: dict[str, "Method"] = {}

@@ -1,0 +1,106 @@
+"""``qmc:<cluster>`` / ``qmc:<L1>x<L2>``: stochastic series expansion quantum Monte Carlo.
+
+Statistically exact thermal averages of hard-core bosons (t >= 0) on one periodic torus at
+temperature ``T`` (or a ground state approached by doubling beta), with one-sigma errors in
+``Solution.errors``. See docs/qmc.md and :func:`phasemap.qmc.run_qmc`.
+References: A. W. Sandvik, PRB 59, R14157 (1999); O. F. Syljuåsen and A. W. Sandvik, PRE 66,
+046701 (2002); F. Alet, S. Wessel and M. Troyer, PRE 71, 036706 (2005).
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, fields
+
+from ..model import ConfigError
+from . import Capabilities, Method
+
+_SIZE = re.compile(r"^\s*(\d+)\s*[x×]\s*(\d+)\s*$")
+
+
+@dataclass
+class QMCOptions:
+    """Options of :func:`phasemap.qmc.run_qmc` (same names and defaults) plus ``thresholds``
+    (:class:`phasemap.qmc.classify.QMCThresholds` or dict) for the phase indicator."""
+
+    cluster: object = None
+    size: object = None
+    T: float | None = None
+    sweeps: int = 10000
+    thermalization: int | None = None
+    bins: int = 32
+    seed: int = 0
+    chains: int = 1
+    checkpoint: str | None = None
+    workers: int | None = None
+    slices: int = 4
+    epsilon: float | None = None
+    checkpoint_interval: float = 5.0
+    beta0: float | None = None
+    beta_max: float | None = None
+    thresholds: object = None
+
+
+class QuantumMonteCarlo(Method):
+    name = "qmc"
+    title = "quantum Monte Carlo (stochastic series expansion)"
+    Options = QMCOptions
+    capabilities = Capabilities(canonical=False, grand_canonical=False, temperature=True, error_bars=True,
+                                cluster=True)
+    default_arg = None  # solve_point falls back to tri12 (square: sq16) when neither cluster nor size is given
+    caution = ("quantum Monte Carlo is statistically exact for one finite torus at one temperature; a phase needs "
+               "S(K)/N and the stiffness extrapolated over several sizes, and low temperatures for ground-state claims")
+
+    def parse_arg(self, arg):
+        arg = (arg or "").strip()
+        if not arg:
+            return {}
+        m = _SIZE.match(arg)
+        if m:
+            return {"size": (int(m.group(1)), int(m.group(2)))}
+        return {"cluster": arg}
+
+    def option_names(self):
+        return [f.name for f in fields(QMCOptions)]
+
+    def options(self, options=None):
+        from ..model import check_keys
+
+        d = dict(options or {})
+        check_keys("qmc options", d, self.option_names())
+        return d
+
+    def config_default_arg(self, model):
+        return "tri12" if model.lattice == "triangular" else "sq16"
+
+    def check_cluster(self, cluster, model):
+        from ..ed.clusters import get_cluster
+
+        if not (isinstance(cluster, str) and _SIZE.match(cluster)):
+            get_cluster(cluster, model.lattice)
+
+    def short_name(self, options):
+        d = dict(options)
+        if d.get("size") is not None:
+            L1, L2 = d["size"]
+            return f"qmc:{L1}x{L2}"
+        c = d.get("cluster")
+        return f"qmc:{c}" if isinstance(c, str) else "qmc"
+
+    def solve_point(self, model, **options):
+        from ..qmc import run_qmc
+
+        d = self.options(options)
+        th = d.pop("thresholds", None)
+        if isinstance(d.get("cluster"), str) and _SIZE.match(d["cluster"]):
+            d["size"] = self.parse_arg(d.pop("cluster"))["size"]
+        if d.get("cluster") is None and d.get("size") is None:
+            d["cluster"] = self.config_default_arg(model)
+        try:
+            res = run_qmc(model, **d)
+        except TypeError as e:
+            raise ConfigError(f"qmc options: {e}") from None
+        return res.to_solution(th)
+
+
+METHOD = QuantumMonteCarlo()
