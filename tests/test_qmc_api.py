@@ -120,3 +120,16 @@ def test_checkpoint_sigkill_restart_identical(tmp_path):
     m = Model("triangular", t=0.2, V=1.0, mu=2.0)
     ref = run_qmc(m, cluster="tri9", T=0.3, sweeps=sweeps, bins=20, seed=9)
     assert restarted == ref.to_dict()["estimates"]
+
+
+# exact (full diagonalization in the test, T -> 0): the beta-doubling ground-state search
+def test_ground_state_by_beta_doubling():
+    from _qmc_exact import thermal, torus_bonds
+
+    m = Model("triangular", t=0.1, V=1.0, mu=1.5)
+    res = run_qmc(m, cluster="tri9", sweeps=4000, bins=20, seed=2)
+    assert res.ground_state and res.beta == res.betas[-1] and len(res.betas) >= 2
+    assert all(b2 == 2 * b1 for b1, b2 in zip(res.betas, res.betas[1:]))
+    _, bonds = torus_bonds("triangular", ((3, 0), (0, 3)), m.t, m.V)
+    e0 = thermal(9, bonds, m.mu, 1e-3)["energy"]
+    assert abs(res.energy.value - e0) < 4 * res.energy.error + 1e-9, (res.energy, e0)

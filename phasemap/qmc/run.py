@@ -77,7 +77,7 @@ def _chain(job: dict) -> dict:
             "rng": kernel.seed_state(job["seed"], job["chain"]), "nloops": np.array(1), "therm_done": np.array(0),
             "tune_visits": np.array(0.0), "tune_loops": np.array(0.0), "meas_done": np.array(0),
             "rec": np.zeros((sweeps, kernel.NREC)), "sq_bins": np.zeros((bins, Nq)), "sq_acc": np.zeros(Nq),
-            "visits": np.array(0), "elapsed": np.array(0.0),
+            "visits": np.array(0), "elapsed": np.array(0.0), "meas_seconds": np.array(0.0),
         }
     ops, state, rng = st["ops"], st["state"], st["rng"]
     nloops = int(st["nloops"])
@@ -133,6 +133,7 @@ def _chain(job: dict) -> dict:
         dt = time.perf_counter() - t0
         chunk = max(1, min(chunk * 2, 1 << 20)) if dt < 0.25 else max(1, chunk // 2)
         st["visits"] = st["visits"] + v
+        st["meas_seconds"] = st["meas_seconds"] + dt
         st["meas_done"] = np.array(done + k)
         if done + k == bin_end:
             sq_bins[b] = sq_acc / (bin_end - b * per_bin)
@@ -141,7 +142,8 @@ def _chain(job: dict) -> dict:
     st["elapsed"] = np.array(elapsed0 + time.perf_counter() - t_start)
     checkpoint(force=True)
     return {"rec": rec.copy(), "sq_bins": sq_bins.copy(), "M": len(ops), "nloops": nloops,
-            "visits": int(st["visits"]), "elapsed": float(st["elapsed"]), "thermalization": therm}
+            "visits": int(st["visits"]), "elapsed": float(st["elapsed"]), "thermalization": therm,
+            "meas_seconds": float(st["meas_seconds"]), "mean_ops": float(rec[:, 0].mean()) if sweeps else 0.0}
 
 
 def _chain_entry(job):
@@ -428,6 +430,7 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
     info.update({"cutoff_M": [o["M"] for o in outs], "loops_per_sweep": [o["nloops"] for o in outs],
                  "vertex_visits": int(sum(o["visits"] for o in outs)),
                  "chain_seconds": [o["elapsed"] for o in outs], "wall_seconds": time.perf_counter() - t0,
+                 "measure_seconds": [o["meas_seconds"] for o in outs],
                  "ground_state_search": gs_record})
     bad = [k for k in _KEY_ESTIMATES if k in est and not est[k].decorrelated]
     if bad:
