@@ -143,7 +143,8 @@ def _chain(job: dict) -> dict:
     checkpoint(force=True)
     return {"rec": rec.copy(), "sq_bins": sq_bins.copy(), "M": len(ops), "nloops": nloops,
             "visits": int(st["visits"]), "elapsed": float(st["elapsed"]), "thermalization": therm,
-            "meas_seconds": float(st["meas_seconds"]), "mean_ops": float(rec[:, 0].mean()) if sweeps else 0.0}
+            "meas_seconds": float(st["meas_seconds"]), "mean_ops": float(rec[:, 0].mean()) if sweeps else 0.0,
+            "max_ops": int(rec[:, 0].max()) if sweeps else 0}
 
 
 def _chain_entry(job):
@@ -187,7 +188,8 @@ class QMCResult:
     momenta : (Nq, 2) array; sq, sq_err : (Nq,) arrays
         S(Q)/N = <|rho_Q|^2> at every momentum of the torus and its one-sigma errors.
     decorrelated : bool
-        False if any reported estimate is flagged (``flags`` says which).
+        False if energy, filling, S(K)/N or stiffness is flagged, or the operator-string cut-off
+        was reached during measurement (``flags`` says which).
     flags : list of str
     sweeps, thermalization, bins, chains, seed : run parameters.
     info : dict
@@ -432,12 +434,15 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
                  "chain_seconds": [o["elapsed"] for o in outs], "wall_seconds": time.perf_counter() - t0,
                  "measure_seconds": [o["meas_seconds"] for o in outs],
                  "ground_state_search": gs_record})
+    if any(o["max_ops"] >= o["M"] for o in outs):
+        flags.append("operator-string cut-off reached during measurement (thermalization too short; run longer)")
     bad = [k for k in _KEY_ESTIMATES if k in est and not est[k].decorrelated]
     if bad:
         flags.append("not decorrelated: " + ", ".join(bad) + " (error still grows with bin length; run longer)")
+    cut = any(o["max_ops"] >= o["M"] for o in outs)
     return QMCResult(model=model, cluster=g.name, n_sites=g.n_sites, T=1.0 / beta, beta=beta,
                      ground_state=T is None, estimates=est, momenta=g.momenta.copy(), sq=sq, sq_err=sq_err,
-                     decorrelated=not bad, flags=flags, sweeps=int(sweeps), thermalization=int(outs[0]["thermalization"]),
+                     decorrelated=not bad and not cut, flags=flags, sweeps=int(sweeps), thermalization=int(outs[0]["thermalization"]),
                      bins=int(bins), chains=int(chains), seed=int(seed), betas=betas, vectors=g.cell.vectors.tolist(),
                      info=info)
 
