@@ -67,8 +67,8 @@ def test_cli_point_qmc_json():
     d = json.loads(out.stdout)
     assert d["method"] == "qmc:tri9" and d["errors"]["energy"] > 0
     bad = subprocess.run([sys.executable, "-m", "phasemap", "point", "--t", "0.1", "--V", "1", "--hardcore",
-                          "--method", "mf", "--T", "0.2"], capture_output=True, text=True, env=env, timeout=600)
-    assert bad.returncode == 2 and "--T" in bad.stderr
+                          "--method", "mf", "--sweeps", "100"], capture_output=True, text=True, env=env, timeout=600)
+    assert bad.returncode == 2 and "--sweeps" in bad.stderr
 
 
 _SCRIPT = textwrap.dedent("""
