@@ -7,8 +7,17 @@ import pytest
 
 from phasemap.lattice import Supercell, patterns_for, search_cell
 
-# Triangular lattice r = i e1 + j e2; the 6 nearest neighbours (DESIGN.md §1; exact geometry)
-NN6 = [(1, 0), (-1, 0), (0, 1), (0, -1), (-1, 1), (1, -1)]
+E1, E2 = np.array([1.0, 0.0]), np.array([0.5, np.sqrt(3) / 2])  # primitive vectors, r = i e1 + j e2
+
+
+def shell(length):
+    """Integer (i, j) with |i e1 + j e2| = length (exact geometry, enumerated here)."""
+    return sorted((i, j) for i in range(-3, 4) for j in range(-3, 4)
+                  if abs(np.linalg.norm(i * E1 + j * E2) - length) < 1e-9)
+
+
+NN6 = shell(1.0)  # the 6 nearest neighbours
+NNN6 = shell(np.sqrt(3.0))  # the 6 next-nearest neighbours (distance sqrt 3)
 
 
 def _reduce_key(ij, A):
@@ -37,7 +46,9 @@ def test_12_site_cell_sites_and_neighbours():
 
 
 def test_sqrt3_labels_differ_across_every_bond():
-    # exact (DESIGN.md §1): s = (i - j) mod 3 differs on every NN bond; NNN (distance sqrt3) share s
+    # exact: s = (i - j) mod 3 changes by +-1 along (1,0), (0,1), (-1,1) (the nearest neighbours)
+    # and by 0 mod 3 along (1,1), (2,-1), (-1,2) (the next-nearest, distance sqrt 3)
+    assert sorted({(i - j) % 3 for i, j in NN6}) == [1, 2] and {(i - j) % 3 for i, j in NNN6} == {0}
     cell = Supercell("triangular", ((2, 2), (-2, 4)))
     s = (cell.sites[:, 0] - cell.sites[:, 1]) % 3
     assert np.bincount(s).tolist() == [4, 4, 4]
@@ -45,20 +56,37 @@ def test_sqrt3_labels_differ_across_every_bond():
         for d in NN6:
             m = cell.index(np.add(site, d))
             assert s[m] != s[n]
-        for d in [(1, 1), (2, -1), (-1, 2)]:
+        for d in NNN6:
             assert s[cell.index(np.add(site, d))] == s[n]
     pat = patterns_for("triangular")["sqrt3"]
     assert np.array_equal(pat.sublattice(cell), s)
 
 
+def _labelling_is_periodic(cell):
+    """The code's sqrt3 labels on ``cell``, checked across the cell's own (wrapped) bond tables."""
+    s = patterns_for("triangular")["sqrt3"].sublattice(cell)
+    nn_ok = all(np.all(s[cell.neighbors[f]] != s) for f in range(cell.neighbors.shape[0]))
+    nnn_ok = all(np.all(s[cell.nnn_neighbors[k]] == s) for k in range(cell.nnn_neighbors.shape[0]))
+    return nn_ok and nnn_ok and np.bincount(s, minlength=3).tolist() == [cell.n_sites // 3] * 3
+
+
 @pytest.mark.parametrize("vectors,n", [(((1, 1), (-1, 2)), 3), (((1, 1), (-2, 4)), 6), (((3, 0), (0, 3)), 9),
                                         (((2, 2), (-2, 4)), 12)])
 def test_sqrt3_compatible_cells(vectors, n):
-    # exact (DESIGN.md §6): these cells keep the labelling periodic
+    # exact: s(r) = (i - j) mod 3 is linear mod 3, so it is periodic on the superlattice iff
+    # s(A_k) = 0 for both generators; these cells satisfy it, and the code's labelling must then
+    # be consistent across every bond that wraps around the cell (NN differ, NNN agree)
     cell = Supercell("triangular", vectors)
-    assert cell.n_sites == n
-    for v in vectors:
-        assert (v[0] - v[1]) % 3 == 0
+    assert cell.n_sites == n == abs(vectors[0][0] * vectors[1][1] - vectors[0][1] * vectors[1][0])
+    assert _labelling_is_periodic(cell)
+
+
+@pytest.mark.parametrize("vectors", [((2, 0), (0, 2)), ((1, 0), (0, 2)), ((2, 1), (-1, 2))])
+def test_sqrt3_incompatible_cells_break_the_labelling(vectors):
+    # exact: s(A_k) != 0 for a generator, so some wrapped bond joins equal (NN) or different (NNN)
+    # labels; the check above can fail
+    assert any((v[0] - v[1]) % 3 for v in vectors)
+    assert not _labelling_is_periodic(Supercell("triangular", vectors))
 
 
 def test_structure_factor_of_one_third_solid_peaks_at_K():
