@@ -2,6 +2,10 @@
 
 import json
 
+import numpy as np
+import pytest
+from _ed_dense import dense_hamiltonian
+
 from phasemap.cli import main
 
 
@@ -18,7 +22,14 @@ def test_exact_staircase_writes_data_and_figure(tmp_path, capsys):
     rc = main(["exact", "--t", "0.1", "--V", "1", "--cluster", "tri9", "--out", str(out), "--json"])
     assert rc == 0
     d = json.loads(capsys.readouterr().out)
-    assert d["N"] == list(range(10)) and d["gap_1_3"] > 0
+    assert d["N"] == list(range(10))
+    # independent dense diagonalisation of the same 9-site torus (tests/_ed_dense.py): E0(N) for
+    # every N and the 1/3 charge gap E0(4) + E0(2) - 2 E0(3) (mu = 0)
+    e0 = [np.linalg.eigvalsh(dense_hamiltonian("triangular", ((3, 0), (0, 3)), N, (0.1,) * 3, (1.0,) * 3))[0]
+          for N in range(10)]
+    assert d["E0"] == pytest.approx(e0, abs=1e-9)
+    assert d["gap_1_3"] == pytest.approx(e0[4] + e0[2] - 2 * e0[3], abs=1e-9)
+    assert d["gap_2_3"] == pytest.approx(e0[7] + e0[5] - 2 * e0[6], abs=1e-9)
     for name in ("staircase.nc", "staircase.csv", "staircase.png", "staircase.pdf", "summary.json"):
         assert (out / name).exists(), name
     import xarray as xr

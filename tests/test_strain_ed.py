@@ -6,7 +6,7 @@ import json
 import numpy as np
 import pytest
 import xarray as xr
-from _ed_dense import bonds
+from _ed_dense import bonds, dense_hamiltonian
 
 from phasemap.cli import main
 from phasemap.ed import staircase
@@ -128,8 +128,16 @@ def test_sweep_with_ed_writes_lines_and_claims_no_critical_strain(tmp_path, caps
     assert sw.band["methods"] == {"mf": sw.critical["mf"].strain_c} and "ed:tri12" in sw.band["excluded"]
     ds = sw.to_dataset().sel(solver="ed:tri12")  # one method dimension for every method
     assert str(ds["cluster"].values) == "tri12" and not bool(ds["sharp"].values)
-    assert int(ds["N"].values) == 4 and np.all(ds["width"].values > 0)
+    assert int(ds["N"].values) == 4
     np.testing.assert_allclose(ds["width"].values, ds["mu_hi"].values - ds["mu_lo"].values)
+    # the gap at every strain against an independent dense diagonalisation of the same torus
+    # (tests/_ed_dense.py): E0(5) + E0(3) - 2 E0(4) with t = 0.3 + 6 s, V = 6
+    gaps = np.ravel(ds["width"].values)
+    assert len(gaps) == len(ds["strain"])
+    for g, st in zip(gaps, ds["strain"].values):
+        tt = (0.3 + 6 * st,) * 3
+        e = [np.linalg.eigvalsh(dense_hamiltonian("triangular", TRI12, N, tt, (6.0,) * 3))[0] for N in (3, 4, 5)]
+        assert g == pytest.approx(e[2] + e[0] - 2 * e[1], abs=1e-8), st
     from phasemap.strain.plots import plot_order_parameters, plot_plateau_edges
 
     labels = [ln.get_label() for ln in plot_plateau_edges(sw).axes[0].get_lines()]
