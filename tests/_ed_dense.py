@@ -44,6 +44,20 @@ def bonds(lattice, vectors, which="nn"):
     return [(f, s, index((i + d[0], j + d[1]))) for f, d in enumerate(vecs) for s, (i, j) in enumerate(sites)]
 
 
+def classical_energies(lattice, vectors, V, V2=0.0):
+    """Interaction energy sum_b V_f n n + V2 sum_nnn n n and particle number of every hard-core
+    occupation of the torus (occupation k of site s = bit s of k, k = 0 .. 2^L - 1)."""
+    L = len(torus_sites(vectors)[0])
+    codes = np.arange(2**L, dtype=np.int64)
+    conf = ((codes[:, None] >> np.arange(L)) & 1).astype(np.int8)
+    E = np.zeros(len(codes))
+    for f, a, b in bonds(lattice, vectors):
+        E += V[f] * (conf[:, a] & conf[:, b])
+    if V2:
+        for _, a, b in bonds(lattice, vectors, "nnn"):
+            E += V2 * (conf[:, a] & conf[:, b])
+    return E, conf.sum(1, dtype=np.int64)
+
 def dense_hamiltonian(lattice, vectors, N, t, V, U=np.inf, V2=0.0, mu=0.0, n_max=1):
     """Dense H of the extended Bose-Hubbard model at fixed N on the torus (occupation basis)."""
     sites, _ = torus_sites(vectors)

@@ -76,8 +76,9 @@ def test_chain_segments_approach_hulthen():
 
 
 def test_resonating_zero_condensate_state_is_classified_by_what_it_is():
-    # DESIGN.md §6: with zero boundary condensate fields the segment's state is an exact
-    # particle-number eigenstate — for L = 2 the dimer singlet, uniform n = 1/2, which is no
+    # exact: with zero boundary condensate fields the cluster Hamiltonian commutes with the
+    # cluster's particle number (only b^+ b hops and n terms remain), so its nondegenerate ground
+    # state is a particle-number eigenstate — for L = 2 the dimer singlet, uniform n = 1/2, which is no
     # named solid. (At this SU(2) point it is degenerate with tiny-condensate solutions, so we
     # classify the zero-field branch itself rather than the tie-broken winner.)
     from phasemap.classify import classify

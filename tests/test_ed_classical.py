@@ -1,10 +1,8 @@
 """t = 0: the exact ground state is the classical lattice-gas minimum."""
 
-import itertools
-
 import numpy as np
 import pytest
-from _ed_dense import FockSector, bonds
+from _ed_dense import FockSector, classical_energies
 
 from phasemap import Model
 from phasemap.ed import ground_state, solve_ed
@@ -12,14 +10,8 @@ from phasemap.ed import ground_state, solve_ed
 
 def classical_minima(lattice, vectors, V, V2, mu, L):
     """Brute-force min over all 2^L occupations of sum_b V_b n n + V2 sum_nnn n n - mu N."""
-    conf = np.array(list(itertools.product((0, 1), repeat=L)), dtype=np.int8)
-    E = -mu * conf.sum(1).astype(float)
-    for f, a, b in bonds(lattice, vectors):
-        E += V[f] * conf[:, a] * conf[:, b]
-    if V2:
-        for _, a, b in bonds(lattice, vectors, "nnn"):
-            E += V2 * conf[:, a] * conf[:, b]
-    N = conf.sum(1)
+    E, N = classical_energies(lattice, vectors, V, V2)
+    E = E - mu * N
     return {n: E[N == n].min() for n in range(L + 1)}
 
 

@@ -25,7 +25,9 @@ from phasemap.mf import solve_batch
 from phasemap.params import points
 from phasemap.scan import filling_curve
 
-# geometry facts (DESIGN.md §1, §6), written out here independently of phasemap.lattice
+# geometry written out here independently of phasemap.lattice: the 12-site cell {(2,2), (-2,4)}
+# (det = 12), the bond vectors of length 1 (triangular (1,0), (0,1), (-1,1) for r = i e1 + j e2,
+# e1 = (1,0), e2 = (1/2, sqrt3/2)) and of length sqrt3 / sqrt2 (next-nearest)
 CELL = {"triangular": ((2, 2), (-2, 4)), "square": ((2, 0), (0, 2))}
 FAMILIES = {"triangular": [(1, 0), (0, 1), (-1, 1)], "square": [(1, 0), (0, 1)]}
 NNN = {"triangular": [(1, 1), (2, -1), (-1, 2)], "square": [(1, 1), (1, -1)]}

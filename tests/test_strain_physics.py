@@ -21,8 +21,9 @@ def _linear_t_table(t0=0.1, slope=1.0, V=0.0):
 
 
 def test_t0_plateau_edges_exact():
-    # exact (t = 0 classical limit, DESIGN.md §4): hard-core triangular plateaus 1/3 on mu/V in (0, 3)
-    # and 2/3 on (3, 6); the product state reproduces them exactly
+    # exact (t = 0 classical limit): per-site energies 0, -mu/3 (one sqrt3 sublattice, no bond),
+    # V - 2mu/3 (two sublattices, one bond per site), 3V - mu give plateaus 1/3 on mu/V in (0, 3)
+    # and 2/3 on (3, 6) (tests/test_v2_classical.py with V2 = 0); the product state reproduces them
     m = Model(t=0.0, V=1.0)
     r = locate_plateaus([m], "1/3", tol=1e-4, n_mu=41)
     assert r.exists[0] and r.label_center[0] == "solid 1/3"

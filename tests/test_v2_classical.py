@@ -42,11 +42,9 @@ product state with n, phi = sqrt(n(1 - n)) has E = -6t n(1-n) + 3(V + V2) n^2 - 
 stationary point is n = (mu + 6t) / (12 t + 6 V + 6 V2) (exact for the product state).
 """
 
-import itertools
-
 import numpy as np
 import pytest
-from _ed_dense import bonds
+from _ed_dense import classical_energies
 
 from phasemap import Model
 from phasemap.cmf import solve_cmf_batch
@@ -74,15 +72,9 @@ EDGES = [0.0, 12 * V2, 3 * V - 3 * V2, 3 * V + 9 * V2, 6 * V - 6 * V2, 6 * V + 6
 
 
 def periodic_minima(vectors, V=V, V2=V2):
-    """Brute force: (interaction energy, N) of every occupation of the periodic cell."""
-    L = int(round(abs(np.linalg.det(np.array(vectors, float)))))
-    conf = np.array(list(itertools.product((0, 1), repeat=L)), dtype=float)
-    E = np.zeros(len(conf))
-    for _, a, b in bonds("triangular", vectors):
-        E += V * conf[:, a] * conf[:, b]
-    for _, a, b in bonds("triangular", vectors, "nnn"):
-        E += V2 * conf[:, a] * conf[:, b]
-    return E, conf.sum(1), L
+    """Brute force: (interaction energy, N, L) of every occupation of the periodic cell."""
+    E, N = classical_energies("triangular", vectors, (V,) * 3, V2)
+    return E, N, int(round(abs(np.linalg.det(np.array(vectors, float)))))
 
 
 def brute_force_energy(vectors, mu):
@@ -189,19 +181,6 @@ def test_ed_t0_with_V2_tri21():
     assert [e0[6], e0[7], e0[8]] == pytest.approx([15 * V2, 21 * V2, 21 * V2 + 3 * V], abs=1e-12)
     assert e0[7] - e0[6] == pytest.approx(6 * V2, abs=1e-12)
     assert e0[8] - e0[7] == pytest.approx(3 * V, abs=1e-12)
-    E, Nc, _ = periodic_minima_bits(vec)
+    E, Nc, _ = periodic_minima(vec)
     assert [E[Nc == N].min() for N in (6, 7, 8)] == pytest.approx([e0[6], e0[7], e0[8]], abs=1e-12)
 
-
-def periodic_minima_bits(vectors, V=V, V2=V2):
-    """Like :func:`periodic_minima` for larger cells (occupations from the bits of 0..2^L-1)."""
-    L = int(round(abs(np.linalg.det(np.array(vectors, float)))))
-    codes = np.arange(2**L, dtype=np.int64)
-    conf = ((codes[:, None] >> np.arange(L)) & 1).astype(np.int8)
-    nv = np.zeros(len(codes), np.int16)
-    n2 = np.zeros(len(codes), np.int16)
-    for _, a, b in bonds("triangular", vectors):
-        nv += conf[:, a] * conf[:, b]
-    for _, a, b in bonds("triangular", vectors, "nnn"):
-        n2 += conf[:, a] * conf[:, b]
-    return V * nv + V2 * n2, conf.sum(1), L
