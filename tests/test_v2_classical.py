@@ -169,8 +169,8 @@ def test_cmf_t0_with_V2_tri12_plateau_edges():
 
 
 def test_ed_t0_with_V2_tri21():
-    # exact classical limit on the 21-site torus {(4,1), (-1,5)} (the smallest library torus on
-    # which no NNN bond is doubled; ED refuses tri12 with V2 != 0). N = 7: one √3 sublattice,
+    # exact classical limit on the 21-site torus {(4,1), (-1,5)} (a library torus on which no
+    # NNN bond is doubled; ED refuses tri12 with V2 != 0). N = 7: one √3 sublattice,
     # 21 NNN bonds, E0 = 21 V2; N = 6: one particle less removes its 6 NNN bonds, 15 V2;
     # N = 8: a particle on an empty site has 3 occupied NN and no occupied NNN, 21 V2 + 3V.
     # Canonical step of the 1/3 solid: mu- = 6 V2, mu+ = 3V. Brute force over all 2^21
