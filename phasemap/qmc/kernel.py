@@ -77,7 +77,7 @@ def _randint(s, n):
 
 @njit(cache=True)
 def sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
-          X, vtx, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, srow, do_measure):
+          X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, srow, do_measure):
     """One Monte Carlo step: diagonal update, linked vertex list, ``nloops`` directed loops.
 
     Measurements (when ``do_measure``) are taken on the configuration after the diagonal
@@ -170,6 +170,7 @@ def sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
             state[i] = 1 - si
             state[j] = 1 - sj
         vtx[k] = si + 2 * sj + 4 * state[i] + 8 * state[j]
+        vty[k] = btype[b]
         opidx[k] = p
         v0 = 4 * k
         if last[i] >= 0:
@@ -219,7 +220,7 @@ def sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
                 kk = jj >> 2
                 li = jj & 3
                 c = vtx[kk]
-                ty = btype[ops[opidx[kk]] >> 1]
+                ty = vty[kk]
                 r = _uniform(rng)
                 lo = 3
                 for m in range(3):
@@ -268,11 +269,11 @@ def _measure_slice(state, cosq, sinq, kidx, sq_acc, nsl, N):
 
 @njit(cache=True)
 def block(nsw, ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
-          X, vtx, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0):
+          X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0):
     """``nsw`` measured sweeps; records go to ``rec[row0 : row0 + nsw]``. Returns vertex visits."""
     tot = 0
     for s in range(nsw):
         n, v = sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
-                     X, vtx, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0 + s, True)
+                     X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0 + s, True)
         tot += v
     return tot

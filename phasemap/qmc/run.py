@@ -85,10 +85,10 @@ def _chain(job: dict) -> dict:
     elapsed0 = float(st["elapsed"])
 
     def work(M):
-        return (np.zeros(4 * M, np.int64), np.zeros(M, np.int64), np.zeros(M, np.int64),
+        return (np.zeros(4 * M, np.int64), np.zeros(M, np.int64), np.zeros(M, np.int64), np.zeros(M, np.int64),
                 np.zeros(N, np.int64), np.zeros(N, np.int64))
 
-    X, vtx, opidx, first, last = work(len(ops))
+    X, vtx, vty, opidx, first, last = work(len(ops))
     dummy_rec = np.zeros((1, kernel.NREC))
     dummy_sq = np.zeros(Nq)
 
@@ -103,12 +103,12 @@ def _chain(job: dict) -> dict:
     # -- thermalization: grow the cut-off, tune the loops per sweep
     while int(st["therm_done"]) < therm:
         n, v = kernel.sweep(ops, state, g.bonds, g.bond_type, g.bond_vec, g.wtab, g.cum, beta, nloops, rng,
-                            X, vtx, opidx, first, last, cosq, sinq, kidx, nslice, dummy_sq, dummy_rec, 0, False)
+                            X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, dummy_sq, dummy_rec, 0, False)
         M = len(ops)
         if n + n // 3 + 4 > M:
             Mn = n + n // 3 + 4
             ops = np.concatenate([ops, np.full(Mn - M, -1, np.int64)])
-            X, vtx, opidx, first, last = work(Mn)
+            X, vtx, vty, opidx, first, last = work(Mn)
         st["tune_visits"] = st["tune_visits"] + v
         st["tune_loops"] = st["tune_loops"] + nloops
         if st["tune_visits"] > 0:
@@ -127,10 +127,11 @@ def _chain(job: dict) -> dict:
         b = min(done // per_bin, bins - 1)
         bin_end = (b + 1) * per_bin if b < bins - 1 else sweeps
         k = min(chunk, bin_end - done)
-        t0 = time.perf_counter()
+        t0, c0 = time.perf_counter(), time.process_time()
         v = kernel.block(k, ops, state, g.bonds, g.bond_type, g.bond_vec, g.wtab, g.cum, beta, nloops, rng,
-                         X, vtx, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, done)
+                         X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, done)
         dt = time.perf_counter() - t0
+        st["meas_cpu"] = st.get("meas_cpu", np.array(0.0)) + (time.process_time() - c0)
         chunk = max(1, min(chunk * 2, 1 << 20)) if dt < 0.25 else max(1, chunk // 2)
         st["visits"] = st["visits"] + v
         st["meas_seconds"] = st["meas_seconds"] + dt
@@ -143,7 +144,8 @@ def _chain(job: dict) -> dict:
     checkpoint(force=True)
     return {"rec": rec.copy(), "sq_bins": sq_bins.copy(), "M": len(ops), "nloops": nloops,
             "visits": int(st["visits"]), "elapsed": float(st["elapsed"]), "thermalization": therm,
-            "meas_seconds": float(st["meas_seconds"]), "mean_ops": float(rec[:, 0].mean()) if sweeps else 0.0,
+            "meas_seconds": float(st["meas_seconds"]),
+            "meas_cpu": float(st.get("meas_cpu", 0.0)), "mean_ops": float(rec[:, 0].mean()) if sweeps else 0.0,
             "max_ops": int(rec[:, 0].max()) if sweeps else 0}
 
 
@@ -433,6 +435,7 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
                  "vertex_visits": int(sum(o["visits"] for o in outs)),
                  "chain_seconds": [o["elapsed"] for o in outs], "wall_seconds": time.perf_counter() - t0,
                  "measure_seconds": [o["meas_seconds"] for o in outs],
+                 "measure_cpu_seconds": [o["meas_cpu"] for o in outs],
                  "ground_state_search": gs_record})
     if any(o["max_ops"] >= o["M"] for o in outs):
         flags.append("operator-string cut-off reached during measurement (thermalization too short; run longer)")
