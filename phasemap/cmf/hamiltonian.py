@@ -158,6 +158,22 @@ class ClusterOperators:
             "top": self.top.astype(float) @ p,
         }
 
+    def thermal_expectations(self, H: np.ndarray, T: float) -> tuple[dict, float]:
+        """Expectation values (as :meth:`expectations`) in the thermal state exp(-H/T)/Z of the
+        dense cluster Hamiltonian ``H`` (full diagonalisation), and its entropy (units of k_B)."""
+        w, V = np.linalg.eigh(H)
+        p = np.exp(-(w - w[0]) / T)
+        p /= p.sum()
+        keep = p > 1e-300
+        Vk, pk = V[:, keep], p[keep]
+        diag = (Vk * Vk) @ pk  # diagonal of rho
+        off = np.einsum("ik,ik,k->i", Vk[self.rows], Vk[self.indices], pk)  # rho[rows, indices]
+        per = np.bincount(self.term, weights=off * self.base, minlength=self.n_terms + 1)[: self.n_terms]
+        F = self.F
+        ex = {"n": self.occ @ diag, "phi": 0.5 * per[F:], "hop": per[:F], "U": float(self.diag_U @ diag),
+              "V": self.diag_V @ diag, "V2": float(self.diag_V2 @ diag), "top": self.top.astype(float) @ diag}
+        return ex, float(-(pk * np.log(pk)).sum())
+
     def site_field(self, a: int) -> sp.csr_matrix:
         """Sparse ``b_a + b_a^+`` (for linear response)."""
         sel = self.term == self.F + a

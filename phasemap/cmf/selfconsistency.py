@@ -94,6 +94,13 @@ class CMFOptions:
         Largest allowed cluster Hilbert dimension.
     blas_threads : int or None, default 1
         BLAS threads while solving (small products are faster single-threaded); None: unchanged.
+    T : float, default 0
+        Temperature (model's energy unit). At T > 0 the cluster is in its thermal state (full
+        diagonalisation, every level with its Boltzmann weight) and solutions are compared by
+        the grand potential per site <H - mu N>/N - T S/N of the cluster-product state.
+        A scanned ``T`` (``ParamBatch.T``) takes precedence.
+    thermal_max_dim : int, default 1024
+        Largest cluster Hilbert dimension diagonalised in full at T > 0 (larger: ConfigError).
     """
 
     tol: float = 1e-9
@@ -111,6 +118,13 @@ class CMFOptions:
     memory_mb: float = 4096.0
     max_dim: int = 2**22
     blas_threads: int | None = 1
+    T: float = 0.0
+    thermal_max_dim: int = 1024
+
+    def __post_init__(self):
+        from ..mf import MFOptions
+
+        object.__setattr__(self, "T", MFOptions(T=self.T).T)  # same validation as mf
 
 
 @dataclass
@@ -253,7 +267,15 @@ def _ground_state(H, dense: bool, v0, tol):
     return E, g
 
 
-def _solve_row(prob: ClusterProblem, x0, v0, opt: CMFOptions, n_max: int):
+def _thermal_state(prob: ClusterProblem, x, T: float):
+    """Thermal expectations, grand potential per site and a representative vector at fields ``x``."""
+    S = prob.cluster.n_sites
+    H = prob.hamiltonian(x[:S], x[S:], True)
+    ex, ent = prob.ops.thermal_expectations(H, T)
+    return ex, prob.energy(ex) - T * ent / S, ent / S
+
+
+def _solve_row(prob: ClusterProblem, x0, v0, opt: CMFOptions, n_max: int, T: float = 0.0):
     """Self-consistency of one (point, seed) row. Returns dict of the end state."""
     S = prob.cluster.n_sites
     dense = prob.ops.dim <= opt.dense_max
@@ -267,17 +289,20 @@ def _solve_row(prob: ClusterProblem, x0, v0, opt: CMFOptions, n_max: int):
     r = np.inf
     it = 0
     for it in range(1, opt.max_iter + 1):
-        H = prob.hamiltonian(x[:S], x[S:], dense)
-        # inexact inner solves: the eigenvector only needs to be accurate relative to the
-        # current self-consistency residual (tightened to eig_tol as the iteration converges)
-        r_inner = max(opt.eig_tol, 1e-3 * min(r, 1.0))
-        _, v = _ground_state(H, dense, v, r_inner)
-        ex = prob.ops.expectations(v)
+        if T > 0:
+            ex = _thermal_state(prob, x, T)[0]
+        else:
+            H = prob.hamiltonian(x[:S], x[S:], dense)
+            # inexact inner solves: the eigenvector only needs to be accurate relative to the
+            # current self-consistency residual (tightened to eig_tol as the iteration converges)
+            r_inner = max(opt.eig_tol, 1e-3 * min(r, 1.0))
+            _, v = _ground_state(H, dense, v, r_inner)
+            ex = prob.ops.expectations(v)
         gx = np.concatenate([ex["n"], ex["phi"]])
         f = gx - x
         r = float(np.abs(f).max())
         if r < opt.tol:
-            if not dense and r_inner > opt.eig_tol:  # confirm with a tight eigen-solve
+            if T == 0 and not dense and r_inner > opt.eig_tol:  # confirm with a tight eigen-solve
                 r_inner = opt.eig_tol
                 _, v = _ground_state(H, dense, v, opt.eig_tol)
                 ex = prob.ops.expectations(v)
@@ -313,6 +338,10 @@ def _solve_row(prob: ClusterProblem, x0, v0, opt: CMFOptions, n_max: int):
         xnew[S:] = np.clip(xnew[S:], 0.0, None)
         x = xnew
     # final state from the final fields
+    if T > 0:
+        ex, omega, ent = _thermal_state(prob, x, T)
+        return dict(energy=omega, converged=conv, iterations=it, residual=r, n=ex["n"], phi=ex["phi"],
+                    top=float(ex["top"].max()), v=None, entropy=ent)
     H = prob.hamiltonian(x[:S], x[S:], dense)
     _, v = _ground_state(H, dense, v, opt.eig_tol)
     ex = prob.ops.expectations(v)
@@ -383,18 +412,28 @@ def solve_cmf_batch(batch: ParamBatch, cluster="tri12", seeds: list[Seed] | None
         seeds = cluster_seeds(model, cl, n_random=opt.n_random, rng=opt.rng, patterns=opt.patterns)
     K = len(seeds)
     check_budget(cl, batch.n_max, opt.memory_mb, opt.max_dim, n_rows=K)
+    T = batch.temperatures(opt.T)
+    hot = bool(np.any(T > 0))
+    if hot:
+        dim = (batch.n_max + 1) ** cl.n_sites
+        if dim > opt.thermal_max_dim:
+            raise ConfigError(
+                f"T: cluster mean field at T > 0 diagonalises the whole cluster; cluster {cl.name!r} has Hilbert "
+                f"dimension {dim:,} > thermal_max_dim = {opt.thermal_max_dim:,} (allowed: clusters of dimension "
+                f"(n_max+1)^sites <= thermal_max_dim, e.g. tri3, tri6, tri9 hard-core; raise the option "
+                "'thermal_max_dim' at your own cost, which grows as dim^3 per iteration)")
     with blas_threads(opt.blas_threads):
         ops = cluster_operators(cl, batch.n_max)
-        out = _solve_points(batch, cl, ops, seeds, init, opt)
+        out = _solve_points(batch, cl, ops, seeds, init, opt, T)
     return CMFBatchResult(batch=batch, cell=cl.cell, seeds=seeds, options=opt, cluster=cl,
-                          seconds=time.perf_counter() - t0, **out)
+                          seconds=time.perf_counter() - t0, T=T if hot else None, **out)
 
 
-def _solve_points(batch, cl, ops, seeds, init, opt):
+def _solve_points(batch, cl, ops, seeds, init, opt, T):
     P, K, S = batch.size, len(seeds), cl.n_sites
     out = dict(energy=np.empty((P, K)), converged=np.zeros((P, K), bool), iterations=np.zeros((P, K), int),
                residual=np.empty((P, K)), n=np.empty((P, K, S)), phi=np.empty((P, K, S)),
-               top_weight=np.zeros((P, K)))
+               top_weight=np.zeros((P, K)), entropy=np.zeros((P, K)))
     last = [None] * K  # previous point's end state per seed
     last2 = [None] * K  # and the one before (linear predictor along a scan)
     for p in range(P):
@@ -422,7 +461,7 @@ def _solve_points(batch, cl, ops, seeds, init, opt):
                                 x0 = np.concatenate([np.clip(pred[:S], 0, batch.n_max), np.clip(pred[S:], 0, None)])
                 elif prev["v"] is not None:
                     v0 = None
-            row = _solve_row(prob, x0, v0, opt, batch.n_max)
+            row = _solve_row(prob, x0, v0, opt, batch.n_max, float(T[p]))
             last2[k], last[k] = last[k], row
             out["energy"][p, k] = row["energy"]
             out["converged"][p, k] = row["converged"]
@@ -431,4 +470,5 @@ def _solve_points(batch, cl, ops, seeds, init, opt):
             out["n"][p, k] = row["n"]
             out["phi"][p, k] = row["phi"]
             out["top_weight"][p, k] = row["top"]
+            out["entropy"][p, k] = row.get("entropy", 0.0)
     return out

@@ -16,7 +16,7 @@ from .grand_canonical import GrandCanonicalMethod
 class ClusterMeanField(GrandCanonicalMethod):
     name = "cmf"
     title = "cluster mean field"
-    capabilities = Capabilities(grand_canonical=True, cluster=True, sharp_edges=True)
+    capabilities = Capabilities(grand_canonical=True, cluster=True, sharp_edges=True, temperature=True)
     default_arg = "tri12"
     caution = ("cluster mean field still overestimates the solid, less so for larger clusters: compare "
                "clusters (phasemap cluster-scaling) before trusting a critical strain")
