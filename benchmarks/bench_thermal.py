@@ -52,7 +52,8 @@ def main():
     t0 = time.perf_counter()
     ds = transition_temperatures(m, line, T_max=1.5 if not a.softcore else 0.5, n_T=12)
     print(f"transition_temperatures along 10 points: {time.perf_counter() - t0:.2f} s wall; "
-          f"Tc(density) = {np.round(ds['Tc_density'].values, 4)}; Tc(condensate) = {np.round(ds['Tc_condensate'].values, 4)}")
+          f"Tc(density) = {np.round(ds['Tc_density'].values, 4)}; "
+          f"Tc(condensate) = {np.round(ds['Tc_condensate'].values, 4)}")
 
 
 if __name__ == "__main__":

@@ -22,7 +22,8 @@ CHECK_EPILOG = """examples:
 SWEEP_EPILOG = """examples:
   phasemap strain-sweep examples/strain_demo.csv --out strain-out
   phasemap strain-sweep examples/strain_demo.csv --out strain-out --methods mf,cmf:tri6 --lambda 0.7:1.0:4
-  phasemap strain-sweep examples/strain_demo.csv --out strain-out --methods mf,ed:tri21"""
+  phasemap strain-sweep examples/strain_demo.csv --out strain-out --methods mf,ed:tri21
+  phasemap strain-sweep demo --out strain-out --methods mf,cmf:tri3 --T-measure 2.0"""
 
 
 def register(sub) -> None:
@@ -58,6 +59,11 @@ def register(sub) -> None:
     s.add_argument("--n-strain", type=positive_int, default=None, dest="n_strain",
                    help="strains on the path (default: rows and midpoints, >= 9)")
     s.add_argument("--n-mu", type=positive_int, default=121, dest="n_mu", help="chemical potentials of the map (default 121)")
+    s.add_argument("--T-measure", dest="T_measure", type=finite_float, default=None, metavar="T",
+                   help="measurement temperature (table unit): compute the solid's melting temperature versus "
+                        "strain for each method with a finite-temperature mode (mf, cmf on small clusters) and "
+                        "draw T across the T_melt(strain) figure")
+    s.add_argument("--melting", action="store_true", help="compute T_melt(strain) without a measurement temperature")
     s.add_argument("--no-figures", action="store_true", help="write data only")
     s.add_argument("--json", action="store_true", help="print the summary as JSON")
     s.set_defaults(func=run_sweep)
@@ -117,6 +123,9 @@ def run_sweep(args) -> int:
     check_output_folder(args.out)  # before anything is read or computed
     specs = parse_specs(args.methods)
     parse_fraction(args.fraction)
+    from ..strain.melting import check_T_measure
+
+    check_T_measure(args.T_measure)
     lam = parse_lambdas(args.lambdas) if args.lambdas is not None else None
     table = read_table(args.table)
     if args.scale == "U" and table.hardcore and lam is not None:
@@ -127,7 +136,7 @@ def run_sweep(args) -> int:
             warnings.simplefilter("always")
             table.sparsity_warnings()
             sw = strain_sweep(table, specs, n_strain=args.n_strain, n_mu=args.n_mu, fraction=args.fraction,
-                              lambdas=lam, param=args.scale)
+                              lambdas=lam, param=args.scale, melting=args.melting, T_measure=args.T_measure)
         for w in caught:
             print(f"phasemap: warning: {w.message}", file=sys.stderr)
         sw.seconds["total"] = time.perf_counter() - t0

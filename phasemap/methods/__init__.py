@@ -175,6 +175,17 @@ class Method:
         :class:`phasemap.strain.record.IndicatorResult` (finite lattices)."""
         raise ConfigError(f"method {self.name}: not available in the strain workflow")
 
+    def check_melting(self, spec: "MethodSpec", models) -> None:
+        """Refuse (ConfigError) a melting-temperature search this method cannot do, before solving."""
+        if not self.capabilities.temperature:
+            raise ConfigError(f"method {self.name}: no finite-temperature mode, so no melting temperature")
+
+    def strain_melting(self, spec: "MethodSpec", models, record, fraction: str, **kw):
+        """Melting temperature of the solid at every model where ``record`` (a StepRecord) has it:
+        a :class:`phasemap.strain.melting.MeltingRecord`. Finite-temperature Monte Carlo plugs in
+        here (T_melt with one-sigma errors, e.g. from the sqrt3 x sqrt3 Binder-ratio crossing)."""
+        raise ConfigError(f"method {self.name}: no melting temperature in the strain workflow")
+
     def strain_point(self, spec: "MethodSpec", model, record, mu, fraction: str, **kw) -> dict:
         """Method-specific sections of a one-strain check (``check_strain``): e.g. the state at
         ``mu``, the melt factor, the order parameter; plain JSON."""

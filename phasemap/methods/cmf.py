@@ -9,6 +9,7 @@ from __future__ import annotations
 from dataclasses import fields
 
 from ..cmf import CMFOptions, get_cluster, solve_cmf_batch
+from ..model import ConfigError
 from . import Capabilities
 from .grand_canonical import GrandCanonicalMethod
 
@@ -32,6 +33,17 @@ class ClusterMeanField(GrandCanonicalMethod):
 
     def config_default_arg(self, model):
         return "tri3" if model.lattice == "triangular" else "sq2x2"
+
+    def check_melting(self, spec, models):
+        super().check_melting(spec, models)
+        opts = self.options(spec.option_dict)
+        cl = get_cluster(opts.get("cluster", self.default_arg), models[0].lattice)
+        limit = opts.get("thermal_max_dim", CMFOptions.thermal_max_dim)
+        dim = (max(m.n_max for m in models) + 1) ** cl.n_sites
+        if dim > limit:
+            raise ConfigError(f"{spec.name}: the melting temperature needs cluster mean field at T > 0 (full "
+                              f"diagonalisation); cluster {cl.name!r} has Hilbert dimension {dim:,} > "
+                              f"thermal_max_dim = {limit:,} (use e.g. cmf:tri3, cmf:tri6 or cmf:tri9)")
 
     def check_cluster(self, cluster, model):
         get_cluster(cluster, model.lattice)

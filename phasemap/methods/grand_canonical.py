@@ -58,6 +58,12 @@ class GrandCanonicalMethod(Method):
         return critical_strain(table, spec, fraction, "width", coarse=(np.asarray(strains, float), H, r), xtol=xtol,
                                width_floor=width_floor, **kw)
 
+    def strain_melting(self, spec, models, record, fraction, T_max=None, n_T=10, tol=1e-3, thresholds=None, **kw):
+        from ..strain.melting import mean_field_melting
+
+        self.check_melting(spec, models)
+        return mean_field_melting(spec, models, record, T_max=T_max, n_T=n_T, tol=tol, thresholds=thresholds)
+
     def strain_point(self, spec, model, record, mu, fraction, melt=True, melt_max=10.0, thresholds=None,
                      width_floor=1e-3, jump_tol=1e-3, n_mu=121, **kw):
         from ..strain.analysis import grand_canonical_report

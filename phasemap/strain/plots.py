@@ -5,7 +5,9 @@
 * :func:`plot_order_parameters` — solid order parameter S(Q) and condensate versus strain at
   a fixed chemical potential, plus the plateau width relative to V;
 * :func:`plot_phase_map` — (strain, mu) phase map, one panel per method;
-* :func:`plot_critical_vs_lambda` — critical strain versus the interaction scale factor.
+* :func:`plot_critical_vs_lambda` — critical strain versus the interaction scale factor;
+* :func:`plot_melting` — melting temperature of the solid versus strain per method, with the
+  measurement temperature drawn across.
 
 Every method is drawn from its :class:`~phasemap.strain.record.StepRecord`. Methods with sharp
 edges (mf, cmf) are solid lines with the solid region shaded; finite-lattice methods (ed) are
@@ -26,7 +28,8 @@ from matplotlib.colors import BoundaryNorm, ListedColormap
 from matplotlib.figure import Figure
 from matplotlib.patches import Patch
 
-__all__ = ["plot_plateau_edges", "plot_order_parameters", "plot_phase_map", "plot_critical_vs_lambda", "save_all",
+__all__ = ["plot_plateau_edges", "plot_order_parameters", "plot_phase_map", "plot_critical_vs_lambda", "plot_melting",
+           "save_all",
            "method_colors"]
 
 SINGLE, DOUBLE = 3.4, 7.0
@@ -247,6 +250,45 @@ def plot_critical_vs_lambda(sweep) -> Figure | None:
     return fig
 
 
+def plot_melting(sweep) -> Figure | None:
+    """Melting temperature of the solid versus strain, one line per method with a finite-temperature
+    mode (open circles: first-order melting; error bars: Monte Carlo), the measurement
+    temperature drawn across."""
+    if not sweep.melting:
+        return None
+    with rc_context(_style()):
+        fig = _fig(SINGLE, 2.6)
+        ax = fig.add_subplot()
+        colors = method_colors(sweep.names)
+        s = sweep.strains
+        top = 0.0
+        for i, n in enumerate(sweep.names):
+            r = sweep.melting.get(n)
+            if r is None:
+                continue
+            T = np.where(np.isfinite(r.T_melt), r.T_melt, np.nan)
+            err = r.errors.get("T_melt")
+            ax.errorbar(s, T, yerr=err, color=colors[n], ls=_STYLES[i % len(_STYLES)], marker=".", ms=3, capsize=1.5,
+                        label=n)
+            fo = r.first_order & np.isfinite(T)
+            if fo.any():
+                ax.plot(s[fo], T[fo], "o", mfc="none", color=colors[n], ms=4)
+            if np.isfinite(T).any():
+                top = max(top, float(np.nanmax(T)))
+        if any(r.first_order.any() for r in sweep.melting.values()):
+            ax.plot([], [], "o", mfc="none", color="0.3", ms=4, label="first-order melting")
+        if sweep.T_measure is not None:
+            ax.axhline(sweep.T_measure, color="k", lw=0.9, ls="--",
+                       label=f"measurement T = {sweep.T_measure:g} {sweep.table.unit}")
+            top = max(top, sweep.T_measure)
+        ax.set_ylim(0, 1.1 * top if top > 0 else 1.0)
+        ax.set_xlabel(sweep.table.strain_label)
+        ax.set_ylabel(f"$T_{{melt}}$ [{sweep.table.unit}]")
+        ax.set_title(f"melting of the {sweep.fraction} solid (mean field overestimates it)", fontsize=7)
+        ax.legend(frameon=False, loc="best")
+    return fig
+
+
 def save_all(sweep, outdir, formats=("png", "pdf")) -> list:
     """Write every figure of ``sweep`` into ``outdir`` (PNG + PDF); returns the paths."""
     from pathlib import Path
@@ -256,7 +298,8 @@ def save_all(sweep, outdir, formats=("png", "pdf")) -> list:
     out = Path(outdir)
     paths = []
     figs = {"plateau_edges": plot_plateau_edges(sweep), "order_parameters": plot_order_parameters(sweep),
-            "phase_map": plot_phase_map(sweep), "critical_vs_lambda": plot_critical_vs_lambda(sweep)}
+            "phase_map": plot_phase_map(sweep), "critical_vs_lambda": plot_critical_vs_lambda(sweep),
+            "melting": plot_melting(sweep)}
     for name, fig in figs.items():
         if fig is not None:
             paths += save_figure(fig, out / f"strain_{name}", formats=formats)

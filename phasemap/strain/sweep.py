@@ -27,6 +27,7 @@ from ..methods import parse_specs
 from .analysis import CAUTION
 from .critical import coarse_strains, critical_band
 from .engine import default_window, fixed_filling, parse_fraction
+from .melting import check_T_measure
 from .sensitivity import critical_vs_lambda
 from .table import StrainTable
 
@@ -48,6 +49,8 @@ class StrainSweep:
     lambdas: dict = field(default_factory=dict)  # method name -> LambdaScan
     seconds: dict = field(default_factory=dict)
     notes: list = field(default_factory=list)
+    melting: dict = field(default_factory=dict)  # method name -> MeltingRecord (finite-temperature methods)
+    T_measure: float | None = None  # the user's measurement temperature (table unit)
 
     @property
     def names(self) -> list[str]:
@@ -198,12 +201,28 @@ class StrainSweep:
             data[f"table_{k}"] = (("row",), v, {"units": u, "long_name": f"{k} of the table rows (input)"})
         for k in err_keys:
             data[f"error_{_var(k)}"] = (m2, errs[k], {"long_name": f"one-sigma statistical error of {k}"})
+        if self.melting:
+            tm = np.full((A, S_), np.nan)
+            fo = np.zeros((A, S_), bool)
+            tme = np.full((A, S_), np.nan)
+            for a, n in enumerate(names):
+                if n in self.melting:
+                    r = self.melting[n]
+                    tm[a], fo[a] = r.T_melt, r.first_order
+                    if "T_melt" in r.errors:
+                        tme[a] = r.errors["T_melt"]
+            data["T_melt"] = (m2, tm, {"units": u, "long_name": f"melting temperature of the {self.fraction} solid at "
+                                       "the plateau centre (NaN: not computed or no solid at T = 0; inf: above T_max)"})
+            data["T_melt_first_order"] = (m2, fo, {"long_name": "melting is first order (jump survives bisection)"})
+            data["error_T_melt"] = (m2, tme, {"units": u, "long_name": "one-sigma error of T_melt (Monte Carlo)"})
         info = lambda k, d: [self.records[n].info.get(k, d) for n in names]  # noqa: E731
         coords = {"strain": self.strains, "mu": self.mu, "family": list(self.table.families), "solver": names,
                   "dN": [-1, 0, 1], "sharp": ("solver", [bool(self.records[n].sharp) for n in names]),
                   "cluster": ("solver", [str(x) for x in info("cluster", "")]),
                   "n_sites": ("solver", info("n_sites", 0)), "N": ("solver", info("N", -1))}
         ds = xr.Dataset(data, coords=coords, attrs=self.metadata())
+        if self.T_measure is not None:
+            ds.attrs["T_measure"] = self.T_measure
         ds["mu"].attrs["units"] = u
         ds["strain"].attrs["long_name"] = self.table.strain_label
         return ds
@@ -229,7 +248,32 @@ class StrainSweep:
             "lambda": {k: v.to_dict() for k, v in self.lambdas.items()},
             "notes": list(self.notes), "seconds": self.seconds, "caution": CAUTION,
             "method_cautions": {m.name: m.impl.caution for m in self.methods},
+            **({"melting": {k: v.to_dict() for k, v in self.melting.items()}, "T_measure": self.T_measure,
+                "survives_at_T_measure": self.survival()} if self.melting else {}),
         }
+
+    def survival(self) -> dict:
+        """Per method: strains where the solid exists at T = 0 and melts above the measurement T."""
+        if self.T_measure is None:
+            return {}
+        return {n: [float(s) for s in self.strains[r.survives(self.T_measure)]] for n, r in self.melting.items()}
+
+    def melting_text(self) -> list[str]:
+        lines = []
+        for n, r in self.melting.items():
+            ok = np.isfinite(r.T_melt)
+            if not ok.any():
+                lines.append(f"{n}: no solid at T = 0 along the path, so no melting temperature")
+                continue
+            fo = "first order" if r.first_order[ok].all() else ("continuous" if not r.first_order[ok].any() else
+                                                               "first order at some strains")
+            lines.append(f"{n}: T_melt from {np.nanmin(r.T_melt):.3g} to {np.nanmax(r.T_melt):.3g} {self.table.unit} "
+                         f"along the path ({fo})")
+            if self.T_measure is not None:
+                surv = self.strains[r.survives(self.T_measure)]
+                where = (f"survives at strains {surv.min():g} .. {surv.max():g}" if surv.size else "melts at every strain")
+                lines.append(f"  at the measurement temperature {self.T_measure:g} {self.table.unit} the solid {where}")
+        return lines
 
     def text(self) -> str:
         lines = [f"strain sweep of {self.table.path or 'table'} ({self.table.describe()})"]
@@ -238,6 +282,8 @@ class StrainSweep:
             if n in self.lambdas:
                 lines.append("  " + self.lambdas[n].summary())
         lines.append("  " + self.band["text"])
+        for x in self.melting_text():
+            lines.append("  " + x)
         for x in self.notes:
             lines.append(f"  note: {x}")
         shown = set()
@@ -292,12 +338,34 @@ class StrainSweep:
                     cols["strain_c"].append(float(sc[a, j]))
                     cols["uncertainty"].append(float(un[a, j]))
             paths.append(save_csv(out / "lambda.csv", cols, {**meta, "param": lds.attrs["param"]}))
+        if self.melting:
+            cols = {k: [] for k in ("method", "strain", "mu", "T_melt", "error_T_melt", "first_order", "jump",
+                                    "converged", "T_measure", "survives_at_T_measure")}
+            for n, r in self.melting.items():
+                surv = r.survives(self.T_measure) if self.T_measure is not None else np.zeros(len(self.strains), bool)
+                err = r.errors.get("T_melt", np.full(len(self.strains), np.nan))
+                for i, s in enumerate(self.strains):
+                    for k, v in (("method", n), ("strain", float(s)), ("mu", float(r.mu[i])),
+                                 ("T_melt", float(r.T_melt[i])), ("error_T_melt", float(err[i])),
+                                 ("first_order", bool(r.first_order[i])), ("jump", float(r.jump[i])),
+                                 ("converged", bool(r.converged[i])),
+                                 ("T_measure", self.T_measure if self.T_measure is not None else nan),
+                                 ("survives_at_T_measure", bool(surv[i]))):
+                        cols[k].append(v)
+            paths.append(save_csv(out / "melting.csv", cols, meta))
         paths.append(atomic_write_text(out / "summary.json", dumps_json(self.summary()) + "\n"))
         if figures:
             from .plots import save_all
 
             paths += save_all(self, out, formats=formats)
         return paths
+
+
+def _has_melting(spec) -> bool:
+    """The method has a finite-temperature mode and implements the strain_melting hook."""
+    from ..methods import Method
+
+    return spec.capabilities.temperature and type(spec.impl).strain_melting is not Method.strain_melting
 
 
 def _var(key: str) -> str:
@@ -307,7 +375,8 @@ def _var(key: str) -> str:
 
 def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int | None = None, mu=None,
                  n_mu: int = 121, fraction="1/3", lambdas=None, param: str = "V", xtol: float | None = None,
-                 width_floor: float = 1e-3, thresholds=Thresholds(), ed_thresholds=None, **locate_kw) -> StrainSweep:
+                 width_floor: float = 1e-3, thresholds=Thresholds(), ed_thresholds=None, melting: bool = False,
+                 T_measure: float | None = None, T_max: float | None = None, **locate_kw) -> StrainSweep:
     """Sweep the strain path for every method (one path: each method's strain hooks).
 
     Parameters
@@ -324,6 +393,14 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
         points over the union of the default windows along the path).
     lambdas : array or str, optional
         Also scan the critical strain versus the scale factor of ``param`` (sharp methods).
+    melting : bool
+        Also compute the solid's melting temperature at every strain for each method with a
+        finite-temperature mode (:meth:`~phasemap.methods.Method.strain_melting`; implied by
+        ``T_measure``). Methods without one get a note.
+    T_measure : float, optional
+        The measurement temperature (table unit), drawn across the T_melt(strain) figure.
+    T_max : float, optional
+        Top of the melting search (default max V).
 
     Returns
     -------
@@ -336,14 +413,18 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
     S = coarse_strains(table, n_strain) if strains is None else np.asarray(strains, float)
     table.check_range(S)
     models = table.models(S)
+    T_measure = check_T_measure(T_measure)
+    melting = melting or T_measure is not None
     for sp in specs:  # refuse before anything is solved (cluster, filling, bonds, memory guard)
         sp.impl.check_setup(sp, models, lab)
+        if melting and _has_melting(sp):
+            sp.impl.check_melting(sp, models)
     if mu is None:
         w = np.array([default_window(m, f) for m in models])
         mu = np.linspace(w[:, 0].min(), w[:, 1].max(), int(n_mu))
     mu = np.asarray(mu, float)
     kw = dict(width_floor=width_floor, thresholds=thresholds, ed_thresholds=ed_thresholds, **locate_kw)
-    recs, crit, lams, secs, notes = {}, {}, {}, {}, []
+    recs, crit, lams, secs, notes, melts = {}, {}, {}, {}, [], {}
     for sp in specs:
         t0 = time.perf_counter()
         rec = sp.impl.strain_step(sp, models, lab, mu=mu, keep_grid=True, **kw)
@@ -358,6 +439,15 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
                 secs[f"{sp.name} lambda"] = time.perf_counter() - t1
             else:
                 notes.append(f"lambda scan not done for {sp.name}: a finite lattice has no sharp critical strain")
+        if melting:
+            if _has_melting(sp):
+                t1 = time.perf_counter()
+                melts[sp.name] = sp.impl.strain_melting(sp, models, rec, lab, T_max=T_max, thresholds=thresholds)
+                secs[f"{sp.name} melting"] = time.perf_counter() - t1
+            else:
+                why = ("has no finite-temperature mode" if not sp.capabilities.temperature else
+                       "does not provide Method.strain_melting yet")
+                notes.append(f"no melting temperature for {sp.name}: {sp.impl.title} {why}")
     sharp = [crit[sp.name] for sp in specs if recs[sp.name].sharp]
     band = critical_band(sharp)
     if not sharp:
@@ -368,4 +458,4 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
                          "transition; steepest-drop strains are indicators only)")
         band["excluded"] = excluded
     return StrainSweep(table=table, methods=specs, fraction=lab, strains=S, mu=mu, records=recs, critical=crit,
-                       band=band, lambdas=lams, seconds=secs, notes=notes)
+                       band=band, lambdas=lams, seconds=secs, notes=notes, melting=melts, T_measure=T_measure)
