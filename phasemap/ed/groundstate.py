@@ -15,8 +15,9 @@ import numpy as np
 from ..lattice import Supercell
 from ..model import ConfigError, Model
 from .clusters import check_bonds, get_cluster, momentum_classes, point_group
-from .guard import DEFAULT_BUDGET_GIB, check_budget, estimate
+from .guard import DEFAULT_BUDGET_GIB, check_budget, estimate, estimate_space_group
 from .sector import Sector
+from .spacegroup import MAX_SITES, SymSector, group_permutations, sector_dimension
 
 __all__ = ["GroundState", "ground_state", "check_particles"]
 
@@ -76,9 +77,44 @@ def n_hop_dirs(model: Model) -> int:
     return 2 * sum(1 for t in model.t if t != 0)
 
 
+def uses_space_group(model: Model, cell, *, symmetric=True, momenta=None, all_momenta=False,
+                     space_group=True, lookup="auto") -> bool:
+    """True when :func:`ground_state` works in the trivial space-group sector (hard-core, t >= 0)."""
+    return bool(space_group and symmetric and model.hardcore and momenta is None and not all_momenta
+                and min(model.t) >= 0 and cell.n_sites <= MAX_SITES and lookup == "auto")
+
+
+#: Space-group sectors kept for reuse by later models on the same cluster (scans, strain),
+#: as long as their rank tables together stay below this many bytes.
+SECTOR_CACHE_BYTES = 2 * 2**30
+_SECTORS: dict = {}
+
+
+def space_group_sector(model: Model, cell, N: int, budget_gib=DEFAULT_BUDGET_GIB) -> SymSector:
+    """The trivial sector of the kept space group at N (cached per cluster, N and symmetry)."""
+    ops = point_group(cell, model)
+    key = (cell.lattice.name, cell.vectors.tobytes(), N, tuple(np.asarray(ops).ravel().tolist()),
+           tuple(bool(t) for t in model.t), bool(model.V2))
+    sec = _SECTORS.get(key)
+    if sec is not None and sec.compatible(model):
+        sec.set_model(model)
+        return sec
+    perms, _ = group_permutations(cell, ops)
+    dim = sector_dimension(perms, np.ones(len(perms), np.int64), N)
+    est = estimate_space_group(cell.n_sites, N, dim, n_hop_dirs(model))
+    check_budget(est, budget_gib, what=f"ED sector N={N} on {cell!r}")
+    sec = SymSector(cell, model, N, ops=ops)
+    sec.estimate = est
+    if 4.0 * sec.fock <= SECTOR_CACHE_BYTES:
+        while _SECTORS and sum(4.0 * s.fock for s in _SECTORS.values()) + 4.0 * sec.fock > SECTOR_CACHE_BYTES:
+            _SECTORS.pop(next(iter(_SECTORS)))
+        _SECTORS[key] = sec
+    return sec
+
+
 def ground_state(model: Model, cluster, N: int, *, symmetric: bool = True, point_group_reduce: bool = True,
                  budget_gib: float | None = DEFAULT_BUDGET_GIB, tol: float = 1e-10, lookup: str = "auto",
-                 momenta=None, all_momenta: bool = False) -> GroundState:
+                 momenta=None, all_momenta: bool = False, space_group: bool = True) -> GroundState:
     """Exact ground state with N bosons on a periodic cluster.
 
     Parameters
@@ -97,6 +133,11 @@ def ground_state(model: Model, cluster, N: int, *, symmetric: bool = True, point
         Lanczos (ARPACK) relative residual tolerance; energies are accurate to ~tol^2.
     momenta : list of int, optional
         Restrict to these momentum indices (``cell.momenta``); then no class reduction.
+    space_group : bool, default True
+        Hard-core bosons with t >= 0 (and no ``momenta``/``all_momenta``): diagonalise only
+        the trivial sector of the space group that the couplings keep (translations x kept
+        point group, :mod:`phasemap.ed.spacegroup`), where a ground state lies by the
+        Perron-Frobenius argument below. ``False`` uses the translation-only Q = 0 sector.
     all_momenta : bool, default False
         Diagonalise every momentum class. By default only Q = 0 is diagonalised: with
         t >= 0 every off-diagonal element is <= 0 in the occupation basis, so by the
@@ -117,6 +158,20 @@ def ground_state(model: Model, cluster, N: int, *, symmetric: bool = True, point
     cell = get_cluster(cluster, model.lattice)
     check_bonds(cell, model)
     N = check_particles(N, cell.n_sites, model.n_max)
+    if uses_space_group(model, cell, symmetric=symmetric, momenta=momenta, all_momenta=all_momenta,
+                        space_group=space_group, lookup=lookup):
+        import time
+
+        t0 = time.perf_counter()
+        sec = space_group_sector(model, cell, N, budget_gib)
+        build = time.perf_counter() - t0
+        t1 = time.perf_counter()
+        w, v = sec.solve(tol=tol)
+        name = cell.momentum_name(np.zeros(2))
+        vec = v[:, 0]
+        residual = float(np.linalg.norm(sec.matvec(vec) - w[0] * vec))
+        return GroundState(cell, model, N, float(w[0]), np.zeros(2), name, vec, sec, [name], {name: float(w[0])},
+                           {name: sec.dim}, {name: time.perf_counter() - t1}, build_time=build, residual=residual)
     est = estimate(cell.n_sites, N, model.n_max, n_hop_dirs(model), cell.n_sites if symmetric else 1)
     check_budget(est, budget_gib, what=f"ED sector N={N} on {cell!r}")
     sec = Sector(cell, model, N, symmetric=symmetric, lookup=lookup)

@@ -17,7 +17,7 @@ from functools import lru_cache
 
 from ..model import ConfigError
 
-__all__ = ["fock_dimension", "Estimate", "estimate", "check_budget", "DEFAULT_BUDGET_GIB"]
+__all__ = ["fock_dimension", "Estimate", "estimate", "estimate_space_group", "check_budget", "DEFAULT_BUDGET_GIB"]
 
 #: Default memory budget of one sector (GiB); override with ``budget_gib=`` / ``--budget-gib``.
 DEFAULT_BUDGET_GIB = 8.0
@@ -49,6 +49,7 @@ class Estimate:
     sector: int  # states per momentum sector (fock / L)
     hops: int  # hopping-table entries (all orbits)
     bytes: float  # predicted peak memory
+    kind: str = "per momentum sector"  # what ``sector`` counts
 
     @property
     def gib(self) -> float:
@@ -56,7 +57,7 @@ class Estimate:
 
     def describe(self) -> str:
         return (f"L={self.L}, N={self.N}, n_max={self.n_max}: {self.fock:.4g} Fock states, "
-                f"~{self.sector:.4g} per momentum sector, ~{self.hops:.3g} hopping entries, "
+                f"{'~' if self.kind.startswith('per') else ''}{self.sector:.4g} {self.kind}, ~{self.hops:.3g} hopping entries, "
                 f"estimated peak memory {self.gib:.3g} GiB")
 
 
@@ -85,7 +86,7 @@ def estimate(L: int, N: int, n_max: int, n_hop_dirs: int, n_group: int | None = 
     fock = fock_dimension(L, N, n_max)
     sector = -(-fock // G)
     if n_max == 1:
-        p = N * (L - N) / (L * (L - 1)) if L > 1 else 0.0
+        p = _hop_probability(L, N)
     else:
         nbar = N / L
         p = min(1.0, nbar) * (1.0 - (nbar / (1 + nbar)) ** n_max)
@@ -94,6 +95,25 @@ def estimate(L: int, N: int, n_max: int, n_hop_dirs: int, n_group: int | None = 
     tab = (direct if direct < min(4 * 2**30, 40 * fock + 2**28) else 40.0 * fock) if table else 0.0
     b = tab + 22 * hops + 60 * hops + 8 * 2 * sector * (2 * ncv + 8) + (L + 40) * sector
     return Estimate(L, N, n_max, fock, sector, hops, float(b))
+
+
+def _hop_probability(L: int, N: int) -> float:
+    return N * (L - N) / (L * (L - 1)) if L > 1 else 0.0
+
+
+def estimate_space_group(L: int, N: int, dim: int, n_hop_dirs: int, ncv: int = 20) -> Estimate:
+    """Peak memory of a hard-core space-group sector (:class:`phasemap.ed.spacegroup.SymSector`).
+
+    ``dim`` is the exact sector dimension (Burnside count). Bytes: the rank table (4 per
+    Fock state, ``C(L, N)``), the CSR Hamiltonian (4-byte column, 1-byte code, 8-byte value
+    per hopping entry; entries = ``dim * n_hop_dirs * L * p`` with the hard-core hop
+    probability ``p``), about 60 bytes per state (representatives, stabilisers, diagonal,
+    row pointers, bond counts) and ``ncv + 6`` Lanczos vectors.
+    """
+    fock = fock_dimension(L, N, 1)
+    hops = int(dim * n_hop_dirs * L * _hop_probability(L, N))
+    b = 4.0 * fock + 13.0 * hops + 60.0 * dim + 8.0 * (ncv + 6) * dim
+    return Estimate(L, N, 1, fock, int(dim), hops, float(b), kind="in the space-group sector (exact)")
 
 
 def check_budget(est: Estimate, budget_gib: float | None = DEFAULT_BUDGET_GIB, what: str = "sector") -> None:

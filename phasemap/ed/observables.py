@@ -38,7 +38,9 @@ import math
 
 from ..model import ConfigError
 from ..lattice import sq_peak
+from .guard import DEFAULT_BUDGET_GIB
 from .sector import Sector
+from .spacegroup import SymSector, stiffness_linear_response
 
 __all__ = ["density_correlation", "structure_factor", "one_body", "stiffness", "measure"]
 
@@ -52,6 +54,8 @@ def _displacement_index(sector: Sector) -> np.ndarray:
 
 def density_correlation(sector: Sector, q, vec) -> np.ndarray:
     """C(delta) = <n_0 n_delta> for the displacement of every site (translation average)."""
+    if isinstance(sector, SymSector):
+        return sector.density_correlation(vec)
     keep = sector.mask(q)
     w = np.abs(vec) ** 2
     n = sector.occ[keep].astype(float)
@@ -74,6 +78,15 @@ def one_body(sector: Sector, q, vec) -> dict:
     Works on the Fock-space expansion of the ground state (translation invariance makes
     row 0 of the density matrix sufficient); requires a translation-symmetric sector.
     """
+    cell = sector.cell
+    if isinstance(sector, SymSector):
+        rel = cell.sites - cell.sites[0]
+        g = sector.one_body(vec)
+        nk = np.real(np.exp(2j * np.pi * (cell.momenta @ rel.T)) @ g)
+        k = int(np.argmax(nk))
+        N = max(sector.N, 1)
+        return {"g": g, "nk": nk, "k_max": cell.momenta[k],
+                "condensate_fraction": float(nk[k] / N) if sector.N else 0.0}
     if not sector.group.orders and sector.L > 1:
         raise ValueError("one_body: needs a translation-symmetric sector (symmetric=True)")
     codes, amp = sector.expand(q, vec)
@@ -96,8 +109,22 @@ def one_body(sector: Sector, q, vec) -> dict:
     return {"g": g, "nk": nk, "k_max": cell.momenta[k], "condensate_fraction": float(nk[k] / N) if sector.N else 0.0}
 
 
-def stiffness(sector: Sector, q, e0: float, vec, phi: float = 1e-2, tol: float = 1e-12) -> dict:
-    """Superfluid stiffness rho_f for a twist along each bond family (see module notes)."""
+def stiffness(sector: Sector, q, e0: float, vec, phi: float = 1e-2, tol: float = 1e-12, errors: dict | None = None,
+              budget_gib=None) -> dict:
+    """Superfluid stiffness rho_f for a twist along each bond family (see module notes).
+
+    Space-group sectors (:class:`phasemap.ed.spacegroup.SymSector`) use linear response at
+    zero twist (one ground state and one conjugate-gradient solve per class of equivalent
+    families, :func:`phasemap.ed.spacegroup.stiffness_linear_response`); translation sectors
+    use the twist finite differences. ``errors`` (optional dict) receives the numerical error
+    of each family: the CG bound, or for finite differences the Richardson difference
+    |curv(phi) - curv(2 phi)| / 3 (its leading O(phi^4) remainder is smaller).
+    """
+    if isinstance(sector, SymSector):
+        res = stiffness_linear_response(sector, tol=min(tol, 1e-10), budget=budget_gib)
+        if errors is not None:
+            errors.update({f: v[1] for f, v in res.items()})
+        return {f: v[0] for f, v in res.items()}
     lat = sector.cell.lattice
     D = lat.cartesian(np.array(lat.nn))
     out = {}
@@ -109,11 +136,18 @@ def stiffness(sector: Sector, q, e0: float, vec, phi: float = 1e-2, tol: float =
             em = sector.solve(q, A=-h * e, v0=vec, tol=tol).e0
             curv.append((ep + em - 2 * e0) / (sector.L * h**2))
         out[name] = float((4 * curv[0] - curv[1]) / 3)  # Richardson: error O(phi^4)
+        if errors is not None:
+            errors[name] = float(abs(curv[0] - curv[1]) / 3)
     return out
 
 
-def measure(gs, which=("sq", "condensate", "stiffness"), phi: float = 1e-2, tol: float = 1e-12) -> dict:
-    """Measure ground-state observables; returns a dict (see module notes)."""
+def measure(gs, which=("sq", "condensate", "stiffness"), phi: float = 1e-2, tol: float = 1e-12,
+            budget_gib=DEFAULT_BUDGET_GIB) -> dict:
+    """Measure ground-state observables; returns a dict (see module notes).
+
+    The stiffness of a space-group ground state needs its own (larger) sector of the subgroup
+    that keeps the twist direction; it is checked against ``budget_gib`` like any sector.
+    """
     out = {}
     allowed = {"sq", "condensate", "stiffness"}
     bad = set(which) - allowed
@@ -131,13 +165,16 @@ def measure(gs, which=("sq", "condensate", "stiffness"), phi: float = 1e-2, tol:
             Kq = np.array(cell.lattice.special_q["K"], float)
             hit = np.all(np.abs(np.mod(mom - Kq + 0.5, 1) - 0.5) < 1e-9, axis=1)
             out["S(K)/N"] = float(sq_n[hit][0]) if hit.any() else math.nan
-    if "condensate" in which and sec.group.orders:
+    if "condensate" in which and (isinstance(sec, SymSector) or sec.group.orders):
         ob = one_body(sec, q, vec)
         out["condensate_fraction"] = ob["condensate_fraction"]
         out["nk"], out["k_condensate"] = ob["nk"], cell.momentum_name(ob["k_max"])
         out["lambda_max"] = float(np.max(ob["nk"]))
     if "stiffness" in which:
-        st = stiffness(sec, q, gs.e0, vec, phi=phi, tol=tol)
+        err = {}
+        st = stiffness(sec, q, gs.e0, vec, phi=phi, tol=tol, errors=err, budget_gib=budget_gib)
         out["stiffness_families"] = st
         out["stiffness"] = float(np.mean(list(st.values())))
+        out["stiffness_error"] = float(max(err.values())) if err else 0.0
+        out["stiffness_method"] = "linear response" if isinstance(sec, SymSector) else "twist finite differences"
     return out

@@ -40,6 +40,8 @@ from ..model import ConfigError, Model, check_keys
 from ..solution import Solution
 from .groundstate import ground_state
 from .io import canonical_mu
+from .guard import DEFAULT_BUDGET_GIB
+from .spacegroup import SymSector
 from .observables import measure as observables
 
 __all__ = ["EDThresholds", "solve_ed", "observables", "indicator", "scan_ed"]
@@ -101,7 +103,7 @@ def indicator(model: Model, cell, N: int, obs: dict, gap: float | None, th: EDTh
 RESIDUAL_TOL = 1e-6
 
 ED_OPTIONS = {"symmetric", "point_group_reduce", "budget_gib", "tol", "lookup", "observables", "phi",
-            "neighbors", "thresholds", "all_momenta"}
+            "neighbors", "thresholds", "all_momenta", "space_group"}
 
 
 def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Solution:
@@ -115,7 +117,7 @@ def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Soluti
     particles : int, optional
         Number of bosons N. Default: the grand-canonical ground state of the cluster at
         ``model.mu`` (the N minimising E0(N); this diagonalises every N).
-    symmetric, point_group_reduce, budget_gib, tol, lookup, all_momenta
+    symmetric, point_group_reduce, budget_gib, tol, lookup, all_momenta, space_group
         See :func:`phasemap.ed.groundstate.ground_state` (``all_momenta=True`` lists every
         momentum sector's energy and the degenerate ground-state momenta).
     observables : tuple, default ("sq", "condensate", "stiffness")
@@ -158,7 +160,7 @@ def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Soluti
         particles = int(ds["N"].values[int(np.nanargmin(ds["E0"].values))])
     gs = ground_state(model, cluster, particles, **gs_opts)
     cell, N, L = gs.cell, gs.N, gs.L
-    obs = observables(gs, which, phi=phi)
+    obs = observables(gs, which, phi=phi, budget_gib=gs_opts.get("budget_gib", DEFAULT_BUDGET_GIB))
     mu_p = mu_m = gap = None
     e_side = {}
     if neighbors:
@@ -181,7 +183,8 @@ def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Soluti
     if len(gs.degenerate) > 1:
         flags.append("degenerate-momenta " + ",".join(gs.degenerate))
     lam = obs.get("lambda_max", math.nan)
-    order = {k: obs[k] for k in ("S(K)/N", "sq_max", "q_max", "condensate_fraction", "stiffness") if k in obs}
+    order = {k: obs[k] for k in ("S(K)/N", "sq_max", "q_max", "condensate_fraction", "stiffness", "stiffness_error")
+             if k in obs}
     for f, v in obs.get("stiffness_families", {}).items():
         order[f"stiffness_{f}"] = v
     if gap is not None:
@@ -191,7 +194,10 @@ def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Soluti
         "momentum_name": gs.q_name, "degenerate": gs.degenerate, "sector_e0": gs.sector_e0,
         "sector_dims": gs.dims, "sector_times_s": gs.times, "build_time_s": gs.build_time,
         "mu_plus": mu_p, "mu_minus": mu_m, "thresholds": asdict(th), "twist_phi": phi,
+        "sectors": "space group (trivial)" if isinstance(gs.sector, SymSector) else "translations",
     }
+    if "stiffness_method" in obs:
+        extra["stiffness_method"] = obs["stiffness_method"]
     if "sq" in obs:
         extra["momenta"], extra["sq"] = obs["momenta"], obs["sq"]
     if "nk" in obs:

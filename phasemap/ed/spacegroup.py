@@ -1,0 +1,703 @@
+r"""Hard-core sectors of the space group (translations x kept point group), compiled.
+
+For hard-core bosons a Fock state of L <= 62 sites is an integer (bit i = site i). The group
+G = {(v, M)} of the torus (all L translations v times the point-group operations M that map
+the torus *and the actual couplings* onto themselves, :func:`phasemap.ed.clusters.point_group`)
+acts by site permutations. For a real one-dimensional character chi of G with chi(v, M) =
+chi(M) (zero total momentum) the sector basis is
+
+.. math:: |\tilde r\rangle = \frac{1}{\sqrt{|G|\,|\mathrm{Stab}\,r|}}\sum_{g\in G}\chi(g)\,g|r\rangle ,
+
+one state per orbit whose stabiliser has chi = 1 (other orbits have no state in the sector).
+The representative r of an orbit is its smallest integer. For an operator O that commutes
+with G (the Hamiltonian, or a G-averaged observable) the matrix element is
+
+.. math:: \langle\tilde r'|O|\tilde r\rangle = \sqrt{|\mathrm{Stab}\,r'|/|\mathrm{Stab}\,r|}
+          \sum_{s = h r' \in O|r\rangle} c_s\,\chi(h) .
+
+Implementation (numba, no Python loop over states):
+
+* **Enumeration**: the C(L, N) states with N bits are walked in increasing order
+  (Gosper's next-combination, which is colexicographic rank order); a table indexed by
+  the colex rank (4 bytes per Fock state) records for every Fock state its representative
+  index times chi(h), so a state not yet seen starts a new orbit and all its images are
+  marked at once. The number of sector states is known beforehand exactly from Burnside's
+  lemma (:func:`sector_dimension`), which the memory guard uses.
+* Bit permutations and colex ranks use byte tables (five look-ups each for 36 sites).
+* **Hamiltonian**: CSR built in two parallel passes over representatives (count, fill); an
+  int8 code per entry stores bond family and character sign, so a new model on the same
+  cluster (same symmetry) only recomputes the values (scans in t reuse the sector).
+* **Lanczos** (ARPACK ``eigsh``) on a parallel compiled CSR product.
+
+Why the ground state lies in the trivial sector: with t >= 0 every off-diagonal element of H
+in the occupation basis is <= 0, so (Perron-Frobenius) a ground state psi >= 0 exists; its
+group average (1/|G|) sum_g g psi is >= 0, nonzero and an eigenvector of the same energy,
+and it lies in the trivial (chi = 1, Q = 0) sector. E0(N) from that sector is exact.
+The stiffness (linear response to a twist) uses the subgroup that leaves the twist direction
+invariant (:func:`phasemap.ed.spacegroup.stiffness`).
+
+References
+----------
+.. [1] A. Weiße and H. Fehske, Lect. Notes Phys. 739, 529 (2008) (symmetric bases).
+.. [2] A. W. Sandvik, AIP Conf. Proc. 1297, 135 (2010), sec. 4 (representatives, stabilisers).
+.. [3] R. W. Gosper, HAKMEM item 175 (1972) (next bit pattern with the same popcount).
+.. [4] W. Burnside, *Theory of groups of finite order* (1897) (orbit counting).
+"""
+
+from __future__ import annotations
+
+import math
+import time
+
+import numpy as np
+from numba import njit, prange
+
+from ..lattice import Supercell
+from ..model import Model
+from .clusters import point_group
+
+__all__ = ["SymSector", "group_permutations", "sector_dimension", "MAX_SITES"]
+
+MAX_SITES = 62
+_SENT = np.int32(-(2**31))
+_DENSE_MAX = 600
+
+
+# -- byte tables -----------------------------------------------------------------------------
+def _perm_tables(perms: np.ndarray) -> np.ndarray:
+    """ptab[g, c, b]: image bits of byte b of chunk c under permutation g (site i -> perms[g, i])."""
+    G, L = perms.shape
+    C = (L + 7) // 8
+    tab = np.zeros((G, C, 256), np.int64)
+    byte = np.arange(256)
+    for c in range(C):
+        for k in range(8):
+            i = 8 * c + k
+            if i >= L:
+                break
+            on = (byte >> k) & 1
+            tab[:, c, :] |= on[None, :].astype(np.int64) << perms[:, i][:, None].astype(np.int64)
+    return tab
+
+
+def _rank_tables(L: int) -> tuple[np.ndarray, np.ndarray]:
+    """rtab[c, m, b]: colex-rank contribution of byte b of chunk c when m bits lie below it."""
+    C = (L + 7) // 8
+    rtab = np.zeros((C, L + 1, 256), np.int64)
+    for c in range(C):
+        for m in range(L + 1):
+            for b in range(256):
+                r, j = 0, 0
+                for k in range(8):
+                    if (b >> k) & 1:
+                        r += math.comb(8 * c + k, m + j + 1)
+                        j += 1
+                rtab[c, m, b] = r
+    pc = np.array([bin(b).count("1") for b in range(256)], np.int64)
+    return rtab, pc
+
+
+_RANK_CACHE: dict = {}
+
+
+def _rank_tables_cached(L):
+    if L not in _RANK_CACHE:
+        _RANK_CACHE[L] = _rank_tables(L)
+    return _RANK_CACHE[L]
+
+
+# -- compiled kernels ------------------------------------------------------------------------
+@njit(cache=True, inline="always")
+def _permute(ptab, g, s):
+    out = np.int64(0)
+    for c in range(ptab.shape[1]):
+        out |= ptab[g, c, (s >> (8 * c)) & 255]
+    return out
+
+
+@njit(cache=True, inline="always")
+def _rank(rtab, pc, s):
+    r = np.int64(0)
+    m = 0
+    for c in range(rtab.shape[0]):
+        b = (s >> (8 * c)) & 255
+        r += rtab[c, m, b]
+        m += pc[b]
+    return r
+
+
+@njit(cache=True, inline="always")
+def _next_comb(s):
+    """Next integer with the same number of set bits (Gosper)."""
+    c = s & -s
+    r = s + c
+    return (((r ^ s) >> 2) // c) | r
+
+
+@njit(cache=True, parallel=True)
+def _flag_minimal(starts, chunk, total, ptab, table):
+    """table[rank] = 1 where the state is the smallest of its orbit; returns counts per chunk."""
+    G = ptab.shape[0]
+    nch = starts.shape[0]
+    counts = np.zeros(nch, np.int64)
+    for c in prange(nch):
+        s = starts[c]
+        r1 = min(total, (c + 1) * chunk)
+        k = 0
+        for rank in range(c * chunk, r1):
+            ok = True
+            for g in range(1, G):
+                if _permute(ptab, g, s) < s:
+                    ok = False
+                    break
+            if ok:
+                table[rank] = 1
+                k += 1
+            if rank + 1 < r1:
+                s = _next_comb(s)
+        counts[c] = k
+    return counts
+
+
+@njit(cache=True, parallel=True)
+def _collect(starts, chunk, total, table, offsets, out):
+    for c in prange(starts.shape[0]):
+        s = starts[c]
+        r1 = min(total, (c + 1) * chunk)
+        k = offsets[c]
+        for rank in range(c * chunk, r1):
+            if table[rank] == 1:
+                out[k] = s
+                k += 1
+            if rank + 1 < r1:
+                s = _next_comb(s)
+
+
+@njit(cache=True, parallel=True)
+def _stabilisers(orbits, ptab, chi, stab, ok):
+    G = ptab.shape[0]
+    for o in prange(orbits.shape[0]):
+        s = orbits[o]
+        st = 0
+        good = True
+        for g in range(G):
+            if _permute(ptab, g, s) == s:
+                st += 1
+                if chi[g] != 1:
+                    good = False
+        stab[o] = st
+        ok[o] = good
+
+
+@njit(cache=True, parallel=True)
+def _mark_orbits(orbits, index, ptab, rtab, pc, chi, table):
+    """table[rank(g r)] = chi(g) (index(r) + 1), or the sentinel for orbits outside the sector."""
+    G = ptab.shape[0]
+    sent = np.int32(-(2**31))
+    for o in prange(orbits.shape[0]):
+        s = orbits[o]
+        i = index[o]
+        for g in range(G):
+            rk = _rank(rtab, pc, _permute(ptab, g, s))
+            table[rk] = sent if i < 0 else np.int32((i + 1) * chi[g])
+
+
+def _unrank(rank: int, N: int) -> int:
+    """Integer with N set bits of colexicographic rank ``rank``."""
+    s = 0
+    for k in range(N, 0, -1):
+        c = k - 1
+        while math.comb(c + 1, k) <= rank:
+            c += 1
+        s |= 1 << c
+        rank -= math.comb(c, k)
+    return s
+
+
+def _enumerate(N, total, ptab, rtab, pc, chi, table, n_chunks=512):
+    """Representatives (smallest state of each orbit in the sector), stabilisers; fills ``table``.
+
+    Parallel: flag orbit minima (early exit at the first smaller image), collect them in
+    rank order, count stabilisers, then mark every Fock state with its representative.
+    """
+    chunk = max(1, -(-total // n_chunks))
+    starts = np.array([_unrank(c * chunk, N) for c in range(-(-total // chunk))], np.int64)
+    counts = _flag_minimal(starts, chunk, total, ptab, table)
+    offsets = np.concatenate([[0], np.cumsum(counts)[:-1]]).astype(np.int64)
+    orbits = np.empty(int(counts.sum()), np.int64)
+    _collect(starts, chunk, total, table, offsets, orbits)
+    stab = np.empty(len(orbits), np.int64)
+    ok = np.empty(len(orbits), np.bool_)
+    _stabilisers(orbits, ptab, chi, stab, ok)
+    index = np.where(ok, np.cumsum(ok) - 1, -1).astype(np.int64)
+    _mark_orbits(orbits, index, ptab, rtab, pc, chi, table)
+    return orbits[ok], stab[ok]
+
+
+@njit(cache=True, parallel=True)
+def _count_hops(reps, table, rtab, pc, ba, bb):
+    n = reps.shape[0]
+    counts = np.zeros(n + 1, np.int64)
+    sent = np.int32(-(2**31))
+    for r in prange(n):
+        s = reps[r]
+        k = 0
+        for q in range(ba.shape[0]):
+            a = ba[q]
+            b = bb[q]
+            if (s >> b) & 1 and not (s >> a) & 1:
+                t = s ^ ((np.int64(1) << a) | (np.int64(1) << b))
+                if table[_rank(rtab, pc, t)] != sent:
+                    k += 1
+        counts[r + 1] = k
+    return counts
+
+
+@njit(cache=True, parallel=True)
+def _fill_hops(reps, table, rtab, pc, ba, bb, bcode, indptr, indices, codes):
+    n = reps.shape[0]
+    sent = np.int32(-(2**31))
+    for r in prange(n):
+        s = reps[r]
+        p = indptr[r]
+        for q in range(ba.shape[0]):
+            a = ba[q]
+            b = bb[q]
+            if (s >> b) & 1 and not (s >> a) & 1:
+                t = s ^ ((np.int64(1) << a) | (np.int64(1) << b))
+                v = table[_rank(rtab, pc, t)]
+                if v != sent:
+                    if v > 0:
+                        indices[p] = v - 1
+                        codes[p] = bcode[q]
+                    else:
+                        indices[p] = -v - 1
+                        codes[p] = -bcode[q]
+                    p += 1
+
+
+@njit(cache=True, parallel=True)
+def _values(indptr, indices, codes, stab, amps, out):
+    """out[p] = sign(code) * amps[|code| - 1] * sqrt(stab[col] / stab[row])."""
+    n = indptr.shape[0] - 1
+    for r in prange(n):
+        sr = stab[r]
+        for p in range(indptr[r], indptr[r + 1]):
+            c = codes[p]
+            a = amps[abs(c) - 1] * np.sqrt(stab[indices[p]] / sr)
+            out[p] = a if c > 0 else -a
+
+
+@njit(cache=True, parallel=True)
+def _csr_matvec(indptr, indices, data, diag, x, y):
+    n = indptr.shape[0] - 1
+    for r in prange(n):
+        acc = diag[r] * x[r]
+        for p in range(indptr[r], indptr[r + 1]):
+            acc += data[p] * x[indices[p]]
+        y[r] = acc
+
+
+@njit(cache=True, parallel=True)
+def _apply_bonds(reps, table, rtab, pc, stab, ba, bb, amp, x, y):
+    """Matrix-free y = O x for a G-invariant hopping operator O = sum_q amp_q b_a^+ b_b."""
+    n = reps.shape[0]
+    sent = np.int32(-(2**31))
+    for r in prange(n):
+        s = reps[r]
+        acc = 0.0
+        for q in range(ba.shape[0]):
+            a = ba[q]
+            b = bb[q]
+            if (s >> b) & 1 and not (s >> a) & 1:
+                t = s ^ ((np.int64(1) << a) | (np.int64(1) << b))
+                v = table[_rank(rtab, pc, t)]
+                if v != sent:
+                    col = v - 1 if v > 0 else -v - 1
+                    w = amp[q] * np.sqrt(stab[col] / stab[r]) * x[col]
+                    acc += w if v > 0 else -w
+        y[r] = acc
+
+
+@njit(cache=True)
+def _bond_counts(reps, nb):
+    """counts[r, f] = number of bonds (i, nb[f, i]) with both ends occupied."""
+    n = reps.shape[0]
+    F, L = nb.shape
+    out = np.zeros((n, F), np.int16)
+    for r in range(n):
+        s = reps[r]
+        for f in range(F):
+            k = 0
+            for i in range(L):
+                k += ((s >> i) & 1) & ((s >> nb[f, i]) & 1)
+            out[r, f] = k
+    return out
+
+
+@njit(cache=True, parallel=True)
+def _pair_correlation(reps, w, tgt, nchunk):
+    """sum_r w_r sum_i n_i n_tgt[d, i] for every displacement d."""
+    D, L = tgt.shape
+    n = reps.shape[0]
+    out = np.zeros((nchunk, D))
+    for c in prange(nchunk):
+        for r in range(c * n // nchunk, (c + 1) * n // nchunk):
+            s = reps[r]
+            for d in range(D):
+                k = 0
+                for i in range(L):
+                    k += ((s >> i) & 1) & ((s >> tgt[d, i]) & 1)
+                out[c, d] += w[r] * k
+    return out.sum(0)
+
+
+# -- group -----------------------------------------------------------------------------------
+def group_permutations(cell: Supercell, ops) -> tuple[np.ndarray, np.ndarray]:
+    """Site permutations of every element (v, M) and the index of its point operation.
+
+    ``perms[g, i]`` is the site reached from site ``i``; translations run over all L lattice
+    vectors of the torus, point operations ``M`` act as ``r -> r M`` in (i, j) coordinates.
+    """
+    trans = cell.sites - cell.sites[0]
+    perms, opi = [], []
+    for k, M in enumerate(ops):
+        rot = cell.sites @ np.asarray(M)
+        for v in trans:
+            perms.append(cell.index(rot + v))
+            opi.append(k)
+    return np.array(perms, np.int64), np.array(opi, np.int64)
+
+
+def _cycle_poly(perm: np.ndarray, n_max: int) -> list[int]:
+    """Coefficients of prod_cycles (1 + x^c + ... + x^{n_max c}): fixed states per particle number."""
+    L = len(perm)
+    seen = np.zeros(L, bool)
+    poly = [1]
+    for i in range(L):
+        if seen[i]:
+            continue
+        c, j = 0, i
+        while not seen[j]:
+            seen[j] = True
+            j = perm[j]
+            c += 1
+        new = [0] * (len(poly) + n_max * c)
+        for a, v in enumerate(poly):
+            if v:
+                for k in range(n_max + 1):
+                    new[a + k * c] += v
+        poly = new
+    return poly
+
+
+def sector_dimension(perms: np.ndarray, chi: np.ndarray, N: int, n_max: int = 1) -> int:
+    """Exact number of states of the sector (Burnside: (1/|G|) sum_g chi(g) |Fix_N(g)|)."""
+    tot = 0
+    cache = {}
+    for g, p in enumerate(perms):
+        key = p.tobytes()
+        if key not in cache:
+            poly = _cycle_poly(p, n_max)
+            cache[key] = poly[N] if N < len(poly) else 0
+        tot += int(chi[g]) * cache[key]
+    if tot % len(perms):  # pragma: no cover - chi is not a character of the group
+        raise ValueError("sector_dimension: the given signs are not a character of the group")
+    return tot // len(perms)
+
+
+def det_character(ops) -> np.ndarray:
+    """+1 for proper rotations, -1 for mirrors (a one-dimensional character of any point group)."""
+    return np.array([int(round(np.linalg.det(np.asarray(M)))) for M in ops], np.int64)
+
+
+# -- the sector --------------------------------------------------------------------------------
+class SymSector:
+    """One hard-core sector of the space group at fixed N (zero momentum, real character).
+
+    Parameters
+    ----------
+    cell : Supercell
+    model : Model
+        Hard-core couplings (``t >= 0``); sets the bond families that hop and the diagonal.
+    N : int
+    ops : list of 2x2 int arrays, optional
+        Point operations kept (default: :func:`phasemap.ed.clusters.point_group`, the ones
+        that map the torus and the couplings onto themselves). Must form a group.
+    chi : array of +-1 per operation, optional
+        One-dimensional character of the point group (default trivial).
+    """
+
+    def __init__(self, cell: Supercell, model: Model, N: int, ops=None, chi=None):
+        t0 = time.perf_counter()
+        if not model.hardcore:
+            raise ValueError("SymSector: hard-core bosons only")
+        L = self.L = cell.n_sites
+        if L > MAX_SITES:
+            raise ValueError(f"SymSector: at most {MAX_SITES} sites")
+        self.cell, self.model, self.N = cell, model, int(N)
+        self.ops = [np.asarray(M) for M in (point_group(cell, model) if ops is None else ops)]
+        ident = next(k for k, M in enumerate(self.ops) if np.array_equal(M, np.eye(2)))
+        self.ops.insert(0, self.ops.pop(ident))
+        chi_op = np.ones(len(self.ops), np.int64) if chi is None else np.asarray(chi, np.int64)
+        if chi is not None:
+            chi_op = np.concatenate([[chi_op[ident]], np.delete(chi_op, ident)])
+        self.chi_op = chi_op
+        self.perms, self.opi = group_permutations(cell, self.ops)
+        self.chi = chi_op[self.opi].astype(np.int64)
+        self.dim = sector_dimension(self.perms, self.chi, self.N)
+        self.fock = math.comb(L, self.N)
+        self._rtab, self._pc = _rank_tables_cached(L)
+        ptab = _perm_tables(self.perms)
+        self.table = np.zeros(self.fock, np.int32)
+        self.states, self.stab = _enumerate(self.N, self.fock, ptab, self._rtab, self._pc, self.chi, self.table)
+        n = len(self.states)
+        if n != self.dim:  # pragma: no cover - guards the Burnside count and the enumeration
+            raise RuntimeError(f"SymSector: enumeration found {n} states, Burnside predicts {self.dim}")
+        self.enum_time = time.perf_counter() - t0
+        self._bonds_H()
+        nb = np.asarray(cell.neighbors, np.int64)
+        self.counts = _bond_counts(self.states, nb)
+        self.nnn_counts = (_bond_counts(self.states, np.asarray(cell.nnn_neighbors, np.int64)).sum(1)
+                           if model.V2 else None)
+        self.indptr = np.cumsum(_count_hops(self.states, self.table, self._rtab, self._pc, self._ba, self._bb))
+        nnz = int(self.indptr[-1])
+        self.indices = np.empty(nnz, np.int32)
+        self.codes = np.empty(nnz, np.int8)
+        _fill_hops(self.states, self.table, self._rtab, self._pc, self._ba, self._bb, self._bcode,
+                   self.indptr, self.indices, self.codes)
+        self.set_model(model)
+        self.build_time = time.perf_counter() - t0
+
+    # -- structure ---------------------------------------------------------------------------
+    def _bonds_H(self):
+        """Directed hops b_a^+ b_b of every family with t != 0 (code = family + 1)."""
+        nb = self.cell.neighbors
+        ba, bb, code = [], [], []
+        for f in range(nb.shape[0]):
+            if self.model.t[f] == 0:
+                continue
+            i = np.arange(self.L)
+            ba += [i, nb[f]]
+            bb += [nb[f], i]
+            code += [np.full(2 * self.L, f + 1)]
+        cat = lambda x, d: np.concatenate(x).astype(d) if x else np.zeros(0, d)  # noqa: E731
+        self._ba, self._bb, self._bcode = cat(ba, np.int64), cat(bb, np.int64), cat(code, np.int8)
+        self._hop_families = tuple(f for f in range(nb.shape[0]) if self.model.t[f] != 0)
+
+    @property
+    def nnz(self) -> int:
+        return int(self.indptr[-1])
+
+    @property
+    def group_order(self) -> int:
+        return len(self.perms)
+
+    def compatible(self, model: Model) -> bool:
+        """True if ``model`` can reuse this sector (same hopping families, symmetry kept)."""
+        if not model.hardcore or model.lattice != self.model.lattice:
+            return False
+        if tuple(f for f in range(len(model.t)) if model.t[f] != 0) != self._hop_families:
+            return False
+        if bool(model.V2) != bool(self.model.V2):
+            return False
+        kept = point_group(self.cell, model)
+        return all(any(np.array_equal(M, K) for K in kept) for M in self.ops)
+
+    def set_model(self, model: Model) -> None:
+        """Recompute the matrix values for new couplings on the same sector (cheap)."""
+        if model is not self.model and not self.compatible(model):
+            raise ValueError("SymSector.set_model: the model changes the symmetry or the hopping families")
+        self.model = model
+        amps = -np.asarray(model.t, float)
+        self.data = np.empty(self.nnz, np.float64)
+        _values(self.indptr, self.indices, self.codes, self.stab.astype(np.float64), amps, self.data)
+        d = self.counts.astype(np.float64) @ np.asarray(model.V, float) - model.mu * self.N
+        if self.nnn_counts is not None:
+            d = d + model.V2 * self.nnn_counts
+        self.diag = d
+
+    def matvec(self, x) -> np.ndarray:
+        x = np.ascontiguousarray(x, dtype=np.float64)
+        y = np.empty_like(x)
+        _csr_matvec(self.indptr, self.indices, self.data, self.diag, x, y)
+        return y
+
+    def matrix(self):
+        """The sector Hamiltonian as a scipy CSR matrix (for tests and small sectors)."""
+        import scipy.sparse as sp
+
+        H = sp.csr_matrix((self.data, self.indices, self.indptr), shape=(self.dim, self.dim))
+        return (H + sp.diags(self.diag)).tocsr()
+
+    def drop_table(self) -> None:
+        """Free the rank table (4 bytes per Fock state); observables need it."""
+        self.table = None
+
+    # -- eigenpairs ------------------------------------------------------------------------------
+    def solve(self, k: int = 1, tol: float = 1e-10, v0=None):
+        """Lowest ``k`` eigenpairs (energies, vectors) of the sector."""
+        from scipy.sparse.linalg import ArpackNoConvergence, LinearOperator, eigsh
+
+        n = self.dim
+        if n == 0:
+            return np.zeros(0), np.zeros((0, 0))
+        k = min(k, n)
+        if n <= _DENSE_MAX or k >= n - 1:
+            w, v = np.linalg.eigh(self.matrix().toarray())
+            return w[:k], v[:, :k]
+        op = LinearOperator((n, n), matvec=self.matvec, dtype=np.float64)
+        if v0 is None:
+            v0 = np.random.default_rng(12345).uniform(0.5, 1.5, n)  # overlaps the Perron vector
+        try:
+            w, v = eigsh(op, k=k, which="SA", tol=tol, v0=v0, ncv=max(20, 2 * k + 1))
+        except ArpackNoConvergence:
+            w, v = eigsh(op, k=k, which="SA", tol=tol, v0=v0, ncv=max(40, 4 * k + 1), maxiter=100 * n)
+        o = np.argsort(w)
+        return w[o], v[:, o]
+
+    # -- observables -------------------------------------------------------------------------
+    def apply_bonds(self, ba, bb, amp, x) -> np.ndarray:
+        """Matrix-free product with a G-invariant hopping operator sum_q amp_q b_{a_q}^+ b_{b_q}."""
+        if self.table is None:
+            raise RuntimeError("SymSector: the rank table was dropped; observables need it")
+        y = np.empty(self.dim)
+        _apply_bonds(self.states, self.table, self._rtab, self._pc, self.stab.astype(np.float64),
+                     np.asarray(ba, np.int64), np.asarray(bb, np.int64), np.asarray(amp, np.float64),
+                     np.ascontiguousarray(x, np.float64), y)
+        return y
+
+    def _displacements(self):
+        """rel (L, 2) displacement of every site from site 0; tgt[d, i] = site i + rel[d]."""
+        cell = self.cell
+        rel = cell.sites - cell.sites[0]
+        tgt = np.stack([cell.index(cell.sites + d) for d in rel])
+        return rel, tgt
+
+    def _point_images(self, rel):
+        """img[k, d] = displacement index of rel[d] M_k (for averaging over the point group)."""
+        cell = self.cell
+        return np.stack([cell.index(cell.sites[0] + rel @ M) for M in self.ops])
+
+    def density_correlation(self, vec) -> np.ndarray:
+        """C(delta) = <n_0 n_delta> (translation average, point-group symmetric)."""
+        rel, tgt = self._displacements()
+        raw = _pair_correlation(self.states, np.abs(vec) ** 2, tgt, 8) / self.L
+        img = self._point_images(rel)
+        return raw[img].mean(0)
+
+    def one_body(self, vec) -> np.ndarray:
+        """g(delta) = <b_0^+ b_delta> for every displacement (point-group averaged operator)."""
+        rel, tgt = self._displacements()
+        img = self._point_images(rel)
+        g = np.full(self.L, np.nan)
+        g[0] = self.N / self.L
+        for d in range(1, self.L):
+            if not np.isnan(g[d]):
+                continue
+            imgs = img[:, d]
+            a = np.concatenate([np.arange(self.L)] * len(imgs))
+            b = np.concatenate([tgt[e] for e in imgs])
+            amp = np.full(len(a), 1.0 / len(imgs))
+            val = float(vec @ self.apply_bonds(a, b, amp, vec)) / self.L
+            g[np.unique(imgs)] = val
+        return g
+
+
+# -- stiffness by linear response ------------------------------------------------------------------
+def _twist_bonds(sec: SymSector, unit: np.ndarray):
+    """Directed hops with theta = unit . (r_a - r_b): arrays (a, b, t, theta)."""
+    cell = sec.cell
+    lat = cell.lattice
+    D = lat.cartesian(np.array(lat.nn))
+    a, b, t, th = [], [], [], []
+    for f in range(D.shape[0]):
+        if sec.model.t[f] == 0:
+            continue
+        i = np.arange(sec.L)
+        j = cell.neighbors[f]
+        c = float(unit @ D[f])  # site j = site i + D_f: a boson moving j -> i moves by -D_f
+        a += [i, j]
+        b += [j, i]
+        t += [np.full(sec.L, sec.model.t[f])] * 2
+        th += [np.full(sec.L, -c), np.full(sec.L, c)]
+    return (np.concatenate(a), np.concatenate(b), np.concatenate(t), np.concatenate(th))
+
+
+def family_classes(cell: Supercell, ops) -> list[list[int]]:
+    """Bond families related by the kept point operations (their stiffnesses are equal)."""
+    nn = [np.array(d) for d in cell.lattice.nn]
+    classes, seen = [], set()
+    for f, d in enumerate(nn):
+        if f in seen:
+            continue
+        cls = [g for g, e in enumerate(nn)
+               if any(np.array_equal(d @ M, e) or np.array_equal(d @ M, -e) for M in ops)]
+        seen.update(cls)
+        classes.append(sorted(cls, key=lambda g: g != f))
+    return classes
+
+
+def stiffness_linear_response(sec: SymSector, tol: float = 1e-10, cg_rtol: float = 1e-10, budget=None):
+    r"""Stiffness rho_f = (1/L) d^2E0/dphi^2 at zero twist from second-order perturbation theory.
+
+    With a uniform vector potential ``A = phi e_f`` a hop by D gets :math:`e^{i\phi\,\theta}`,
+    :math:`\theta = e_f\cdot D`, so :math:`H(\phi) = H + i\phi J + \frac{\phi^2}{2}K + O(\phi^3)`
+    with J real antisymmetric (entries :math:`-t\theta`) and K symmetric (:math:`t\theta^2`), and
+
+    .. math:: \rho_f = \frac1L\Big[\langle K\rangle - 2\,b^T (H-E_0)^{-1}_{\perp} b\Big],
+              \qquad b = J\psi .
+
+    One ground state and one conjugate-gradient solve per class of symmetry-equivalent
+    families, in the sector of the subgroup that keeps e_f (translations and the mirror that
+    contains e_f), where J commutes with the group. CG error on the second term is at most
+    ``2 |x| |r|`` (x the solution, r the final residual), returned per family as ``error``.
+
+    Returns
+    -------
+    dict family name -> (rho, error, sector dimension)
+    """
+    from scipy.sparse.linalg import LinearOperator, cg
+
+    from .guard import check_budget, estimate_space_group
+
+    cell, model = sec.cell, sec.model
+    lat = cell.lattice
+    D = lat.cartesian(np.array(lat.nn))
+    out = {}
+    for cls in family_classes(cell, sec.ops):
+        f = cls[0]
+        unit = D[f] / np.linalg.norm(D[f])
+        sub = [M for M in sec.ops if np.array_equal(np.array(lat.nn[f]) @ M, np.array(lat.nn[f]))]
+        if budget is not None:
+            ps, _ = group_permutations(cell, sub)
+            dim = sector_dimension(ps, np.ones(len(ps), np.int64), sec.N)
+            check_budget(estimate_space_group(sec.L, sec.N, dim, 2 * len(sec._hop_families)), budget,
+                         what=f"stiffness sector (twist along {lat.families[f]}) N={sec.N} on {cell!r}")
+        S = SymSector(cell, model, sec.N, ops=sub)
+        w, v = S.solve(tol=tol)
+        e0, psi = float(w[0]), v[:, 0]
+        a, b_, t, th = _twist_bonds(S, unit)
+        K = float(psi @ S.apply_bonds(a, b_, t * th**2, psi))
+        rhs = S.apply_bonds(a, b_, -t * th, psi)
+        rhs -= (psi @ rhs) * psi
+        if S.dim <= 1 or not np.any(rhs):
+            second, err = 0.0, 0.0
+        else:
+            def mv(x):
+                x = x - (psi @ x) * psi
+                y = S.matvec(x) - e0 * x
+                return y - (psi @ y) * psi
+
+            op = LinearOperator((S.dim, S.dim), matvec=mv, dtype=np.float64)
+            x, info = cg(op, rhs, rtol=cg_rtol, atol=0.0, maxiter=20 * S.dim + 1000)
+            r = rhs - mv(x)
+            second = float(rhs @ x)
+            err = 2.0 * float(np.linalg.norm(x) * np.linalg.norm(r))
+            if info != 0:
+                err = max(err, abs(second))
+        rho = (K - 2.0 * second) / sec.L
+        for g in cls:
+            out[lat.families[g]] = (rho, err / sec.L, S.dim)
+        del S
+    return out
