@@ -165,19 +165,21 @@ def test_sweep_with_ed_writes_lines_and_claims_no_critical_strain(tmp_path, caps
 
 @pytest.mark.parametrize("method, extra, pattern", [
     ("ed:tri12", ",V2", r"V2 = 0.1 != 0.*ed:tri21"),           # tri12 doubles nnn bonds
-    ("ed:tri36", "", r"too large for the memory budget"),      # ED cost guard
+    ("ed:tri36", "half", r"too large for the memory budget"),  # ED cost guard (N = 17..19 of 36)
     ("ed:tri99", "", r"cluster: unknown cluster 'tri99'"),
     ("ed:sq8", "", r"cluster lattice 'square'"),
 ])
 def test_bad_ed_input_exit_2_nothing_written(tmp_path, capsys, method, extra, pattern):
     import re
 
+    frac = ["--fraction", "1/2"] if extra == "half" else []
+    extra = "" if extra == "half" else extra
     rows = [(0.0, 0.3, 6, 0.1), (0.1, 0.6, 6, 0.1)] if extra else [(0.0, 0.3, 6), (0.1, 0.6, 6)]
     p = _csv(tmp_path / "t.csv", rows, extra)
     out = tmp_path / "out"
-    assert main(["strain-sweep", str(p), "--out", str(out), "--methods", f"mf,{method}"]) == 2
+    assert main(["strain-sweep", str(p), "--out", str(out), "--methods", f"mf,{method}", *frac]) == 2
     assert re.search(pattern, capsys.readouterr().err) and not out.exists()
-    assert main(["strain-check", str(p), "--strain", "0.05", "--method", method]) == 2
+    assert main(["strain-check", str(p), "--strain", "0.05", "--method", method, *frac]) == 2
     assert re.search(pattern, capsys.readouterr().err)
 
 

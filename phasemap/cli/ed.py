@@ -32,8 +32,9 @@ def register(sub) -> None:
     p.add_argument("--cluster", default="tri12", help="library name or vectors 'i1,j1;i2,j2' (default tri12)")
     p.add_argument("--particles", default=None, metavar="N|A:B",
                    help="particle number N, or inclusive range A:B (default: all N = staircase)")
-    p.add_argument("--budget-gib", type=finite_float, default=8.0, dest="budget_gib",
-                   help="memory budget per sector in GiB; bigger sectors are refused (default 8)")
+    p.add_argument("--budget-gib", type=finite_float, default=None, dest="budget_gib",
+                   help="memory budget per sector in GiB; bigger sectors are refused with their estimate "
+                        "(default 60%% of this machine's memory, at most 16)")
     p.add_argument("--observables", default="sq", help="per-N observables in a staircase: comma list of "
                    "sq,condensate,stiffness (default sq)")
     p.add_argument("--all-momenta", action="store_true", help="diagonalise every momentum class (lists "
@@ -74,8 +75,12 @@ def _particles(text):
 
 
 def run(args) -> int:
+    from ..ed.guard import DEFAULT_BUDGET_GIB
     from ..model import ConfigError
     from ..store import check_output_folder, output_lock
+
+    if args.budget_gib is None:
+        args.budget_gib = DEFAULT_BUDGET_GIB
 
     if args.out:
         check_output_folder(args.out)  # before any solving

@@ -90,6 +90,16 @@ SECTOR_CACHE_BYTES = 2 * 2**30
 _SECTORS: dict = {}
 
 
+def sector_estimate(model: Model, cell, N: int, **kw):
+    """The memory estimate :func:`ground_state` checks for this sector (same options)."""
+    if uses_space_group(model, cell, **kw):
+        perms, _ = group_permutations(cell, point_group(cell, model))
+        dim = sector_dimension(perms, np.ones(len(perms), np.int64), N)
+        return estimate_space_group(cell.n_sites, N, dim, n_hop_dirs(model))
+    sym = kw.get("symmetric", True)
+    return estimate(cell.n_sites, N, model.n_max, n_hop_dirs(model), cell.n_sites if sym else 1)
+
+
 def space_group_sector(model: Model, cell, N: int, budget_gib=DEFAULT_BUDGET_GIB) -> SymSector:
     """The trivial sector of the kept space group at N (cached per cluster, N and symmetry)."""
     ops = point_group(cell, model)
@@ -99,9 +109,7 @@ def space_group_sector(model: Model, cell, N: int, budget_gib=DEFAULT_BUDGET_GIB
     if sec is not None and sec.compatible(model):
         sec.set_model(model)
         return sec
-    perms, _ = group_permutations(cell, ops)
-    dim = sector_dimension(perms, np.ones(len(perms), np.int64), N)
-    est = estimate_space_group(cell.n_sites, N, dim, n_hop_dirs(model))
+    est = sector_estimate(model, cell, N)
     check_budget(est, budget_gib, what=f"ED sector N={N} on {cell!r}")
     sec = SymSector(cell, model, N, ops=ops)
     sec.estimate = est

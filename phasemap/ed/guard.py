@@ -12,6 +12,7 @@ References
 from __future__ import annotations
 
 import math
+import os
 from dataclasses import dataclass
 from functools import lru_cache
 
@@ -19,8 +20,18 @@ from ..model import ConfigError
 
 __all__ = ["fock_dimension", "Estimate", "estimate", "estimate_space_group", "check_budget", "DEFAULT_BUDGET_GIB"]
 
-#: Default memory budget of one sector (GiB); override with ``budget_gib=`` / ``--budget-gib``.
-DEFAULT_BUDGET_GIB = 8.0
+def _default_budget() -> float:
+    """60 % of the physical memory, at most 16 GiB (8 GiB if the memory size is unknown)."""
+    try:
+        phys = os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES") / 2**30
+    except (ValueError, OSError, AttributeError):  # pragma: no cover - non-POSIX
+        return 8.0
+    return float(round(min(16.0, 0.6 * phys), 1))
+
+
+#: Default memory budget of one sector (GiB): 60 % of this machine's memory, at most 16 GiB;
+#: override with ``budget_gib=`` / ``--budget-gib``.
+DEFAULT_BUDGET_GIB = _default_budget()
 
 
 @lru_cache(maxsize=None)

@@ -543,6 +543,11 @@ class SymSector:
         if n == 0:
             return np.zeros(0), np.zeros((0, 0))
         k = min(k, n)
+        if self.nnz == 0:  # no hopping: the sector Hamiltonian is diagonal
+            o = np.argsort(self.diag, kind="stable")[:k]
+            v = np.zeros((n, k))
+            v[o, np.arange(k)] = 1.0
+            return self.diag[o], v
         if n <= _DENSE_MAX or k >= n - 1:
             w, v = np.linalg.eigh(self.matrix().toarray())
             return w[:k], v[:, :k]
@@ -665,6 +670,8 @@ def stiffness_linear_response(sec: SymSector, tol: float = 1e-10, cg_rtol: float
     lat = cell.lattice
     D = lat.cartesian(np.array(lat.nn))
     out = {}
+    if not sec._hop_families:  # no hopping: E0 does not depend on the twist
+        return {name: (0.0, 0.0, 0) for name in lat.families}
     for cls in family_classes(cell, sec.ops):
         f = cls[0]
         unit = D[f] / np.linalg.norm(D[f])

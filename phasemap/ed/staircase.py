@@ -32,8 +32,8 @@ import numpy as np
 from .. import __version__
 from ..model import ConfigError, Model
 from .clusters import get_cluster
-from .groundstate import check_particles, ground_state
-from .guard import DEFAULT_BUDGET_GIB
+from .groundstate import check_particles, ground_state, sector_estimate
+from .guard import DEFAULT_BUDGET_GIB, check_budget
 from .io import canonical_mu, filling_from_staircase  # noqa: F401  (filling_from_staircase public here too)
 
 __all__ = ["staircase", "filling_from_staircase", "particle_hole_shift"]
@@ -100,6 +100,10 @@ def staircase(model: Model, cluster="tri12", n_range=None, particle_hole: bool =
     L = cell.n_sites
     ns = _n_range(n_range, L, model.n_max)
     use_ph = bool(particle_hole and model.hardcore)
+    todo = [N for N in ns if not (use_ph and N > L - N and (L - N) in ns)]
+    for N in todo:  # refuse before anything is diagonalised
+        est = sector_estimate(model, cell, N, all_momenta=all_momenta, lookup=lookup)
+        check_budget(est, budget_gib, what=f"ED sector N={N} on {cell!r} (staircase; restrict --particles)")
     rec = {}
     for N in ns:
         if use_ph and N > L - N and (L - N) in rec:

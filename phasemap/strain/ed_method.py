@@ -143,8 +143,8 @@ def ed_setup(spec, models, fraction="1/3", budget_gib=None):
     doubled bonds (e.g. V2 != 0 on tri9/tri12) or sectors over the ED memory budget.
     """
     from ..ed.clusters import check_bonds, get_cluster
-    from ..ed.groundstate import n_hop_dirs
-    from ..ed.guard import DEFAULT_BUDGET_GIB, check_budget, estimate
+    from ..ed.groundstate import sector_estimate
+    from ..ed.guard import DEFAULT_BUDGET_GIB, check_budget
 
     spec = MethodSpec.parse(spec)
     if not spec.capabilities.canonical:
@@ -183,9 +183,9 @@ def ed_setup(spec, models, fraction="1/3", budget_gib=None):
             hint = (f"; the table has V2 = {m.V2:g} != 0, which {name} cannot hold (doubled next-nearest-neighbour "
                     "bonds): use ed:tri21 or ed:tri27" if m.V2 != 0 else "")
             raise ConfigError(f"method {spec.name!r}: {e}{hint}") from None
-    dirs = max(n_hop_dirs(m) for m in models)
     for n in (N - 1, N, N + 1):
-        check_budget(estimate(L, n, n_max, dirs, L), budget, what=f"ED sector N={n} on {name} ({spec.name})")
+        est = max((sector_estimate(m, cell, n) for m in models), key=lambda e: e.bytes)
+        check_budget(est, budget, what=f"ED sector N={n} on {name} ({spec.name})")
     return cell, N, budget
 
 

@@ -1,0 +1,120 @@
+"""The 36-site torus tri36 = (6,0),(0,6): exact classical limit and perturbation theory (slow).
+
+Sources:
+* exact, t = 0: the classical minimum of V sum_<ij> n_i n_j over all placements of N bosons on
+  the 6x6 triangular torus, computed here by a row-to-row transfer matrix (independent of
+  phasemap's geometry and sector code);
+* exact in the limit t -> 0: second-order perturbation theory around the sqrt3 x sqrt3 solid at
+  N = 12, derived below.
+
+Derivation of the second-order energy (hard-core bosons, nearest-neighbour V, N = L/3):
+at t = 0 the ground states at N = 12 are the three sqrt3 x sqrt3 solids (one sublattice
+s = (i - j) mod 3 filled; every triangle holds exactly one boson, so E = 0). Each boson has
+6 empty neighbours. Moving it to a neighbour (matrix element -t) puts it next to 3 sites of
+its own sublattice, one of which it just left, so it gains 2 occupied neighbours: the
+intermediate energy is 2V. The only second-order path back into the solid manifold is the
+same boson hopping back (another boson moving, or the first moving on, leaves the manifold;
+no second-order process connects two different solids), so every solid shifts by
+E2 = -(12 bosons)(6 hops) t^2 / (2V) = -36 t^2 / V, i.e. E0(N = 12) / 36 = -t^2/V + O(t^4/V^3).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from phasemap import Model
+from phasemap.ed import ground_state
+from phasemap.ed.clusters import get_cluster
+from phasemap.ed.spacegroup import SymSector
+
+pytestmark = pytest.mark.slow
+
+
+def classical_minima_6x6(V: float = 1.0) -> np.ndarray:
+    """min over configurations of V * (occupied nearest-neighbour pairs), for N = 0..36.
+
+    Sites (i, j), i, j = 0..5 periodic; bonds (i,j)-(i+1,j), (i,j)-(i,j+1), (i,j)-(i-1,j+1).
+    Rows j are 6-bit words; dynamic programming over rows with the first row fixed.
+    """
+    R = 6
+    words = np.arange(2**R)
+    pc = np.array([bin(w).count("1") for w in words])
+
+    def rotl(w):  # bit i of the result = bit i-1 of w
+        return ((w << 1) | (w >> (R - 1))) & (2**R - 1)
+
+    intra = np.array([bin(w & rotl(w)).count("1") for w in words])
+    inter = np.array([[bin(c & d).count("1") + bin(c & rotl(d)).count("1") for d in words] for c in words])
+    best = np.full(R * R + 1, np.inf)
+    for c0 in words:
+        dp = np.full((2**R, R * R + 1), np.inf)
+        dp[c0, pc[c0]] = intra[c0]
+        for _ in range(R - 1):
+            new = np.full_like(dp, np.inf)
+            for d in words:
+                cand = dp + inter[:, d][:, None]  # (prev row, n)
+                m = cand.min(0)
+                new[d, pc[d]:] = np.minimum(new[d, pc[d]:], m[: R * R + 1 - pc[d]] + intra[d])
+            dp = new
+        closing = dp + inter[:, c0][:, None]  # last row (5) to first row (0)
+        best = np.minimum(best, closing.min(0))
+    return V * best
+
+
+@pytest.fixture(scope="module")
+def minima():
+    return classical_minima_6x6()
+
+
+@pytest.fixture(scope="module")
+def sector12():
+    """The trivial space-group sector of tri36 at N = 12 (built once, ~2.9e6 states)."""
+    return SymSector(get_cluster("tri36"), Model("triangular", t=0.01, V=1.0), 12)
+
+
+def test_transfer_matrix_reference_values(minima):
+    """Sanity of the reference itself: empty, one boson, the 1/3 solid (E = 0), full lattice (3 L V)."""
+    assert minima[0] == 0 and minima[1] == 0 and minima[12] == 0 and minima[36] == 108
+    assert minima[13] == 3  # one extra boson in the solid has 3 occupied neighbours
+
+
+@pytest.mark.parametrize("N", [2, 6, 30, 31, 33, 35])
+def test_t0_energy_equals_classical_minimum(minima, N):
+    """Exact: E0(N) at t = 0 equals the brute-force classical minimum."""
+    gs = ground_state(Model("triangular", t=0.0, V=1.0), "tri36", N)
+    assert gs.e0 == pytest.approx(minima[N], abs=1e-12)
+
+
+def test_t0_N12_is_the_sqrt3_solid(sector12, minima):
+    """Exact: at t = 0 (the diagonal of the sector Hamiltonian) the N = 12 minimum is the
+    sqrt3 x sqrt3 pattern, one orbit (the three sublattices), E0 = 0, S(K)/L = 1/9."""
+    d = sector12.diag
+    assert d.min() == minima[12] == 0
+    win = np.nonzero(d == d.min())[0]
+    assert len(win) == 1
+    s = int(sector12.states[win[0]])
+    sites = [i for i in range(36) if (s >> i) & 1]
+    ij = get_cluster("tri36").sites[sites]
+    assert len(set(((ij[:, 0] - ij[:, 1]) % 3).tolist())) == 1
+    vec = np.zeros(sector12.dim)
+    vec[win[0]] = 1.0
+    C = sector12.density_correlation(vec)
+    cell = sector12.cell
+    rel = cell.sites - cell.sites[0]
+    SK = float(np.real(C @ np.exp(-2j * np.pi * (rel @ np.array([2 / 3, 1 / 3])))))
+    assert SK / 36 == pytest.approx(1 / 9, abs=1e-12)
+
+
+def test_second_order_perturbation_around_sqrt3_solid(sector12):
+    """Exact in the limit (derivation in the module docstring): E0(12)/36 = -t^2/V + O(t^4/V^3);
+    the t^2 coefficient fitted at t/V = 0.005..0.02 is -1 to 1e-4."""
+    ts = np.array([0.005, 0.01, 0.015, 0.02])
+    E = []
+    for t in ts:
+        sector12.set_model(Model("triangular", t=float(t), V=1.0))
+        w, _ = sector12.solve(tol=1e-13)
+        E.append(w[0] / 36)
+    A = np.stack([ts**2, ts**4, ts**6], 1)
+    coef = np.linalg.lstsq(A, np.array(E), rcond=None)[0]
+    assert abs(coef[0] + 1.0) < 1e-4
