@@ -68,7 +68,7 @@ class Estimate:
 
     def describe(self) -> str:
         return (f"L={self.L}, N={self.N}, n_max={self.n_max}: {self.fock:.4g} Fock states, "
-                f"{'~' if self.kind.startswith('per') else ''}{self.sector:.4g} {self.kind}, ~{self.hops:.3g} hopping entries, "
+                f"{f'~{self.sector:.4g}' if self.kind.startswith('per') else self.sector} {self.kind}, ~{self.hops:.3g} hopping entries, "
                 f"estimated peak memory {self.gib:.3g} GiB")
 
 
