@@ -706,5 +706,4 @@ def stiffness_linear_response(sec: SymSector, tol: float = 1e-10, cg_rtol: float
         rho = (K - 2.0 * second) / sec.L
         for g in cls:
             out[lat.families[g]] = (rho, err / sec.L, S.dim)
-        del S
     return out
