@@ -125,3 +125,20 @@ def test_guard_uses_exact_sector_dimension():
     with pytest.raises(ConfigError, match="2905462 in the space-group sector") as e:
         ground_state(m, "tri36", 12, budget_gib=1.0)
     assert "budget" in str(e.value)
+
+
+def test_point_no_stiffness_flag(capsys):
+    """CLI: --no-stiffness drops the stiffness of an ED point; refused for a method without one."""
+    import json
+
+    from phasemap.cli import main
+
+    args = ["point", "--t", "0.1", "--V", "1", "--hardcore", "--method", "ed", "--cluster", "tri12",
+            "--particles", "4", "--json"]
+    assert main(args) == 0
+    assert "stiffness" in json.loads(capsys.readouterr().out)["order"]
+    assert main(args + ["--no-stiffness"]) == 0
+    order = json.loads(capsys.readouterr().out)["order"]
+    assert "stiffness" not in order and "S(K)/N" in order
+    assert main(["point", "--t", "0.1", "--V", "1", "--hardcore", "--mu", "1", "--no-stiffness"]) == 2
+    assert "--no-stiffness" in capsys.readouterr().err

@@ -31,6 +31,10 @@ def register(sub) -> None:
     p.add_argument("--T", type=float, default=None, metavar="T",
                    help="temperature in the model's energy unit (methods with a finite-temperature mode: "
                         "mf, cmf, qmc); default 0 = ground state (qmc: beta doubled until observables settle)")
+    p.add_argument("--no-stiffness", action="store_true",
+                   help="ed: skip the superfluid stiffness; it needs one more ground state and a linear solve in the "
+                        "sector of a smaller symmetry group (several times larger) and is the dominant cost of an ED "
+                        "point (on tri36 that sector exceeds the default memory budget: use this flag there)")
     p.add_argument("--json", action="store_true", help="print the Solution as JSON")
     g = p.add_argument_group("Monte Carlo methods (qmc)")
     g.add_argument("--sweeps", type=int, default=None, help="measured sweeps per chain")
@@ -71,6 +75,10 @@ def run(args) -> int:
         if not allowed:
             raise ConfigError(f"--{flag}: only used with a Monte Carlo method such as qmc ({impl.name} is deterministic)")
         opts[flag] = value
+    if args.no_stiffness:
+        if impl.name != "ed":
+            raise ConfigError(f"--no-stiffness: only used with --method ed ({impl.name} computes no stiffness)")
+        opts["observables"] = ("sq", "condensate")
     try:
         sol = solve(model, method=impl.name, **opts)
     except ImportError as e:
