@@ -142,3 +142,14 @@ def test_point_no_stiffness_flag(capsys):
     assert "stiffness" not in order and "S(K)/N" in order
     assert main(["point", "--t", "0.1", "--V", "1", "--hardcore", "--mu", "1", "--no-stiffness"]) == 2
     assert "--no-stiffness" in capsys.readouterr().err
+
+
+def test_stiffness_sector_over_budget_is_skipped_with_its_estimate():
+    """The stiffness sector (smaller group, larger sector) over the budget: no stiffness, a flag
+    with the estimate, everything else computed (how tri36 runs at the default budget)."""
+    m = Model("triangular", t=0.1, V=1.0)
+    sol = solve_ed(m, cluster="tri21", particles=7, budget_gib=0.003, neighbors=False)
+    assert "stiffness" not in sol.order and "S(K)/N" in sol.order
+    flag = next(f for f in sol.flags if f.startswith("stiffness not computed"))
+    assert "stiffness sector" in flag and "GiB" in flag
+    assert solve_ed(m, cluster="tri21", particles=7, budget_gib=0.1, neighbors=False).order["stiffness"] > 0

@@ -34,7 +34,7 @@ def register(sub) -> None:
     p.add_argument("--no-stiffness", action="store_true",
                    help="ed: skip the superfluid stiffness; it needs one more ground state and a linear solve in the "
                         "sector of a smaller symmetry group (several times larger) and is the dominant cost of an ED "
-                        "point (on tri36 that sector exceeds the default memory budget: use this flag there)")
+                        "point (on tri36 that sector exceeds the default memory budget and is skipped with a flag)")
     p.add_argument("--json", action="store_true", help="print the Solution as JSON")
     g = p.add_argument_group("Monte Carlo methods (qmc)")
     g.add_argument("--sweeps", type=int, default=None, help="measured sweeps per chain")

@@ -180,6 +180,8 @@ def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Soluti
     converged = bool(gs.residual <= RESIDUAL_TOL * max(1.0, abs(gs.e0)))
     if not converged:
         flags.append(f"eigensolver residual {gs.residual:.1e} above {RESIDUAL_TOL:g} x max(1, |E0|)")
+    if "stiffness_skipped" in obs:
+        flags.append("stiffness not computed: " + obs["stiffness_skipped"])
     if len(gs.degenerate) > 1:
         flags.append("degenerate-momenta " + ",".join(gs.degenerate))
     lam = obs.get("lambda_max", math.nan)
