@@ -1,8 +1,10 @@
 r"""Exact diagonalization as a method of the strain workflow (canonical, finite periodic cluster).
 
 For every interpolated model ED on a periodic cluster of L sites containing K (tri12 by
-default; tri21, tri27; larger clusters are refused by the ED cost guard,
-:mod:`phasemap.ed.guard`) gives the *finite-cluster* step of the staircase at
+default; tri21, tri27, tri36; sectors over the memory budget are refused with their estimate by
+the ED cost guard, :mod:`phasemap.ed.guard` — on a 23-GiB machine tri36 runs for isotropic
+couplings and is refused under strain, where the smaller symmetry group makes the N = 13 sector
+~22.6 GiB) gives the *finite-cluster* step of the staircase at
 :math:`N = fL` (f = 1/3 by default):
 
 .. math:: \mu_-(N) = E_c(N) - E_c(N-1),\qquad \mu_+(N) = E_c(N+1) - E_c(N),\qquad
@@ -167,7 +169,7 @@ def ed_setup(spec, models, fraction="1/3", budget_gib=None):
     K = np.array([float(x) for x in lat.special_q["K"]])
     if not np.any(np.all(np.abs(np.mod(cell.momenta - K + 0.5, 1) - 0.5) < 1e-9, axis=1)):
         raise ConfigError(f"method {spec.name!r}: cluster {name} does not contain K = (2/3, 1/3); use a "
-                          "K-compatible cluster (tri12, tri21, tri27)")
+                          "K-compatible cluster (tri12, tri21, tri27, tri36)")
     Nf = Fraction(lab) * L
     if Nf.denominator != 1:
         raise ConfigError(f"fraction: filling {lab} of the {L}-site cluster {name} is not an integer number of "
