@@ -4,8 +4,9 @@ Decision table (DESIGN.md §3), with documented thresholds (:class:`Thresholds`)
 
 * ``max |<b>| > condensate_tol``: compressible; *superfluid* if the density contrast
   (largest difference between symmetry-equivalent sites) ``<= contrast_tol``, else *supersolid*.
-* otherwise (no condensate): *empty* if n = 0, *full* if n = n_max for hard-core,
-  *mott* if uniform with integer n, *solid* if density-modulated. A state with zero
+* otherwise (no condensate): *empty* if n = 0, *full* if n = n_max (hard-core: n = 1;
+  soft-core: every site at the occupation cut-off, labelled as such and never as the Mott lobe
+  n = n_max, which the truncation cannot tell from n_max + 1), *mott* if uniform with integer n, *solid* if density-modulated. A state with zero
   condensate whose pattern is not one of the named ones keeps its actual pattern
   (``pattern="other"``) and is labelled by its filling only.
 * at a temperature T > 0: a uniform state without condensate at non-integer filling is the
@@ -170,6 +171,10 @@ def classify_arrays(model, cell: Supercell, densities, condensate, converged,
                 phase[p] = label[p] = "empty"
             elif model.hardcore and k == 1:
                 phase[p] = label[p] = "full"
+            elif k >= model.n_max:
+                # every site at the occupation cut-off: the truncation is saturated, so this is not
+                # the n = n_max Mott lobe (n_max + 1 may be lower in energy); never named as one
+                phase[p], label[p] = "full", f"full n={k} = cut-off n_max (raise n_max)"
             else:
                 phase[p], label[p] = "mott", f"mott n={k}"
         elif not modulated[p] and hot[p]:

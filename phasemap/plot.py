@@ -192,10 +192,16 @@ def plot_phase_map(ds, width="single", title=None, boundaries=True, region_names
         ax.pcolormesh(_edges(X), _edges(Y), codes.T, cmap=cmap, norm=norm, shading="flat", rasterized=True)
         if "unconverged" in colors:
             _hatch_cells(ax, lab == "unconverged", _edges(X), _edges(Y))
+        cut = np.asarray(ds["cutoff"].transpose(xn, yn).values, bool) if "cutoff" in ds else None
+        if cut is not None and cut.any():
+            gx, gy = np.meshgrid(X, Y, indexing="ij")
+            ax.plot(gx[cut], gy[cut], "+", color="#d95f02", ms=2.5, mew=0.4)
         if region_names:
             _region_labels(ax, codes, names, colors, X, Y)
         handles = [Patch(facecolor=colors[n], edgecolor="0.3", linewidth=0.3,
                          hatch=UNCONVERGED_HATCH if n == "unconverged" else None, label=n) for n in names]
+        if cut is not None and cut.any():
+            handles.append(Line2D([], [], ls="", marker="+", color="#d95f02", label="n_max cut-off matters"))
         bx, by = f"boundary_{xn}", f"boundary_{yn}"
         if boundaries and bx in ds and ds[bx].size:
             if "boundary_first_order" in ds:
@@ -265,12 +271,17 @@ def plot_filling_curve(ds, width="single", title=None) -> Figure:
         FigureCanvasAgg(fig)
         ax = fig.add_subplot()
         for p in plateaus:
-            a, b = max(_num(p.get("mu_lo"), lo), lo), min(_num(p.get("mu_hi"), hi), hi)
+            a, b = _num(p.get("mu_lo"), lo), _num(p.get("mu_hi"), hi)
+            a = _num(p.get("mu_lo_bound"), lo) if math.isnan(a) else a  # flagged edge: draw its bound
+            b = _num(p.get("mu_hi_bound"), hi) if math.isnan(b) else b
+            a, b = max(a, lo), min(b, hi)
             if b <= a:
                 continue
-            ax.axvspan(a, b, color=colors.get(p.get("label"), "0.9"), alpha=0.45, lw=0)
-            ax.text(0.5 * (a + b), float(p["filling"]) + 0.03 * max(1.0, n.max()), p["fraction"],
-                    ha="center", va="bottom", fontsize=6.5)
+            flagged = bool(p.get("flagged", False))
+            ax.axvspan(a, b, color=colors.get(p.get("label"), "0.9"), alpha=0.45, lw=0,
+                       hatch="////" if flagged else None)
+            ax.text(0.5 * (a + b), float(p["filling"]) + 0.03 * max(1.0, n.max()),
+                    p["fraction"] + ("?" if flagged else ""), ha="center", va="bottom", fontsize=6.5)
         # break the line at first-order jumps
         xs, ys = list(mu), list(n)
         for jmp in sorted(jumps, key=lambda j: -j["mu"]):
@@ -280,6 +291,10 @@ def plot_filling_curve(ds, width="single", title=None) -> Figure:
         ax.plot(xs, ys, "-", color="k", lw=1.0, label="n(μ)")
         if (~conv).any():
             ax.plot(mu[~conv], n[~conv], "x", color="0.5", ms=3, label="unconverged")
+        if "cutoff" in ds and np.asarray(ds["cutoff"].values, bool).any():
+            cut = np.asarray(ds["cutoff"].values, bool)
+            ax.plot(mu[cut], n[cut], "+", color="#d95f02", ms=3, mew=0.5, label="n_max cut-off matters")
+        jumps = [j for j in jumps if j.get("status", "found") == "found"]  # others are not results
         for k, jmp in enumerate(jumps):
             ax.plot([jmp["mu"]] * 2, [jmp["n_below"], jmp["n_above"]], ":", color="#b2182b", lw=0.9,
                     label="first-order jump" if k == 0 else None)

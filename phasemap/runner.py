@@ -4,8 +4,10 @@ Output folder layout for a scan named ``NAME`` of a config ``CFG.toml``::
 
     NAME.nc              labelled data (maps and curves), NetCDF-4
     NAME.csv             curves only: one row per chemical potential, metadata in the header
-    NAME_plateaus.csv    curves only: plateau table (fraction, label, mu_lo, mu_hi, width)
-    NAME_jumps.csv       curves only: first-order jumps (mu, n_below, n_above, from, to)
+    NAME_plateaus.csv    curves only: plateau table (fraction, label, mu_lo, mu_hi, width, edge statuses:
+                         refined / grid / unbounded / beyond the window / next to an unconverged
+                         point; bounds and ``flagged`` for edges that are not results)
+    NAME_jumps.csv       curves only: jumps (mu, n_below, n_above, from, to, status: found or not)
     NAME.png, NAME.pdf   figures
     CFG.config.toml      the resolved configuration (all defaults filled in)
     .checkpoint/NAME/    per-chunk checkpoint of an unfinished map (removed when done)
@@ -77,16 +79,18 @@ def curve_tables(ds) -> tuple[dict, dict, dict]:
     """Columns of the per-point, plateau and jump CSV tables of a filling-curve Dataset."""
     point_cols = {"mu": ds["mu"].values}
     for k in ("filling", "energy", "label", "phase_code", "converged", "condensate_max", "contrast", "sq_max",
-              "iterations", "residual", "top_weight"):
+              "iterations", "residual", "top_weight", "cutoff"):
         if k in ds:
             point_cols[k] = ds[k].values
     plateaus = json.loads(ds.attrs.get("plateaus", "[]"))
     jumps = json.loads(ds.attrs.get("jumps", "[]"))
-    pl_keys = ("fraction", "filling", "label", "mu_lo", "mu_hi", "width")
-    pl = {k: np.array([p[k] for p in plateaus], dtype=object if k in ("fraction", "label") else float)
-          for k in pl_keys}
-    j_keys = ("mu", "n_below", "n_above", "from", "to")
-    jm = {k: np.array([j[k] for j in jumps], dtype=object if k in ("from", "to") else float) for k in j_keys}
+    pl_keys = ("fraction", "filling", "label", "mu_lo", "mu_hi", "width", "lo_status", "hi_status", "mu_lo_bound",
+               "mu_hi_bound", "width_at_least", "flagged")
+    text = ("fraction", "label", "lo_status", "hi_status")
+    pl = {k: np.array([p.get(k, "") for p in plateaus], dtype=object if k in text else float) for k in pl_keys}
+    j_keys = ("mu", "n_below", "n_above", "from", "to", "status")
+    jm = {k: np.array([j.get(k, "found") for j in jumps], dtype=object if k in ("from", "to", "status") else float)
+          for k in j_keys}
     return point_cols, pl, jm
 
 
@@ -126,13 +130,20 @@ def _write(cfg: RunConfig, scan: ScanSpec, ds, out: Path) -> list[Path]:
 
 
 def _summary(scan: ScanSpec, ds, curve) -> str:
+    from .scan import plateau_text
+
+    flags = json.loads(ds.attrs.get("flags", "[]"))
+    tail = "".join(f"\n  FLAG: {f}" for f in flags)
     if curve is not None:
-        pl = ", ".join(f"{p['fraction']} [{p['mu_lo']:.4g}, {p['mu_hi']:.4g}]" for p in curve.plateaus)
-        return f"{scan.name}: {len(curve.mu)} points; plateaus {pl or 'none'}; {len(curve.jumps)} first-order jump(s)"
+        pl = ", ".join(plateau_text(p) for p in curve.plateaus)
+        found = len(curve.found_jumps)
+        odd = len(curve.jumps) - found
+        jumps = f"{found} first-order jump(s)" + (f" (+{odd} next to unconverged points: not found)" if odd else "")
+        return f"{scan.name}: {len(curve.mu)} points; plateaus {pl or 'none'}; {jumps}{tail}"
     labels, counts = np.unique(ds["label"].values, return_counts=True)
     parts = ", ".join(f"{lab} {c}" for lab, c in sorted(zip(labels, counts), key=lambda x: -x[1]))
     nb = ds.sizes.get("bpoint", 0)
-    return f"{scan.name}: {ds['label'].size} points ({parts}); {nb} refined boundary points"
+    return f"{scan.name}: {ds['label'].size} points ({parts}); {nb} refined boundary points{tail}"
 
 
 def run(cfg: RunConfig, out=None, resume: bool = False, restart: bool = False, progress: bool = True,

@@ -61,7 +61,33 @@ def evaluate(batch: ParamBatch, method="mf", options=None, thresholds=Thresholds
             if checkpoint is not None:
                 checkpoint.save(ci, part)
         parts.append(part)
-    return {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
+    flat = {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
+    flat["cutoff"] = _cutoff_matters(batch.hardcore, flat["top_weight"], impl.options(options))
+    return flat
+
+
+def _cutoff_matters(hardcore, top_weight, options):
+    """Soft-core points whose top occupation n_max carries more weight than ``weight_warn``."""
+    if hardcore:
+        return np.zeros(np.shape(top_weight), bool)
+    return np.asarray(top_weight) > _weight_warn(options)
+
+
+def _weight_warn(options) -> float:
+    return float(getattr(options, "weight_warn", None) or 1e-3)
+
+
+def _cutoff_flags(model, flat, flags, ds, options) -> None:
+    """Say in ``flags`` and in ``ds`` (variable ``cutoff``, attrs) where the cut-off n_max matters."""
+    cut = np.asarray(flat["cutoff"], bool)
+    ds["cutoff"].attrs["long_name"] = "occupation cut-off n_max matters (top-occupation weight > weight_warn)"
+    if model.hardcore or not cut.any():
+        return
+    full = np.char.find(np.asarray(flat["label"]).astype(str), "cut-off") >= 0
+    flags.append(f"occupation cut-off matters at {int(cut.sum())} of {cut.size} points (top-occupation weight > "
+                 f"{_weight_warn(options):g}, variable 'cutoff'"
+                 + (f"; {int(full.sum())} at n = n_max = {model.n_max} everywhere are labelled 'full ... = "
+                    f"cut-off', not the Mott lobe n={model.n_max}" if full.any() else "") + "): results there are not converged in n_max; raise n_max")
 
 
 def _extract(res, thresholds):
@@ -172,6 +198,13 @@ def phase_map(model: Model, x=("t", None), y=("mu", None), relative=True, method
             dn = np.gradient(flat["filling"].reshape(shape), mu, axis=axis)
             ds["compressibility"] = ((xn, yn), dn)
             ds["compressibility"].attrs["units"] = f"1/{model.unit}"
+    flags = []
+    unconv = ~np.asarray(flat["converged"], bool)
+    if unconv.any():
+        flags.append(f"{int(unconv.sum())} of {unconv.size} points unconverged (phase 'unconverged'; excluded "
+                     "from boundaries)")
+    _cutoff_flags(batch.base, flat, flags, ds, resolve(method, options)[0].options(options))
+    ds.attrs["flags"] = json.dumps(flags)
     if refine:
         bd = refine_boundaries(model, ds, relative=relative, method=method, options=options,
                                thresholds=thresholds, tol=refine_tol, progress=progress)
@@ -289,13 +322,25 @@ class FillingCurve:
     mu, filling : ndarray
         Chemical potential (in the units of the scan: ratio or absolute) and filling.
     plateaus : list of dict
-        ``{"filling": float, "fraction": "1/3", "label": str, "mu_lo": float, "mu_hi": float,
-        "width": float}`` — incompressible regions with refined edges.
+        ``{"filling", "fraction": "1/3", "label", "mu_lo", "mu_hi", "width", "lo_status",
+        "hi_status", "mu_lo_bound", "mu_hi_bound", "width_at_least", "flagged"}`` — incompressible
+        regions. An edge's status is ``"refined"`` (bisected to ``tol``), ``"grid"`` (``refine``
+        off), ``"unbounded"`` (exact: empty below / hard-core full above the window extend to
+        infinity), ``"beyond the window"`` (the scan window cuts the plateau) or ``"next to an
+        unconverged point"``. Only refined, grid and unbounded edges give ``mu_lo`` / ``mu_hi``;
+        the others are NaN, with the innermost known value in ``mu_lo_bound`` / ``mu_hi_bound``
+        (the plateau extends at least that far) and ``flagged`` true.
     jumps : list of dict
-        First-order discontinuities ``{"mu": float, "n_below": float, "n_above": float,
-        "from": label, "to": label}`` (filling jump surviving bisection).
+        First-order discontinuities ``{"mu", "n_below", "n_above", "from", "to", "status"}``
+        (filling jump surviving bisection: status ``"found"``; a step whose bracket ends on an
+        unconverged point: status ``"next to an unconverged point"``, not a result).
     dataset : xarray.Dataset
         All per-point data (labels, densities, condensates, energies, convergence).
+    unresolved : list of dict
+        ``{"mu_lo", "mu_hi", "points"}``: stretches of unconverged points (a plateau edge or a
+        jump may hide there).
+    flags : list of str
+        Curve-level warnings (unconverged points, flagged edges, occupation cut-off).
     """
 
     mu: np.ndarray
@@ -303,10 +348,17 @@ class FillingCurve:
     plateaus: list = field(default_factory=list)
     jumps: list = field(default_factory=list)
     dataset: xr.Dataset | None = None
+    unresolved: list = field(default_factory=list)
+    flags: list = field(default_factory=list)
 
     @property
     def labels(self):
         return self.dataset["label"].values
+
+    @property
+    def found_jumps(self) -> list:
+        """The jumps that are results (status "found")."""
+        return [j for j in self.jumps if j["status"] == "found"]
 
     def plateau(self, fraction: str):
         """The plateau with the given filling fraction label (e.g. "1/3"), or None."""
@@ -356,27 +408,21 @@ def filling_curve(model: Model, mu=None, relative=True, method="mf", options=Non
             if phases[start] in INCOMPRESSIBLE and conv[start]:
                 runs.append((start, i - 1))
             start = i
-    # edges to refine: (inside index, outside index)
+    # edges to refine: (inside index, outside index); never towards an unconverged neighbour
     seg_a, seg_b, seg_lab = [], [], []
     for s, e in runs:
-        if s > 0:
-            seg_a.append(mu[s]), seg_b.append(mu[s - 1]), seg_lab.append(labels[s])
-        if e < len(mu) - 1:
-            seg_a.append(mu[e]), seg_b.append(mu[e + 1]), seg_lab.append(labels[e])
+        for inside, outside in ((s, s - 1), (e, e + 1)):
+            if 0 <= outside < len(mu) and conv[outside]:
+                seg_a.append(mu[inside]), seg_b.append(mu[outside]), seg_lab.append(labels[inside])
     edges = {}
     if refine and seg_a:
-        lo, hi, _, _, _ = bisect_labels(model, names, np.array(seg_a)[:, None], np.array(seg_b)[:, None],
-                                        np.array(seg_lab), relative, method, options, thresholds, tol, progress)
+        lo, hi, _, fhi, _ = bisect_labels(model, names, np.array(seg_a)[:, None], np.array(seg_b)[:, None],
+                                          np.array(seg_lab), relative, method, options, thresholds, tol, progress)
         for k, (x, yv) in enumerate(zip(seg_a, seg_b)):
-            edges[(x, yv)] = 0.5 * (lo[k, 0] + hi[k, 0])
+            # the bracket's outer end must be a converged state of another phase, else not found
+            edges[(x, yv)] = (0.5 * (lo[k, 0] + hi[k, 0]), EDGE_REFINED if fhi["converged"][k] else EDGE_UNCONVERGED)
     for s, e in runs:
-        lo_edge = edges.get((mu[s], mu[s - 1]), mu[s]) if s > 0 else -math.inf
-        hi_edge = edges.get((mu[e], mu[e + 1]), mu[e]) if e < len(mu) - 1 else math.inf
-        curve.plateaus.append({
-            "filling": float(n[s]), "fraction": filling_label(n[s], thresholds.max_denominator),
-            "label": str(labels[s]), "mu_lo": float(lo_edge), "mu_hi": float(hi_edge),
-            "width": float(hi_edge - lo_edge),
-        })
+        curve.plateaus.append(_plateau(model, mu, n, labels, phases, conv, s, e, edges, refine, thresholds))
     # first-order jumps: neighbouring points with a filling step, bisected on the filling
     dn = np.abs(np.diff(n))
     slope = dn / np.diff(mu)
@@ -388,13 +434,72 @@ def filling_curve(model: Model, mu=None, relative=True, method="mf", options=Non
                                                 thresholds, tol, progress, key="filling", ref_b=n[cand + 1],
                                                 jump_tol=jump_tol)
         for k, i in enumerate(cand):
-            if first[k]:
+            ok = bool(flo["converged"][k] and fhi["converged"][k])
+            if first[k] or not ok:
                 curve.jumps.append({"mu": float(0.5 * (lo[k, 0] + hi[k, 0])), "n_below": float(flo["filling"][k]),
                                     "n_above": float(fhi["filling"][k]), "from": str(flo["label"][k]),
-                                    "to": str(fhi["label"][k])})
+                                    "to": str(fhi["label"][k]), "status": "found" if ok else EDGE_UNCONVERGED})
+    # unconverged stretches: a plateau edge or a jump may hide there; say so
+    bad = np.nonzero(~np.asarray(conv, bool))[0]
+    if len(bad):
+        groups = np.split(bad, np.nonzero(np.diff(bad) > 1)[0] + 1)
+        curve.unresolved = [{"mu_lo": float(mu[max(g[0] - 1, 0)]), "mu_hi": float(mu[min(g[-1] + 1, len(mu) - 1)]),
+                             "points": int(len(g))} for g in groups]
+        curve.flags.append(f"{len(bad)} of {len(mu)} points unconverged (phase 'unconverged'); plateau edges and "
+                           "jumps next to them are flagged, not found, and a jump may hide in "
+                           + ", ".join(f"[{u['mu_lo']:.4g}, {u['mu_hi']:.4g}]" for u in curve.unresolved)
+                           + " (raise [solver] max_iter)")
+    if any(p["flagged"] for p in curve.plateaus) or any(j["status"] != "found" for j in curve.jumps):
+        curve.flags.append("flagged plateau edges or jumps: see their status (beyond the window / next to an "
+                           "unconverged point); their mu values are bounds, not results")
+    _cutoff_flags(batch.base, flat, curve.flags, ds, resolve(method, options)[0].options(options))
+    ds.attrs["unresolved"] = json.dumps(curve.unresolved)
+    ds.attrs["flags"] = json.dumps(curve.flags)
     ds.attrs["plateaus"] = json.dumps(curve.plateaus)
     ds.attrs["jumps"] = json.dumps(curve.jumps)
     return curve
+
+
+EDGE_REFINED, EDGE_GRID, EDGE_UNBOUNDED = "refined", "grid", "unbounded"
+EDGE_WINDOW, EDGE_UNCONVERGED = "beyond the window", "next to an unconverged point"
+#: Edge statuses whose mu value is a result; the others are bounds only.
+EDGE_FOUND = (EDGE_REFINED, EDGE_GRID, EDGE_UNBOUNDED)
+
+
+def _plateau(model, mu, n, labels, phases, conv, s, e, edges, refine, thresholds) -> dict:
+    """The plateau record of the run of grid points s..e (see :class:`FillingCurve`)."""
+    def edge(inside, outside, end_phase):
+        if not 0 <= outside < len(mu):
+            # n(mu) is monotone: empty stays empty below, hard-core full stays full above
+            return (math.copysign(math.inf, outside), EDGE_UNBOUNDED) if phases[inside] == end_phase else \
+                (math.nan, EDGE_WINDOW)
+        if not conv[outside]:
+            return math.nan, EDGE_UNCONVERGED
+        if not refine:
+            return float(mu[inside]), EDGE_GRID
+        x, status = edges[(mu[inside], mu[outside])]
+        return (float(x), status) if status == EDGE_REFINED else (math.nan, status)
+
+    lo, lo_st = edge(s, s - 1, "empty")
+    hi, hi_st = edge(e, e + 1, "full" if model.hardcore else "")
+    lo_b = lo if lo_st in EDGE_FOUND else float(mu[s])
+    hi_b = hi if hi_st in EDGE_FOUND else float(mu[e])
+    return {"filling": float(n[s]), "fraction": filling_label(n[s], thresholds.max_denominator),
+            "label": str(labels[s]), "mu_lo": float(lo), "mu_hi": float(hi), "width": float(hi - lo),
+            "lo_status": lo_st, "hi_status": hi_st, "mu_lo_bound": float(lo_b), "mu_hi_bound": float(hi_b),
+            "width_at_least": float(hi_b - lo_b),
+            "flagged": bool(lo_st not in EDGE_FOUND or hi_st not in EDGE_FOUND)}
+
+
+def plateau_text(p: dict) -> str:
+    """``1/3 [0.1029, 2.632]``, with flagged edges spelled out (``beyond the window (> 2)``)."""
+    def one(side):
+        st, x, b = p[f"{side}_status"], p[f"mu_{side}"], p[f"mu_{side}_bound"]
+        if st in EDGE_FOUND:
+            return f"{x:.4g}"
+        rel = "<" if side == "lo" else ">"
+        return f"{st} ({rel} {b:.4g})" if st == EDGE_WINDOW else f"not found: {st} (plateau reaches {b:.4g})"
+    return f"{p['fraction']} [{one('lo')}, {one('hi')}]"
 
 
 def filling_curves(model, mu, methods=("mf",)) -> tuple[dict, list]:
