@@ -321,11 +321,15 @@ def _scan(where: str, d, model: Model, default_name: str) -> ScanSpec:
             raise ConfigError(f"{where}.x.name: a filling curve scans 'mu', got {s.x.name!r}")
         s.edge_tol = _number(f"{where}.edge_tol", d.get("edge_tol", 1e-6), 0.0, 1.0, lo_open=True)
         s.jump_tol = _number(f"{where}.jump_tol", d.get("jump_tol", 1e-3), 0.0, 1.0, lo_open=True)
-    grid(model, axes, relative=s.relative)  # every scanned point is a valid model (raises ConfigError)
+    batch, _ = grid(model, axes, relative=s.relative)  # every scanned point is a valid model (raises ConfigError)
     if (s.T or "T" in axes) and not impl.capabilities.temperature:
         ok = [n for n in available() if get_method(n).capabilities.temperature]
         raise ConfigError(f"{where}: a temperature (T) needs a method with a finite-temperature mode "
                           f"({', '.join(ok)}); {impl.name!r} has none")
+    try:  # memory guard before anything is written (e.g. a huge n_max)
+        impl.max_points(batch.base, {"cluster": s.cluster} if s.cluster is not None else None)
+    except ConfigError as e:
+        raise ConfigError(f"[model] {e} (scan {s.name})") from None
     return s
 
 
@@ -423,15 +427,13 @@ def parse_config(data: dict, name: str = "run", source: str = "") -> RunConfig:
 
 def load_config(path) -> RunConfig:
     """Read and validate the TOML run config at ``path``."""
+    from .store import read_input_text
+
     path = Path(path)
-    if not path.is_file():
-        raise ConfigError(f"config: file {str(path)!r} does not exist")
     try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
+        data = tomllib.loads(read_input_text(path, "config"))
     except tomllib.TOMLDecodeError as e:
         raise ConfigError(f"config: {path.name} is not valid TOML ({e})") from None
-    except UnicodeDecodeError:
-        raise ConfigError(f"config: {path.name} is not UTF-8 text") from None
     return parse_config(data, name=path.stem, source=str(path))
 
 

@@ -44,7 +44,7 @@ from .lattice import Supercell, search_cell
 from .params import ParamBatch
 from .seeds import Seed, make_seeds
 
-__all__ = ["MFOptions", "MFBatchResult", "solve_batch", "insulator_instability", "unstable_insulators", "CellOps"]
+__all__ = ["MFOptions", "MFBatchResult", "solve_batch", "max_points", "MEMORY_BUDGET", "insulator_instability", "unstable_insulators", "CellOps"]
 
 
 @dataclass(frozen=True)
@@ -370,6 +370,33 @@ def _finish(ops, batch, x_out, conv, iters, resid, G, t, V, V2, mu, U, T, P, K, 
     sh = (P, K)
     return (E.reshape(sh), conv.reshape(sh), iters.reshape(sh), resid.reshape(sh),
             n.reshape(P, K, S), ph.reshape(P, K, S), top.max(axis=1).reshape(sh), Sbar.reshape(sh))
+
+
+#: Memory (bytes) the batched soft-core eigen-solves of one call may take.
+MEMORY_BUDGET = 2 * 1024**3
+
+
+def max_points(model, options: MFOptions = MFOptions()) -> int | None:
+    """Most points one soft-core :func:`solve_batch` call may take within :data:`MEMORY_BUDGET`.
+
+    Estimate: every point x seed x site holds a few (n_max+1)^2 float64 matrices (Hamiltonian,
+    eigenvectors, LAPACK work). Hard-core: None (no limit). Raises ConfigError naming ``n_max``
+    and its allowed range when not even one point fits.
+    """
+    if model.hardcore:
+        return None
+    from .model import ConfigError
+
+    K = len(make_seeds(model.replace(n_max=1) if model.n_max > 64 else model, n_random=options.n_random,
+                       rng=options.rng))
+    S = search_cell(model.lattice).n_sites
+    per_point = K * S * 8 * 4 * (model.n_max + 1) ** 2
+    if per_point > MEMORY_BUDGET:
+        top = int((MEMORY_BUDGET / (K * S * 32)) ** 0.5) - 1
+        raise ConfigError(f"n_max: {model.n_max} needs about {per_point / 2**30:.3g} GiB per point for the "
+                          f"mean-field eigen-solves (budget {MEMORY_BUDGET / 2**30:g} GiB); must be >= 1 and "
+                          f"<= {top} on the {model.lattice} lattice")
+    return int(MEMORY_BUDGET // per_point)
 
 
 _OPS_CACHE: dict = {}

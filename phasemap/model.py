@@ -43,6 +43,8 @@ def check_keys(section: str, given, allowed) -> None:
 
 
 def _finite(name: str, x: float, *, lo=-math.inf, lo_open=False, allow_inf=False) -> float:
+    if isinstance(x, (bool, np.bool_)):  # float(True) would silently be 1.0
+        raise ConfigError(f"{name}: expected a number, got {x!r}")
     try:
         x = float(x)
     except (TypeError, ValueError):

@@ -49,6 +49,8 @@ def evaluate(batch: ParamBatch, method="mf", options=None, thresholds=Thresholds
     impl, options = resolve(method, options)
     check_temperature(impl, batch.T)
     solver = impl.batch_solver(options)
+    cap = impl.max_points(batch.base, options)  # memory guard (raises if not even one point fits)
+    chunk = min(chunk, cap) if cap else chunk
     P = batch.size
     starts = list(range(0, P, chunk))
     parts = []

@@ -44,7 +44,7 @@ import xarray as xr
 
 from .model import ConfigError
 
-__all__ = ["provenance", "check_output_folder", "output_lock", "LOCK_NAME", "mark_incomplete", "mark_complete", "COMPLETE_NAME", "dumps_json", "atomic_path", "atomic_write_text", "save_netcdf", "load_netcdf", "save_csv", "load_csv",
+__all__ = ["provenance", "read_input_text", "check_output_folder", "output_lock", "LOCK_NAME", "mark_incomplete", "mark_complete", "COMPLETE_NAME", "dumps_json", "atomic_path", "atomic_write_text", "save_netcdf", "load_netcdf", "save_csv", "load_csv",
            "curve_to_dataset", "ChunkStore", "params_hash", "jsonable"]
 
 
@@ -99,6 +99,32 @@ def provenance(model=None, method=None, options=None, table=None, unit=None, **e
         d["energy_unit"] = str(unit)
     d.update(jsonable(extra))
     return d
+
+
+# -- input files -------------------------------------------------------------------------------
+def read_input_text(path, field: str = "input file") -> str:
+    """Text of a user's input file (config, table), or :class:`ConfigError` naming ``field``.
+
+    Refuses, with one line saying which: a missing path, a folder, anything that is not a
+    regular file (a FIFO would block), an unreadable file (permissions), text that is not
+    UTF-8. A UTF-8 byte-order mark is accepted (and dropped).
+    """
+    p = Path(path)
+    if not p.exists():
+        raise ConfigError(f"{field}: file {str(p)!r} does not exist")
+    if p.is_dir():
+        raise ConfigError(f"{field}: {str(p)!r} is a folder, not a file")
+    if not p.is_file():
+        raise ConfigError(f"{field}: {str(p)!r} is not a regular file (a pipe or device); give a file")
+    try:
+        data = p.read_bytes()
+    except OSError as e:
+        raise ConfigError(f"{field}: cannot read {str(p)!r} ({e.strerror or e})") from None
+    try:
+        return data.decode("utf-8-sig")
+    except UnicodeDecodeError as e:
+        raise ConfigError(f"{field}: {p.name} is not UTF-8 text (byte {e.start}: {data[e.start:e.start + 1]!r}); "
+                          "save it as UTF-8") from None
 
 
 # -- output folders: checks and the single-writer lock ----------------------------------------

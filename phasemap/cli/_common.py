@@ -7,8 +7,9 @@ import math
 
 from ..store import dumps_json  # noqa: F401  (re-exported for the commands)
 
-__all__ = ["float_list", "finite_float", "positive_int", "width_arg", "dumps_json", "add_model_options",
-           "model_from_args", "model_overrides", "add_method_option", "method_help", "resolve_method", "u_value"]
+__all__ = ["float_list", "finite_float", "positive_int", "bounded_int", "width_arg", "dumps_json",
+           "add_model_options", "model_from_args", "model_overrides", "add_method_option", "method_help",
+           "resolve_method", "u_value"]
 
 
 def u_value(text: str) -> float:
@@ -122,6 +123,19 @@ def positive_int(text: str) -> int:
     if v < 1:
         raise argparse.ArgumentTypeError(f"expected an integer >= 1, got {text!r}")
     return v
+
+
+def bounded_int(lo: int, hi: int):
+    """argparse type: an integer in [lo, hi] (the message gives the range)."""
+    def parse(text: str) -> int:
+        try:
+            v = int(text)
+        except ValueError:
+            v = None
+        if v is None or not lo <= v <= hi:
+            raise argparse.ArgumentTypeError(f"expected an integer >= {lo} and <= {hi}, got {text!r}")
+        return v
+    return parse
 
 
 def width_arg(text: str):

@@ -13,6 +13,7 @@ from ._common import add_model_options, dumps_json, finite_float, model_from_arg
 
 __all__ = ["register"]
 
+OBSERVABLES = ("sq", "condensate", "stiffness")
 HELP = "exact diagonalization on a periodic cluster: E0(N), mu(N) staircase, gaps, S(K), stiffness"
 EPILOG = """examples:
   phasemap exact --t 0.1 --V 1 --hardcore --cluster tri12 --out ed_demo
@@ -85,6 +86,12 @@ def run(args) -> int:
     if args.out:
         check_output_folder(args.out)  # before any solving
     model = model_from_args(args)
+    if not args.budget_gib > 0:
+        raise ConfigError(f"--budget-gib: must be > 0, got {args.budget_gib:g}")
+    obs = tuple(x.strip() for x in args.observables.split(",") if x.strip())
+    for o in obs:
+        if o not in OBSERVABLES:
+            raise ConfigError(f"--observables: unknown {o!r} (allowed: {', '.join(OBSERVABLES)})")
     cluster = _cluster(args.cluster)
     N, rng = _particles(args.particles)
     overlay = tuple(m.strip() for m in args.mf_methods.split(",") if m.strip())
@@ -113,7 +120,7 @@ def _run(args, model, cluster, N, rng, overlay, out) -> int:
             f"{k}: E0={v:.10g} (dim {sol.extra['sector_dims'][k]}, {sol.extra['sector_times_s'][k]:.2f} s)"
             for k, v in sol.extra["sector_e0"].items()))
         return 0
-    obs = tuple(x for x in args.observables.split(",") if x)
+    obs = tuple(x.strip() for x in args.observables.split(",") if x.strip())
     t0 = time.perf_counter()
     log = (lambda n, dt: None) if args.json else (lambda n, dt: print(f"  N={n:3d} solved in {dt:7.2f} s", flush=True))
     ds = staircase(model, cluster, n_range=rng, particle_hole=not args.no_particle_hole, observables=obs,

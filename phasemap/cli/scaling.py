@@ -23,6 +23,7 @@ import argparse
 import contextlib
 import csv
 import json
+import math
 import os
 import sys
 import tempfile
@@ -76,10 +77,17 @@ def _library():
 
 
 def _num(name, v, cast=float):
+    import math
+
+    if isinstance(v, bool):
+        raise ConfigError(f"{name}: expected a number, got {v!r}")
     try:
-        return cast(v)
-    except (TypeError, ValueError):
-        raise ConfigError(f"{name}: expected a number, got {v!r}") from None
+        x = cast(v)
+    except (TypeError, ValueError, OverflowError):
+        raise ConfigError(f"{name}: expected a{'n integer' if cast is int else ' number'}, got {v!r}") from None
+    if cast is float and not math.isfinite(x):
+        raise ConfigError(f"{name}: must be a finite number, got {v!r}")
+    return x
 
 
 def _value(text: str):
@@ -104,11 +112,10 @@ def _gather(args):
     if args.config:
         import tomllib
 
+        from ..store import read_input_text
+
         try:
-            with open(args.config, "rb") as f:
-                cfg = tomllib.load(f)
-        except OSError as e:
-            raise ConfigError(f"config: cannot read {args.config!r}: {e.strerror}") from None
+            cfg = tomllib.loads(read_input_text(args.config, "config"))
         except tomllib.TOMLDecodeError as e:
             raise ConfigError(f"config: {args.config!r} is not valid TOML: {e}") from None
         check_keys("config", cfg, ("model", "scaling"))
@@ -172,6 +179,17 @@ def _validate(model, sc):
             raise ConfigError(f"lo, hi: need lo < hi, got {sc['lo']:g}, {sc['hi']:g}")
     if q == "lobe-tip" and model.hardcore:
         raise ConfigError("quantity lobe-tip: needs soft-core bosons (give --U and --n-max)")
+    if q == "lobe-tip":
+        n = sc.get("filling", 1)
+        if isinstance(n, bool) or not isinstance(n, int) or not 1 <= n < model.n_max:
+            raise ConfigError(f"filling: the Mott lobe filling must be an integer >= 1 and < n_max = {model.n_max} "
+                              f"(the lobe n = n_max is the saturated cut-off), got {n!r}")
+    for k, lo, hi in (("threshold", 0.0, math.inf), ("xtol", 0.0, math.inf), ("fit_min_lambda", -math.inf, 1.0)):
+        if k in sc:
+            x = _num(k, sc[k])
+            if not (lo < x <= hi if k != "fit_min_lambda" else x <= hi):
+                rng = f"> {lo:g}" if k != "fit_min_lambda" else f"<= {hi:g}"
+                raise ConfigError(f"{k}: must be {rng}, got {x:g}")
     if q == "lobe-tip" and max(model.t) <= 0:
         raise ConfigError("quantity lobe-tip: give a nonzero --t (it fixes the hopping ratios between families)")
     from ..cmf.guard import check_budget

@@ -9,7 +9,7 @@ from __future__ import annotations
 import argparse
 import sys
 
-from ._common import finite_float, positive_int
+from ._common import bounded_int, finite_float
 
 __all__ = ["register"]
 
@@ -24,6 +24,10 @@ SWEEP_EPILOG = """examples:
   phasemap strain-sweep examples/strain_demo.csv --out strain-out --methods mf,cmf:tri6 --lambda 0.7:1.0:4
   phasemap strain-sweep examples/strain_demo.csv --out strain-out --methods mf,ed:tri21
   phasemap strain-sweep demo --out strain-out --methods mf,cmf:tri3 --T-measure 2.0"""
+
+
+#: Bounds of the sweep's grid (each strain x mu point is solved for every seed).
+MAX_STRAINS, MAX_MU = 1001, 10001
 
 
 def register(sub) -> None:
@@ -56,9 +60,10 @@ def register(sub) -> None:
     s.add_argument("--scale", default="V", choices=("V", "t", "U", "V2"),
                    help="what --lambda scales (V: V and V2 together; default V)")
     s.add_argument("--fraction", default="1/3", help="plateau filling (default 1/3)")
-    s.add_argument("--n-strain", type=positive_int, default=None, dest="n_strain",
-                   help="strains on the path (default: rows and midpoints, >= 9)")
-    s.add_argument("--n-mu", type=positive_int, default=121, dest="n_mu", help="chemical potentials of the map (default 121)")
+    s.add_argument("--n-strain", type=bounded_int(2, MAX_STRAINS), default=None, dest="n_strain",
+                   help=f"strains on the path, 2 to {MAX_STRAINS} (default: rows and midpoints, >= 9)")
+    s.add_argument("--n-mu", type=bounded_int(3, MAX_MU), default=121, dest="n_mu",
+                   help=f"chemical potentials of the map, 3 to {MAX_MU} (default 121)")
     s.add_argument("--T-measure", dest="T_measure", type=finite_float, default=None, metavar="T",
                    help="measurement temperature (table unit): compute the solid's melting temperature versus "
                         "strain for each method with a finite-temperature mode (mf, cmf on small clusters) and "
@@ -81,6 +86,20 @@ def _spec(method: str, cluster):
     return MethodSpec.parse(method)
 
 
+def _check_fraction(fraction, table) -> None:
+    """A plateau filling the table's bosons can have: 0 < f < 1 hard-core (0 and 1 are the empty and
+    full states, which have no upper/lower plateau edge), 0 < f for soft-core."""
+    from ..model import ConfigError
+    from ..strain.engine import parse_fraction
+
+    lab, f = parse_fraction(fraction)
+    if f <= 0:
+        raise ConfigError(f"--fraction {fraction}: must be > 0 (a solid or Mott plateau filling such as 1/3)")
+    if table.hardcore and f >= 1:
+        raise ConfigError(f"--fraction {fraction}: hard-core bosons (the table has no U) need 0 < fraction < 1, "
+                          "e.g. 1/3, 1/2, 2/3")
+
+
 def run_check(args) -> int:
     import warnings
 
@@ -91,6 +110,7 @@ def run_check(args) -> int:
     spec = _spec(args.method, args.cluster)
     parse_fraction(args.fraction)
     table = read_table(args.table)
+    _check_fraction(args.fraction, table)
     table.check_range(args.strain, args.extrapolate)  # refuse before any solving
     spec.impl.check_setup(spec, [table.model(args.strain, extrapolate=args.extrapolate)], args.fraction)
     with warnings.catch_warnings(record=True) as caught:
@@ -128,6 +148,7 @@ def run_sweep(args) -> int:
     check_T_measure(args.T_measure)
     lam = parse_lambdas(args.lambdas) if args.lambdas is not None else None
     table = read_table(args.table)
+    _check_fraction(args.fraction, table)
     if args.scale == "U" and table.hardcore and lam is not None:
         raise ConfigError("--scale U: the table is hard-core (U = inf); scale V or t instead")
     t0 = time.perf_counter()

@@ -159,6 +159,12 @@ class Method:
         """(N, 2) lattice coordinates of the sites of the per-site arrays of a batch result."""
         raise NotImplementedError
 
+    def max_points(self, model, options=None) -> int | None:
+        """Memory guard: most points one ``solve_batch`` call may take for ``model`` (None: no
+        limit). Raises ConfigError naming the field (e.g. ``n_max``) when not even one fits.
+        Scans cut their chunks to this size; run configs call it before anything is written."""
+        return None
+
     # -- strain workflow ----------------------------------------------------------------------
     def check_setup(self, spec: "MethodSpec", models, fraction: str = "1/3") -> None:
         """Refuse (ConfigError) what this method cannot do for ``models`` before anything is solved."""

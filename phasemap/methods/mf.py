@@ -6,7 +6,7 @@ EPL 22, 257 (1993) (decoupling mean field; attributions from memory).
 
 from __future__ import annotations
 
-from ..mf import MFOptions, solve_batch, unstable_insulators
+from ..mf import MFOptions, max_points, solve_batch, unstable_insulators
 from . import Capabilities
 from .grand_canonical import GrandCanonicalMethod
 
@@ -20,7 +20,12 @@ class SiteMeanField(GrandCanonicalMethod):
                "its plateau widths and critical strains are bound-like estimates; compare cluster mean field")
 
     def solve_batch(self, batch, options=None, init=None):
-        return solve_batch(batch, self.options(options), init=init)
+        opt = self.options(options)
+        max_points(batch.base, opt)  # refuses an n_max whose eigen-solves cannot fit in memory
+        return solve_batch(batch, opt, init=init)
+
+    def max_points(self, model, options=None):
+        return max_points(model, self.options(options))
 
     def site_coordinates(self, batch, options=None):
         from ..lattice import search_cell

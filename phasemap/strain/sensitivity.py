@@ -34,26 +34,36 @@ __all__ = ["LambdaScan", "critical_vs_lambda", "local_derivatives", "parse_lambd
 SCALE_PARAMS = ("V", "t", "U", "V2")
 
 
+#: Most scale factors of one lambda scan (each is a critical-strain search).
+MAX_LAMBDAS = 200
+
+
 def parse_lambdas(text) -> np.ndarray:
     """``"0.7:1.0:7"`` (start:stop:count) or ``"0.8,0.9,1"`` -> array of positive factors."""
     if isinstance(text, (list, tuple, np.ndarray)):
         lam = np.asarray(text, float)
     else:
         s = str(text).strip()
+        if "," in s and any(not x.strip() for x in s.split(",")):
+            raise ConfigError(f"lambda: empty item in the comma list {text!r}; give numbers > 0 such as 0.8,0.9,1")
         try:
             if ":" in s:
                 a, b, n = s.split(":")
                 n = int(n)
-                if n < 1:
-                    raise ValueError
-                lam = np.linspace(float(a), float(b), n)
+                ok = 1 <= n <= MAX_LAMBDAS
+                lam = np.linspace(float(a), float(b), n) if ok else None
             else:
                 lam = np.array([float(x) for x in s.split(",") if x.strip()])
         except ValueError:
             raise ConfigError(f"lambda: expected start:stop:count (e.g. 0.7:1.0:7) or a comma list of "
                               f"positive numbers, got {text!r}") from None
+        if lam is None:
+            raise ConfigError(f"lambda: count must be >= 1 and <= {MAX_LAMBDAS} (each factor is a "
+                              f"critical-strain search), got {text!r}")
     if lam.size == 0 or not np.all(np.isfinite(lam)) or np.any(lam <= 0):
         raise ConfigError(f"lambda: factors must be finite numbers > 0, got {text!r}")
+    if lam.size > MAX_LAMBDAS:
+        raise ConfigError(f"lambda: at most {MAX_LAMBDAS} factors (<= {MAX_LAMBDAS}), got {lam.size}")
     return np.unique(lam)
 
 

@@ -60,6 +60,8 @@ KNOWN_UNITS = ("K", "mK", "meV", "ueV", "eV", "GHz", "THz", "cm-1", "V")
 META_KEYS = ("unit", "lattice", "description", "source", "strain_unit", "note", "invented")
 
 _STRAIN_UNITS = ("", "fraction", "%")
+#: Largest |strain| of a row (a fraction, or percent) and largest |energy| of a parameter.
+MAX_STRAIN, MAX_ENERGY = 100.0, 1e12
 
 
 class StrainTableWarning(UserWarning):
@@ -188,10 +190,20 @@ class StrainTable:
         line = (lambda r: lines[r]) if lines is not None else (lambda r: None)  # noqa: E731
 
         def col(name, allow_inf=False):
-            return np.array([_number(v, _where(path, r + 1, line(r), name), allow_inf=allow_inf)
-                             for r, v in enumerate(columns[name])], float)
+            v = np.array([_number(x, _where(path, r + 1, line(r), name), allow_inf=allow_inf)
+                          for r, x in enumerate(columns[name])], float)
+            big = np.isfinite(v) & (np.abs(v) > MAX_ENERGY)
+            if name != "strain" and big.any():
+                r = int(np.argmax(big))
+                raise ConfigError(f"{_where(path, r + 1, line(r), name)}: must be >= {-MAX_ENERGY:g} and <= "
+                                  f"{MAX_ENERGY:g} (in {unit}), got {v[r]:g}")
+            return v
 
         strain = col("strain")
+        for r in range(R):
+            if abs(strain[r]) > MAX_STRAIN:
+                raise ConfigError(f"{_where(path, r + 1, line(r), 'strain')}: strain must be >= {-MAX_STRAIN:g} and "
+                                  f"<= {MAX_STRAIN:g} (a fraction, or percent), got {strain[r]:g}")
         for r in range(1, R):
             if not strain[r] > strain[r - 1]:
                 raise ConfigError(f"{_where(path, r + 1, line(r), 'strain')}: strain must be strictly increasing "
@@ -290,6 +302,12 @@ class StrainTable:
                 raise ConfigError(f"strain {bad:g}: outside the table {_where(self.path)} "
                                   f"(allowed range [{lo:g}, {hi:g}]); extrapolation beyond the rows is refused "
                                   "unless allowed (extrapolate=True, CLI --extrapolate)")
+            reach = hi - lo  # extrapolation reaches at most one table span beyond the rows
+            far = (s < lo - reach) | (s > hi + reach)
+            if far.any():
+                raise ConfigError(f"strain {float(s[far][0]):g}: too far outside the table {_where(self.path)} to "
+                                  f"extrapolate (allowed with extrapolation: [{lo - reach:g}, {hi + reach:g}], one "
+                                  "table span beyond the rows)")
             warnings.warn(f"strain {bad:g} is outside the table range [{lo:g}, {hi:g}]: parameters are "
                           "extrapolated from the end rows and may be meaningless", StrainTableWarning, stacklevel=3)
         return np.clip(s, lo, hi) if not extrapolate else s
@@ -408,9 +426,10 @@ class StrainTable:
                 f"t/V {r[0]:.3g}..{r[-1]:.3g}")
 
 
-def _parse_meta_line(text: str, meta: dict):
+def _parse_meta_line(text: str, meta: dict, path=None):
     body = text.lstrip("#").strip()
-    if "=" in body:
+    eq = "=" in body
+    if eq:
         k, v = body.split("=", 1)
     elif ":" in body:
         k, v = body.split(":", 1)
@@ -424,6 +443,13 @@ def _parse_meta_line(text: str, meta: dict):
             meta.setdefault("notes", []).append(v)
         else:
             meta[k] = v
+    elif eq and k.replace("_", "").replace("-", "").isalnum():
+        # a '# key = value' line with an unknown key is a mistake, not a note (TOML tables refuse too);
+        # free text stays a note ('# note = ...', '# Source: ...', lines without '=')
+        close = difflib.get_close_matches(k, list(META_KEYS), n=1, cutoff=0.5)
+        hint = f"; did you mean {close[0]!r}?" if close else ""
+        raise ConfigError(f"{_where(path)}: unknown metadata key {k!r} in line {text.strip()!r}{hint} "
+                          f"(allowed: {', '.join(META_KEYS)}; free text: '# note = ...')")
     else:
         meta.setdefault("notes", []).append(body)
 
@@ -438,7 +464,7 @@ def _read_csv(path: str, text: str) -> StrainTable:
             continue
         if s.startswith("#"):
             if header is None:
-                _parse_meta_line(s, meta)
+                _parse_meta_line(s, meta, path)
             continue
         row = next(csv.reader(io.StringIO(raw)))
         row = [c.strip() for c in row]
@@ -527,12 +553,12 @@ def read_table(path) -> StrainTable:
         from importlib.resources import files
 
         p = str(files("phasemap") / "data" / "strain_demo.csv")
-    try:
-        with open(p, encoding="utf-8") as fh:
-            text = fh.read()
-    except OSError as e:
-        raise ConfigError(f"table {p!r}: cannot read ({e.strerror})") from None
+    from ..store import read_input_text
+
     ext = os.path.splitext(p)[1].lower()
+    if ext not in (".csv", ".toml") and not os.path.isdir(p):
+        raise ConfigError(f"table {p!r}: unknown format {ext!r} (allowed: .csv, .toml)")
+    text = read_input_text(p, "table")  # missing, folder, pipe, unreadable, not UTF-8 (a BOM is fine)
     if ext == ".csv":
         return _read_csv(p, text)
     if ext == ".toml":
