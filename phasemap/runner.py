@@ -197,7 +197,11 @@ def _run_locked(cfg, out, resume, restart, progress, log):
     paths = []
     for scan, ds, ck in results:
         paths += _write(cfg, scan, ds, out)
+    from .store import provenance
+
+    prov = provenance(cfg.model, ",".join(dict.fromkeys(s.method for s in cfg.scans)))
     header = (f"resolved configuration written by phasemap (source: {cfg.source or cfg.name})\n"
+              + "".join(f"{k}: {json.dumps(v)}\n" for k, v in prov.items() if k != "model")
               + ("INVENTED scenario: not a real material\n" if cfg.meta.get("invented") else ""))
     paths.append(atomic_write_text(out / f"{cfg.name}.config.toml", dumps_toml(cfg.to_dict(), header)))
     for _, _, ck in results:

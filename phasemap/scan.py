@@ -111,23 +111,20 @@ def _extract(res, thresholds):
 
 
 def _attrs(model: Model, method, thresholds, options, relative, kind, extra=None):
-    from . import __version__
+    from .store import provenance
 
-    attrs = {
+    attrs = provenance(model, method, options or {})
+    attrs.update({  # dicts as JSON strings, as they are stored in the file
         "title": f"phasemap {kind}",
-        "model": json.dumps(model.to_dict()),
-        "lattice": model.lattice,
-        "method": method,
-        "method_options": json.dumps(options or {}),
+        "model": json.dumps(attrs["model"]),
+        "method_options": json.dumps(attrs["method_options"]),
         "thresholds": json.dumps(thresholds.to_dict()),
-        "energy_unit": model.unit,
         "relative_to": model.scale_name if relative else "",
         "scale": float(model.scale) if relative else 1.0,
         "phase_names": json.dumps(list(phase_codes())),
-        "phasemap_version": __version__,
         "caution": ("mean-field methods overestimate ordered phases (site-decoupled badly so on the "
                     "triangular lattice); finite clusters are finite"),
-    }
+    })
     attrs.update(extra or {})
     return attrs
 

@@ -163,9 +163,11 @@ class Solution:
         }
         if self.extra:
             d["extra"] = {k: _jsonable(v) for k, v in self.extra.items()}
-        from . import __version__
+        from .store import provenance
 
-        d["version"] = __version__
+        prov = provenance(self.model, self.method)
+        d["phasemap_version"] = prov["phasemap_version"]
+        d["energy_unit"] = prov["energy_unit"]
         return d
 
 

@@ -47,7 +47,7 @@ def test_point_json_agrees_with_solve(argv, model, mu, capsys):
     assert math.isclose(d["energy"], sol.energy, rel_tol=1e-12, abs_tol=1e-14)
     np.testing.assert_allclose(d["densities"], sol.densities, atol=1e-12)
     np.testing.assert_allclose(d["condensate"], sol.condensate, atol=1e-12)
-    assert d["model"] == json.loads(json.dumps(sol.model.to_dict())) and d["version"] == phasemap.__version__
+    assert d["model"] == json.loads(json.dumps(sol.model.to_dict())) and d["phasemap_version"] == phasemap.__version__
 
 
 def test_point_summary(capsys):

@@ -4,6 +4,8 @@ import json
 
 import numpy as np
 import pytest
+
+import phasemap
 from _ed_dense import dense_hamiltonian
 
 from phasemap.cli import main
@@ -35,7 +37,7 @@ def test_exact_staircase_writes_data_and_figure(tmp_path, capsys):
     import xarray as xr
 
     ds = xr.load_dataset(out / "staircase.nc")
-    assert ds.attrs["method"] == "ed" and "model" in ds.attrs and "version" in ds.attrs
+    assert ds.attrs["method"] == "ed" and "model" in ds.attrs and ds.attrs["phasemap_version"] == phasemap.__version__
 
 
 def test_exact_bad_input_exit_2(capsys):

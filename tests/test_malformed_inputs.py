@@ -89,6 +89,10 @@ CASES = {
                           ("demo", ["demo", "--points", "2", "--quiet"]), ("exact", EXACT), ("scaling", SCALING))
        for kind, out, why in (("file", "inputs/afile", "not a folder"), ("under-file", "inputs/afile/sub", "file"),
                               ("not-writable", NOT_WRITABLE, "not writable"))},
+    # the output path is checked first, before the inputs are read
+    "sweep-out-checked-first": (["strain-sweep", "inputs/latin1.csv", "--out", "inputs/afile"], ["--out", "not a folder"]),
+    "exact-out-checked-first": (EXACT + ["--mf-methods", "foo", "--out", "inputs/afile"], ["--out", "not a folder"]),
+    "scaling-out-checked-first": (SCALING + ["--filling", "-1", "--out", "inputs/afile"], ["--out", "not a folder"]),
     "run-output-folder-is-file": (["run", "inputs/out_is_file.toml", "--quiet"], ["[output] folder", "not a folder"]),
     # configs that cannot be read, or are not files
     "config-is-folder": (["run", "inputs/a_folder.toml"], ["config", "folder"]),

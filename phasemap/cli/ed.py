@@ -139,8 +139,10 @@ def _run(args, model, cluster, N, rng, overlay, out) -> int:
     elif not args.no_figure:
         notes.append("no --out folder: figure not drawn")
     L = int(ds.attrs["n_sites"])
+    from ..store import provenance
+
     summary = {
-        "model": model.to_dict(), "method": "ed", "cluster": json.loads(ds.attrs["cluster"]), "n_sites": L,
+        **provenance(model, "ed"), "cluster": json.loads(ds.attrs["cluster"]), "n_sites": L,
         "N": ds["N"].values.tolist(), "E0": ds["E0"].values.tolist(), "mu_plus": ds["mu_plus"].values.tolist(),
         "mu_minus": ds["mu_minus"].values.tolist(), "q_name": ds["q_name"].values.tolist(),
         "gap_1_3": ds.attrs["gap_1_3"], "gap_2_3": ds.attrs["gap_2_3"], "wall_time_s": wall,

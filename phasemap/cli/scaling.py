@@ -21,12 +21,10 @@ from __future__ import annotations
 
 import argparse
 import contextlib
-import csv
 import json
 import math
 import os
 import sys
-import tempfile
 
 from ..model import ConfigError, Model, check_keys
 from ._common import add_model_options, model_overrides
@@ -202,19 +200,6 @@ def _validate(model, sc):
     return q, clusters
 
 
-def _atomic_write(path, writer, mode="w"):
-    d = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(dir=d, prefix=".tmp-", suffix=os.path.splitext(path)[1])
-    try:
-        with os.fdopen(fd, mode, newline="" if mode == "w" else None) as f:
-            writer(f)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-
-
 def run(args) -> int:
     from ..store import check_output_folder, output_lock
 
@@ -241,8 +226,10 @@ def _run(args, model, sc, q, clusters) -> int:
     ref = sc.get("reference")
     res = cluster_scaling(model, clusters, q, fit_min_lambda=sc.get("fit_min_lambda"),
                           reference=tuple(ref) if ref else None, **kw)
-    d = res.to_dict()
-    d["model"] = model.to_dict()
+    from ..store import atomic_write_text, dumps_json, provenance, save_csv
+
+    prov = provenance(model, "cmf", sc["options"], quantity=q, clusters=list(res.clusters))
+    d = {**prov, **res.to_dict(), "model": prov["model"]}
     if args.json:
         json.dump(d, sys.stdout, indent=2)
         sys.stdout.write("\n")
@@ -252,16 +239,11 @@ def _run(args, model, sc, q, clusters) -> int:
     if args.out:
         os.makedirs(args.out, exist_ok=True)
         base = os.path.join(args.out, "scaling")
-        _atomic_write(base + ".json", lambda f: json.dump(d, f, indent=2))
-
-        def wcsv(f):
-            w = csv.writer(f)
-            w.writerow(["cluster", "lambda", res.label, "in_fit"])
-            for c, lam, v, m in zip(res.clusters, res.lam, res.values, res.fit_mask):
-                w.writerow([c, f"{lam:.10g}", f"{v:.10g}", int(m)])
-            w.writerow(["lambda->1", "1", f"{res.extrapolated:.10g}", ""])
-
-        _atomic_write(base + ".csv", wcsv)
+        atomic_write_text(base + ".json", dumps_json(d) + "\n")
+        save_csv(base + ".csv", {"cluster": list(res.clusters) + ["lambda->1"],
+                                 "lambda": [float(x) for x in res.lam] + [1.0],
+                                 res.label: [float(x) for x in res.values] + [float(res.extrapolated)],
+                                 "in_fit": [str(int(m)) for m in res.fit_mask] + [""]}, prov)
         plot_scaling(res, base)
         if not args.json:
             print(f"wrote {base}.json, .csv, .png, .pdf")

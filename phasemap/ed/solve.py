@@ -34,7 +34,6 @@ from fractions import Fraction
 
 import numpy as np
 
-from .. import __version__
 from ..lattice import patterns_for
 from ..model import ConfigError, Model, check_keys
 from ..solution import Solution
@@ -242,6 +241,8 @@ def scan_ed(model: Model, param: str, values, cluster="tri12", particles=None, *
         "condensate_fraction": (param, get("condensate_fraction")), "stiffness": (param, get("stiffness")),
         "gap": (param, get("gap")), "phase": (param, np.array([s.phase for s in rows]).astype(str)),
     }, coords={param: coord})
-    ds.attrs.update({"model": json.dumps(model.to_dict()), "method": "ed", "version": __version__,
+    from ..store import provenance
+
+    ds.attrs.update({**provenance(model, "ed"), "model": json.dumps(model.to_dict()),
                      "kind": f"ED scan over {param}", "cluster": json.dumps(rows[0].extra["cluster"])})
     return ds

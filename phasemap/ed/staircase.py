@@ -29,7 +29,6 @@ import time
 
 import numpy as np
 
-from .. import __version__
 from ..model import ConfigError, Model
 from .clusters import get_cluster
 from .groundstate import check_particles, ground_state, sector_estimate
@@ -60,6 +59,12 @@ def _n_range(n_range, L, n_max):
     if not ns:
         raise ConfigError("particles: empty particle-number range")
     return ns
+
+
+def _prov(model) -> dict:
+    from ..store import provenance
+
+    return provenance(model, "ed")
 
 
 def staircase(model: Model, cluster="tri12", n_range=None, particle_hole: bool = True,
@@ -150,7 +155,7 @@ def staircase(model: Model, cluster="tri12", n_range=None, particle_hole: bool =
         gaps[f"gap_{p}_{q}"] = float(data["gap"][1][ns.index(int(n13))]) if n13.is_integer() and int(n13) in ns else np.nan
     ds = xr.Dataset(data, coords={"N": ns, "filling": ("N", np.array(ns) / L)})
     ds.attrs.update({
-        "model": json.dumps(model.to_dict()), "method": "ed", "version": __version__,
+        **_prov(model), "model": json.dumps(model.to_dict()),
         "kind": "canonical staircase", "cluster": json.dumps(cell.vectors.tolist()),
         "lattice": cell.lattice.name, "n_sites": L, "unit": model.unit,
         "particle_hole": int(use_ph), **gaps,

@@ -101,10 +101,15 @@ class StrainSweep:
                     cols[k].append(v)
         return cols
 
-    def metadata(self) -> dict:
-        from .. import __version__
+    def provenance(self, **extra) -> dict:
+        """The provenance every file of the sweep carries (:func:`phasemap.store.provenance`)."""
+        from ..store import provenance
 
+        return provenance(method=",".join(self.names), table=self.table, unit=self.table.unit, **extra)
+
+    def metadata(self) -> dict:
         return {
+            **self.provenance(),
             "title": f"phasemap strain sweep, {self.fraction} plateau",
             "table": self.table.path or "", "table_description": self.table.meta.get("description", ""),
             "table_invented": self.table.meta.get("invented", ""), "energy_unit": self.table.unit,
@@ -112,7 +117,7 @@ class StrainSweep:
             "methods": json.dumps(self.names),
             "band_lo": self.band["lo"] if self.band["lo"] is not None else float("nan"),
             "band_hi": self.band["hi"] if self.band["hi"] is not None else float("nan"),
-            "band_text": self.band["text"], "caution": CAUTION, "phasemap_version": __version__,
+            "band_text": self.band["text"], "caution": CAUTION,
             "method_cautions": json.dumps({m.name: m.impl.caution for m in self.methods}),
         }
 
@@ -236,12 +241,13 @@ class StrainSweep:
         unc = np.array([self.lambdas[n].uncertainty for n in names])
         return xr.Dataset({"strain_c": (("solver", "lambda"), sc), "uncertainty": (("solver", "lambda"), unc)},
                           coords={"solver": names, "lambda": lam},
-                          attrs={"param": self.lambdas[names[0]].param,
+                          attrs={**self.provenance(fraction=self.fraction), "param": self.lambdas[names[0]].param,
                                  "scans": json.dumps({n: self.lambdas[n].to_dict() for n in names})})
 
     def summary(self) -> dict:
         """Plain-JSON summary (critical strains, band, lambda scans, timings)."""
         return {
+            **self.provenance(),
             "table": self.table.path, "unit": self.table.unit, "fraction": self.fraction, "methods": self.names,
             "critical": {k: v.to_dict() for k, v in self.critical.items()},
             "band": self.band,
@@ -294,10 +300,12 @@ class StrainSweep:
         return "\n".join(lines)
 
     def save(self, outdir, figures: bool = True, formats=("png", "pdf")) -> list[Path]:
-        """Write sweep.nc, plateau.csv, critical.csv, summary.json (+ lambda.csv/nc, figures) atomically."""
-        from ..store import atomic_write_text, dumps_json, save_csv, save_netcdf
+        """Write sweep.nc, plateau.csv, critical.csv, summary.json (+ lambda.csv/nc, figures) atomically,
+        then the completion marker COMPLETE.json last (a folder without it holds an incomplete set)."""
+        from ..store import atomic_write_text, dumps_json, mark_complete, mark_incomplete, save_csv, save_netcdf
 
         out = Path(outdir)
+        mark_incomplete(out)
         paths = [save_netcdf(self.to_dataset(), out / "sweep.nc")]
         meta = dict(self.metadata())
         paths.append(save_csv(out / "plateau.csv", self.plateau_table(), meta))
@@ -358,6 +366,7 @@ class StrainSweep:
             from .plots import save_all
 
             paths += save_all(self, out, formats=formats)
+        paths.append(mark_complete(out, paths, **self.provenance(fraction=self.fraction)))
         return paths
 
 
