@@ -42,6 +42,11 @@ def check_keys(section: str, given, allowed) -> None:
             )
 
 
+#: Largest |energy| of a parameter (in the model's unit) and largest occupation cut-off.
+MAX_ENERGY = 1e12
+MAX_N_MAX = 1000
+
+
 def _finite(name: str, x: float, *, lo=-math.inf, lo_open=False, allow_inf=False) -> float:
     if isinstance(x, (bool, np.bool_)):  # float(True) would silently be 1.0
         raise ConfigError(f"{name}: expected a number, got {x!r}")
@@ -54,6 +59,8 @@ def _finite(name: str, x: float, *, lo=-math.inf, lo_open=False, allow_inf=False
     if x < lo or (lo_open and x == lo):
         rng = f"> {lo}" if lo_open else f">= {lo}"
         raise ConfigError(f"{name}: must be {rng}, got {x}")
+    if math.isfinite(x) and abs(x) > MAX_ENERGY:
+        raise ConfigError(f"{name}: must be >= {-MAX_ENERGY:g} and <= {MAX_ENERGY:g}, got {x:g}")
     return x
 
 
@@ -138,11 +145,15 @@ class Model:
             if self.U == 0:
                 raise ConfigError("U: soft-core bosons need U > 0 (U = 0 is unbounded); use U = inf for hard-core")
             if self.n_max is None:
+                need = max(self.mu, 0.0) / self.U
+                if need > MAX_N_MAX - 2:
+                    raise ConfigError(f"n_max: the default cut-off for mu/U = {need:g} would be > {MAX_N_MAX}; "
+                                      f"n_max must be >= 1 and <= {MAX_N_MAX} (give n_max, or a smaller mu/U)")
                 set_("n_max", self.default_n_max(self.mu, self.U))
                 set_("_auto_n_max", True)
             else:
-                if isinstance(self.n_max, bool) or int(self.n_max) != self.n_max or self.n_max < 1:
-                    raise ConfigError(f"n_max: must be an integer >= 1, got {self.n_max!r}")
+                if isinstance(self.n_max, bool) or int(self.n_max) != self.n_max or not 1 <= self.n_max <= MAX_N_MAX:
+                    raise ConfigError(f"n_max: must be an integer >= 1 and <= {MAX_N_MAX}, got {self.n_max!r}")
                 set_("n_max", int(self.n_max))
 
     # -- derived ------------------------------------------------------------------------

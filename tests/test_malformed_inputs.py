@@ -67,6 +67,8 @@ def _inputs(d: Path) -> None:
     (d / "bool_V.toml").write_text(GOOD_CFG.replace("V = 1.0", "V = [1.0, false, 1.0]"))
     (d / "bool_mu.toml").write_text(GOOD_CFG.replace("V = 1.0", "V = 1.0\nmu = true"))
     (d / "nmax_huge.toml").write_text(SOFT_CFG.replace("NMAX", "100000"))
+    (d / "nmax_memory.toml").write_text(SOFT_CFG.replace("NMAX", "900").replace('lattice = "square"',
+                                                                               'lattice = "triangular"'))
     (d / "a_folder.toml").mkdir()
     os.mkfifo(d / "fifo.toml")
     (d / "out_is_file.toml").write_text(GOOD_CFG.replace("figures = false", 'figures = false\nfolder = "inputs/afile"'))
@@ -113,6 +115,10 @@ CASES = {
     "model-V-bool": (["run", "inputs/bool_V.toml"], ["[model]", "V", "number"]),
     "model-mu-bool": (["run", "inputs/bool_mu.toml"], ["[model]", "mu", "number"]),
     "n_max-100000-run": (["run", "inputs/nmax_huge.toml", "--out", "o"], ["n_max", "<="]),
+    "n_max-900-memory-estimate": (["run", "inputs/nmax_memory.toml", "--out", "o"], ["n_max", "GiB", "<="]),
+    "mu-1e308": (["point", "--U", "1", "--mu", "1e308"], ["mu", "<="]),
+    "t-1e308": (["point", "--t", "1e308", "--V", "1"], ["t", "<="]),
+    "default-n_max-from-tiny-U": (["point", "--U", "1e-300", "--mu", "1"], ["n_max", "<="]),
     "n_max-100000-point": (["point", "--lattice", "square", "--U", "1", "--n-max", "100000", "--t", "0.01"],
                            ["n_max", "<="]),
     "table-unknown-meta": (["strain-check", "inputs/lattise.csv", "--strain", "0.05"], ["lattise", "lattice"]),
