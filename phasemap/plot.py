@@ -208,7 +208,10 @@ def plot_phase_map(ds, width="single", title=None, boundaries=True, region_names
                 first = np.asarray(ds["boundary_first_order"].values, bool)
             else:  # files written before the halving test existed
                 first = np.asarray(ds["boundary_jump"].values if "boundary_jump" in ds else np.zeros(ds[bx].size)) > 1e-3
-            ax.plot(ds[bx].values[~first], ds[by].values[~first], ".", ms=1.2, color="k", mew=0)
+            good = np.asarray(ds["boundary_converged"].values, bool) if "boundary_converged" in ds else \
+                np.ones(ds[bx].size, bool)  # a bracket ending on an unconverged state is no boundary
+            first &= good
+            ax.plot(ds[bx].values[~first & good], ds[by].values[~first & good], ".", ms=1.2, color="k", mew=0)
             ax.plot(ds[bx].values[first], ds[by].values[first], "o", ms=1.6, mfc="none", mec="#b2182b", mew=0.4)
             handles += [Line2D([], [], ls="", marker=".", color="k", label="boundary (continuous)"),
                         Line2D([], [], ls="", marker="o", mfc="none", mec="#b2182b", label="boundary (first order)")]

@@ -208,6 +208,11 @@ def phase_map(model: Model, x=("t", None), y=("mu", None), relative=True, method
         bd = refine_boundaries(model, ds, relative=relative, method=method, options=options,
                                thresholds=thresholds, tol=refine_tol, progress=progress)
         ds = ds.merge(bd)
+        bad = int((~ds["boundary_converged"].values).sum())
+        if bad:
+            flags.append(f"{bad} refined boundary point(s) end next to an unconverged state "
+                         "(boundary_converged = 0): not phase boundaries")
+            ds.attrs["flags"] = json.dumps(flags)
     return ds
 
 
@@ -255,6 +260,9 @@ def refine_boundaries(model, ds, relative=True, method="mf", options=None, thres
         "boundary_jump": ("bpoint", np.abs(fhi["filling"] - flo["filling"])),
         "boundary_first_order": ("bpoint", first),
         "boundary_bracket": ("bpoint", np.abs(hi - lo).max(1)),
+        # both ends of the final bracket converged: else the bisection stopped at a convergence
+        # edge, not a phase boundary (flagged, and drawn as such)
+        "boundary_converged": ("bpoint", np.asarray(flo["converged"], bool) & np.asarray(fhi["converged"], bool)),
     })
 
 
@@ -264,7 +272,7 @@ def _empty_boundaries(names):
     return xr.Dataset({f"boundary_{xn}": ("bpoint", e), f"boundary_{yn}": ("bpoint", e),
                        "boundary_from": ("bpoint", e.astype(str)), "boundary_to": ("bpoint", e.astype(str)),
                        "boundary_jump": ("bpoint", e), "boundary_first_order": ("bpoint", e.astype(bool)),
-                       "boundary_bracket": ("bpoint", e)})
+                       "boundary_bracket": ("bpoint", e), "boundary_converged": ("bpoint", e.astype(bool))})
 
 
 def _points(model, names, pts, relative):

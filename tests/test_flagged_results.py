@@ -62,6 +62,22 @@ def test_converged_curve_finds_what_the_starved_one_flags(starved):
     assert q["mu_lo_bound"] >= p["mu_lo"] - 1e-9 and q["mu_hi_bound"] <= p["mu_hi"] + 1e-9  # bounds are honest
 
 
+def test_map_boundaries_next_to_unconverged_points_are_flagged():
+    # max_iter = 20 starves the points near the transitions (about 8 of 22 refined boundary points
+    # end on an unconverged state when written)
+    t = ("t", np.array([0.05, 0.1, 0.15]))
+    ds = phase_map(TRI, x=t, y=("mu", MU[::2]), options={"max_iter": 20}, progress=False, refine_tol=1e-3)
+    ok = ds["boundary_converged"].values
+    flags = json.loads(ds.attrs["flags"])
+    assert (~ok).any() and ok.any()
+    assert any("boundary_converged = 0" in f for f in flags) and any("unconverged" in f for f in flags)
+    # default options: fewer such points, and the flag is there exactly when there are some
+    full = phase_map(TRI, x=t, y=("mu", MU[::2]), progress=False, refine_tol=1e-3)
+    nf = int((~full["boundary_converged"].values).sum())
+    assert nf < int((~ok).sum())
+    assert (nf > 0) == any("boundary_converged = 0" in f for f in json.loads(full.attrs["flags"]))
+
+
 def test_plateau_cut_by_the_window_is_beyond_the_window_not_infinite():
     fc = filling_curve(TRI, mu=np.linspace(0, 2, 21))
     p = fc.plateau("1/3")
