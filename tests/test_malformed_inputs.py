@@ -116,6 +116,7 @@ CASES = {
     "model-mu-bool": (["run", "inputs/bool_mu.toml"], ["[model]", "mu", "number"]),
     "n_max-100000-run": (["run", "inputs/nmax_huge.toml", "--out", "o"], ["n_max", "<="]),
     "n_max-900-memory-estimate": (["run", "inputs/nmax_memory.toml", "--out", "o"], ["n_max", "GiB", "<="]),
+    "strain-check-mu-1e300": (["strain-check", "inputs/table.csv", "--strain", "0.05", "--mu", "1e300"], ["--mu", "<="]),
     "mu-1e308": (["point", "--U", "1", "--mu", "1e308"], ["mu", "<="]),
     "t-1e308": (["point", "--t", "1e308", "--V", "1"], ["t", "<="]),
     "default-n_max-from-tiny-U": (["point", "--U", "1e-300", "--mu", "1"], ["n_max", "<="]),

@@ -111,6 +111,11 @@ def run_check(args) -> int:
     parse_fraction(args.fraction)
     table = read_table(args.table)
     _check_fraction(args.fraction, table)
+    if args.mu is not None:  # the same bound as every model energy
+        from ..model import MAX_ENERGY, ConfigError
+
+        if abs(args.mu) > MAX_ENERGY:
+            raise ConfigError(f"--mu: must be >= {-MAX_ENERGY:g} and <= {MAX_ENERGY:g} ({table.unit}), got {args.mu:g}")
     table.check_range(args.strain, args.extrapolate)  # refuse before any solving
     spec.impl.check_setup(spec, [table.model(args.strain, extrapolate=args.extrapolate)], args.fraction)
     with warnings.catch_warnings(record=True) as caught:
