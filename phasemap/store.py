@@ -199,6 +199,12 @@ def _alive(info: dict) -> bool | None:
     return not (start is not None and now is not None and int(start) != now)  # pid reused
 
 
+def _command_line() -> str:
+    prog = os.path.basename(sys.argv[0]) if sys.argv and sys.argv[0] else "python"
+    prog = "phasemap" if prog in ("__main__.py", "phasemap") else prog
+    return " ".join([prog] + sys.argv[1:])
+
+
 def _describe(info: dict) -> str:
     return (f"pid {info.get('pid')} on host {info.get('host')}, started {info.get('started')}, "
             f"command: {info.get('command')}")
@@ -250,7 +256,7 @@ def output_lock(folder, command: str | None = None, note=None, flag: str = "--ou
         return
     info = {"pid": os.getpid(), "pid_start": _proc_start(os.getpid()), "host": socket.gethostname(),
             "started": datetime.datetime.now(datetime.timezone.utc).isoformat(timespec="seconds"),
-            "command": command if command is not None else " ".join([os.path.basename(sys.argv[0])] + sys.argv[1:])}
+            "command": command if command is not None else _command_line()}
     say = note if note is not None else (lambda m: print(f"phasemap: note: {m}", file=sys.stderr))
     fd, tmp = tempfile.mkstemp(prefix=".phasemap.lock.", dir=folder)
     try:
