@@ -34,7 +34,7 @@ from phasemap.ed import ground_state
 from phasemap.ed.clusters import get_cluster
 from phasemap.ed.spacegroup import SymSector
 
-pytestmark = pytest.mark.slow
+pytestmark = pytest.mark.heavy  # ~8 GiB and tens of minutes: run with -m heavy (not in CI, see README)
 
 
 def classical_minima_6x6(V: float = 1.0) -> np.ndarray:
