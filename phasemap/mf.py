@@ -41,6 +41,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from .lattice import Supercell, search_cell
+from .mixing import Anderson
 from .params import ParamBatch
 from .seeds import Seed, make_seeds
 
@@ -297,9 +298,7 @@ def _iterate(ops: CellOps, batch: ParamBatch, n0, phi0, opt: MFOptions):
     live = np.ones(rows, bool)
     best_r = np.full(rows, np.inf)
     last_gain = np.zeros(rows, int)
-    hx = np.zeros((m, rows, 2 * S))
-    hf = np.zeros((m, rows, 2 * S))
-    px = pf = None
+    mix = Anderson(rows, 2 * S, m, opt.mixing)
     for it in range(1, opt.max_iter + 1):
         gx, _, _ = G(x, idx)
         f = gx - x
@@ -317,29 +316,14 @@ def _iterate(ops: CellOps, batch: ParamBatch, n0, phi0, opt: MFOptions):
             live &= ~fin
         if not live.any():
             break
-        xnew = x + opt.mixing * f
-        k = min(it - 1, m)
-        if k > 0:
-            slot = (it - 2) % m
-            hx[slot] = x - px
-            hf[slot] = f - pf
-            dX = hx[:k].transpose(1, 2, 0)  # (R, D, k)
-            dF = hf[:k].transpose(1, 2, 0)
-            A = np.einsum("rdk,rdl->rkl", dF, dF)
-            b = np.einsum("rdk,rd->rk", dF, f)
-            reg = 1e-10 * np.maximum(np.trace(A, axis1=1, axis2=2), 1e-30)[:, None, None]
-            gam = np.linalg.solve(A + reg * np.eye(k), b[..., None])[..., 0]
-            step = xnew - np.einsum("rdk,rk->rd", dX + opt.mixing * dF, gam)
-            ok = np.all(np.isfinite(step), axis=1)
-            xnew = np.where(ok[:, None], step, xnew)
-        px, pf = x, f
+        xnew = mix.step(x, f)
         xnew[:, :S] = np.clip(xnew[:, :S], 0.0, batch.n_max)  # keep the iterate physical
         xnew[:, S:] = np.where(xnew[:, S:] < 0, 0.5 * x[:, S:], xnew[:, S:])  # phi = 0 would be a trap
         x = xnew
         if (~live).sum() > 0.1 * len(live):  # compact
             keep = live
-            idx, x, px, pf = idx[keep], x[keep], px[keep], pf[keep]
-            hx, hf = hx[:, keep], hf[:, keep]
+            idx, x = idx[keep], x[keep]
+            mix.keep(keep)
             best_r, last_gain, live = best_r[keep], last_gain[keep], live[keep]
     else:
         g = idx[live]

@@ -55,7 +55,7 @@ def _check_cross_fixed_points(batch, cmf_kwargs, res, ref, rows, fold):
 def test_one_site_cluster_equals_site_decoupled(hardcore):
     rng = np.random.default_rng(5 if hardcore else 6)
     batch = ParamBatch.from_models(_random_models(rng, 4, hardcore))
-    kw = dict(cluster="tri1", continuation=False, tol=1e-11, anderson=5)
+    kw = dict(cluster="tri1", continuation=False, tol=1e-11, anderson=5, engine="point")
     res = solve_cmf_batch(batch, n_random=2, **kw)
     ref = solve_batch(batch, MFOptions(tol=1e-11, anderson=5), seeds=res.seeds)  # same iteration scheme
     both = res.converged & ref.converged
@@ -69,6 +69,27 @@ def test_one_site_cluster_equals_site_decoupled(hardcore):
     odd = np.argwhere(res.converged != ref.converged)
     assert all(res.seeds[k].name.startswith("random") for _, k in odd)
     _check_cross_fixed_points(batch, kw, res, ref, odd, fold=[0])
+
+
+@pytest.mark.parametrize("hardcore", [True, False])
+def test_one_site_cluster_batched_engine_equals_site_decoupled(hardcore):
+    # the batched engine (phasemap.cmf.batch) on the same rows: where both converge, the same
+    # state; the winning state of every point the same. (A seed that wanders before landing may
+    # land on the winner's state in one code only; then the earlier seed wins the tie.)
+    rng = np.random.default_rng(5 if hardcore else 6)
+    batch = ParamBatch.from_models(_random_models(rng, 4, hardcore))
+    res = solve_cmf_batch(batch, cluster="tri1", n_random=2, continuation=False, tol=1e-11, anderson=5,
+                          engine="batch")
+    ref = solve_batch(batch, MFOptions(tol=1e-11, anderson=5), seeds=res.seeds)
+    both = res.converged & ref.converged
+    assert both.any(axis=1).all()
+    assert np.allclose(res.energy[both], ref.energy[both], atol=1e-12, rtol=0)
+    assert np.allclose(res.n[both], ref.n[both], atol=1e-9)
+    assert np.allclose(np.abs(res.phi[both]), np.abs(ref.phi[both]), atol=1e-9)
+    pb, pr = res.best(), ref.best()
+    P = np.arange(len(pb))
+    assert np.allclose(res.energy[P, pb], ref.energy[P, pr], atol=1e-12, rtol=0)
+    assert np.allclose(res.n[P, pb], ref.n[P, pr], atol=1e-9)
 
 
 def test_bondless_cluster_on_sqrt3_cell_equals_site_decoupled():

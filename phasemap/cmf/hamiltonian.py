@@ -174,6 +174,30 @@ class ClusterOperators:
               "V": self.diag_V @ diag, "V2": float(self.diag_V2 @ diag), "top": self.top.astype(float) @ diag}
         return ex, float(-(pk * np.log(pk)).sum())
 
+    # -- parameter-independent term matrices (batched solver) ---------------------------
+    def term_matrices(self) -> list:
+        """Sparse matrices ``B_k`` of the off-diagonal terms (``F`` hopping families, then the
+        ``S`` site fields), so that ``H = sum_k coef[k] B_k + diag`` (cached)."""
+        mats = getattr(self, "_term_mats", None)
+        if mats is None:
+            mats = []
+            for k in range(self.n_terms):
+                sel = self.term == k
+                mats.append(sp.csr_matrix((self.base[sel], (self.rows[sel], self.indices[sel])),
+                                          shape=(self.dim, self.dim)))
+            self._term_mats = mats
+        return mats
+
+    def dense_terms(self) -> np.ndarray:
+        """(K, dim, dim) dense ``B_k`` (only for small clusters; cached)."""
+        dt = getattr(self, "_dense_terms", None)
+        if dt is None:
+            dt = np.zeros((self.n_terms, self.dim, self.dim))
+            np.add.at(dt, (self.term[self.term < self.n_terms], self.rows[self.term < self.n_terms],
+                           self.indices[self.term < self.n_terms]), self.base[self.term < self.n_terms])
+            self._dense_terms = dt
+        return dt
+
     def site_field(self, a: int) -> sp.csr_matrix:
         """Sparse ``b_a + b_a^+`` (for linear response)."""
         sel = self.term == self.F + a

@@ -48,6 +48,7 @@ import numpy as np
 import scipy.linalg as sla
 
 from ..mf import MFBatchResult
+from ..mixing import Anderson
 from ..model import ConfigError, check_keys
 from ..params import ParamBatch
 from ..seeds import Seed, make_seeds
@@ -101,6 +102,16 @@ class CMFOptions:
         A scanned ``T`` (``ParamBatch.T``) takes precedence.
     thermal_max_dim : int, default 1024
         Largest cluster Hilbert dimension diagonalised in full at T > 0 (larger: ConfigError).
+    engine : {"auto", "batch", "point"}, default "auto"
+        "batch": all rows together (:mod:`phasemap.cmf.batch`; no continuation, every row
+        starts from its seed or ``init``); "point": the per-point loop with continuation
+        (the reference path); "auto": batch up to Hilbert dimension ``batch_max``, else point.
+    batch_max : int, default 1024
+        Largest Hilbert dimension solved by the batched engine under "auto".
+    batch_dense_max : int, default 128
+        Batched engine: dense ``eigh`` up to this dimension, batched Lanczos above.
+    batch_memory_mb : float, default 64
+        Batched engine: rows are processed in chunks whose Lanczos workspace stays below this.
     """
 
     tol: float = 1e-9
@@ -120,6 +131,11 @@ class CMFOptions:
     blas_threads: int | None = 1
     T: float = 0.0
     thermal_max_dim: int = 1024
+
+    engine: str = "auto"
+    batch_max: int = 1024
+    batch_dense_max: int = 128
+    batch_memory_mb: float = 64.0
 
     def __post_init__(self):
         from ..mf import MFOptions
@@ -253,15 +269,43 @@ def lanczos_ground_state(H, v0=None, tol: float = 1e-12, krylov: int = 40, max_r
     return E, v
 
 
+#: cluster levels closer than this (relative) to the lowest one count as degenerate
+DEGENERATE = 1e-10
+
+
+def pick_ground(w, v):
+    """Ground state(s) from full eigen-decompositions ``w (..., d)``, ``v (..., d, d)``.
+
+    In a degenerate ground space (levels within :data:`DEGENERATE`) the solver's choice of
+    basis is arbitrary and sensitive to rounding; the state returned is the projection of a
+    fixed reference vector onto that space, so every engine picks the same state. Gauge:
+    sum of the entries >= 0. Returns ``(..., d)``.
+    """
+    d = w.shape[-1]
+    u = _reference_vector(d)
+    deg = (w - w[..., :1]) <= DEGENERATE * np.maximum(1.0, np.abs(w[..., :1]))
+    c = np.einsum("...ij,i->...j", v, u) * deg
+    g = np.einsum("...ij,...j->...i", v, c)
+    nrm = np.linalg.norm(g, axis=-1, keepdims=True)
+    g = np.where(nrm > 1e-8, g / np.where(nrm > 0, nrm, 1.0), v[..., :, 0])
+    return g * np.where(g.sum(-1, keepdims=True) < 0, -1.0, 1.0)
+
+
+_REF: dict = {}
+
+
+def _reference_vector(d: int) -> np.ndarray:
+    u = _REF.get(d)
+    if u is None:
+        u = _REF[d] = np.random.default_rng(12345).uniform(0.5, 1.5, d)
+    return u
+
+
 def _ground_state(H, dense: bool, v0, tol):
-    if dense and H.shape[0] <= 32:  # tiny: the plain LAPACK call has the least overhead
+    if dense:
         w, v = np.linalg.eigh(H)
-        E, g = float(w[0]), v[:, 0]
-    elif dense:
-        w, v = sla.eigh(H, subset_by_index=[0, 0], driver="evr")
-        E, g = float(w[0]), v[:, 0]
-    else:
-        E, g = lanczos_ground_state(H, v0, tol)
+        return float(w[0]), pick_ground(w, v)
+    E, g = lanczos_ground_state(H, v0, tol)
     if g.sum() < 0:
         g = -g
     return E, g
@@ -280,9 +324,7 @@ def _solve_row(prob: ClusterProblem, x0, v0, opt: CMFOptions, n_max: int, T: flo
     S = prob.cluster.n_sites
     dense = prob.ops.dim <= opt.dense_max
     x = np.array(x0, float)
-    m = opt.anderson
-    dX, dF = [], []
-    prev_x = prev_f = None
+    mix = Anderson(1, 2 * S, opt.anderson, opt.mixing)
     v = v0
     best_r, last_gain = np.inf, 0
     conv = False
@@ -316,24 +358,7 @@ def _solve_row(prob: ClusterProblem, x0, v0, opt: CMFOptions, n_max: int, T: flo
             best_r, last_gain = r, it
         elif it - last_gain > opt.patience:
             break
-        xnew = x + opt.mixing * f
-        if m > 0 and prev_x is not None:
-            dX.append(x - prev_x)
-            dF.append(f - prev_f)
-            if len(dX) > m:
-                dX.pop(0)
-                dF.pop(0)
-            DX, DF = np.array(dX).T, np.array(dF).T
-            A = DF.T @ DF
-            reg = 1e-10 * max(np.trace(A), 1e-30)
-            try:
-                gam = np.linalg.solve(A + reg * np.eye(len(dX)), DF.T @ f)
-                step = x + opt.mixing * f - (DX + opt.mixing * DF) @ gam
-                if np.all(np.isfinite(step)):
-                    xnew = step
-            except np.linalg.LinAlgError:  # pragma: no cover
-                pass
-        prev_x, prev_f = x, f
+        xnew = mix.step(x[None], f[None])[0]
         xnew[:S] = np.clip(xnew[:S], 0.0, n_max)
         xnew[S:] = np.clip(xnew[S:], 0.0, None)
         x = xnew
@@ -404,6 +429,8 @@ def solve_cmf_batch(batch: ParamBatch, cluster="tri12", seeds: list[Seed] | None
         opt = CMFOptions(**options)
     elif options:
         opt = CMFOptions(**{**opt.__dict__, **options})
+    if opt.engine not in ENGINES:
+        raise ConfigError(f"cmf options: engine must be one of {', '.join(ENGINES)}, got {opt.engine!r}")
     model = batch.base
     cl = get_cluster(cluster, model.lattice)
     if np.any(batch.t < 0):
@@ -424,9 +451,43 @@ def solve_cmf_batch(batch: ParamBatch, cluster="tri12", seeds: list[Seed] | None
                 "'thermal_max_dim' at your own cost, which grows as dim^3 per iteration)")
     with blas_threads(opt.blas_threads):
         ops = cluster_operators(cl, batch.n_max)
-        out = _solve_points(batch, cl, ops, seeds, init, opt, T)
+        engine = opt.engine if opt.engine != "auto" else ("batch" if ops.dim <= opt.batch_max else "point")
+        if engine == "batch" and not hot:  # the batched engine is T = 0 only
+            out = _solve_batched(batch, cl, ops, seeds, init, opt)
+        else:
+            out = _solve_points(batch, cl, ops, seeds, init, opt, T)
     return CMFBatchResult(batch=batch, cell=cl.cell, seeds=seeds, options=opt, cluster=cl,
                           seconds=time.perf_counter() - t0, T=T if hot else None, **out)
+
+
+ENGINES = ("auto", "batch", "point")
+
+
+def _solve_batched(batch, cl, ops, seeds, init, opt):
+    """All (point, seed) rows together (:func:`phasemap.cmf.batch.solve_rows`), in chunks."""
+    from .batch import BatchProblem, solve_rows
+
+    P, K, S = batch.size, len(seeds), cl.n_sites
+    rows = P * K
+    if init is not None:
+        x0 = np.concatenate([init.n, init.phi], axis=2).reshape(rows, 2 * S)
+    else:
+        x0 = np.broadcast_to(np.stack([np.concatenate([s.n0, s.phi0]) for s in seeds])[None],
+                             (P, K, 2 * S)).reshape(rows, 2 * S)
+    rep = lambda a: np.repeat(np.asarray(a), K, axis=0)  # noqa: E731
+    prob = BatchProblem(cl, ops, rep(batch.t), rep(batch.V), rep(batch.U), rep(batch.V2), rep(batch.mu),
+                        batch.hardcore)
+    dense = ops.dim <= opt.batch_dense_max
+    per_row = 8.0 * ops.dim * (ops.dim if dense else 20)  # dense H, or the Krylov vectors
+    chunk = max(16, int(opt.batch_memory_mb * 2**20 / per_row))
+    parts = []
+    for s0 in range(0, rows, chunk):
+        sel = np.arange(s0, min(rows, s0 + chunk))
+        parts.append(solve_rows(prob.take(sel), x0[sel], opt, batch.n_max, dense, rng=opt.rng))
+    r = {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
+    return dict(energy=r["energy"].reshape(P, K), converged=r["converged"].reshape(P, K),
+                iterations=r["iterations"].reshape(P, K), residual=r["residual"].reshape(P, K),
+                n=r["n"].reshape(P, K, S), phi=r["phi"].reshape(P, K, S), top_weight=r["top"].reshape(P, K))
 
 
 def _solve_points(batch, cl, ops, seeds, init, opt, T):
