@@ -26,9 +26,8 @@ from __future__ import annotations
 import numpy as np
 
 from ..mixing import Anderson
-from .selfconsistency import pick_ground
 
-__all__ = ["BatchProblem", "solve_rows", "lanczos_batch"]
+__all__ = ["BatchProblem", "solve_rows", "lanczos_batch", "pick_ground"]
 
 #: condensate fields below this count as zero for the warm start (sector-trap escape)
 ZERO_FIELD = 1e-6
@@ -91,6 +90,38 @@ class BatchProblem:
 
 
 # -- ground states ------------------------------------------------------------------------
+#: cluster levels closer than this (relative) to the lowest one count as degenerate
+DEGENERATE = 1e-10
+
+
+def pick_ground(w, v):
+    """Ground state(s) from full eigen-decompositions ``w (..., d)``, ``v (..., d, d)``.
+
+    In a degenerate ground space (levels within :data:`DEGENERATE`) the solver's choice of
+    basis is arbitrary and sensitive to rounding; the state returned is the projection of a
+    fixed reference vector onto that space, so every engine picks the same state. Gauge:
+    sum of the entries >= 0. Returns ``(..., d)``.
+    """
+    d = w.shape[-1]
+    u = _reference_vector(d)
+    deg = (w - w[..., :1]) <= DEGENERATE * np.maximum(1.0, np.abs(w[..., :1]))
+    c = np.einsum("...ij,i->...j", v, u) * deg
+    g = np.einsum("...ij,...j->...i", v, c)
+    nrm = np.linalg.norm(g, axis=-1, keepdims=True)
+    g = np.where(nrm > 1e-8, g / np.where(nrm > 0, nrm, 1.0), v[..., :, 0])
+    return g * np.where(g.sum(-1, keepdims=True) < 0, -1.0, 1.0)
+
+
+_REF: dict = {}
+
+
+def _reference_vector(d: int) -> np.ndarray:
+    u = _REF.get(d)
+    if u is None:
+        u = _REF[d] = np.random.default_rng(12345).uniform(0.5, 1.5, d)
+    return u
+
+
 def _matvec(mats, coef, diag, X):
     """``H_r x_r`` for every column r of ``X`` (dim, R)."""
     Y = diag.T * X

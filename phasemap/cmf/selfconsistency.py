@@ -49,6 +49,7 @@ import scipy.linalg as sla
 
 from ..mf import MFBatchResult
 from ..mixing import Anderson
+from .batch import BatchProblem, pick_ground, solve_rows
 from ..model import ConfigError, check_keys
 from ..params import ParamBatch
 from ..seeds import Seed, make_seeds
@@ -269,38 +270,6 @@ def lanczos_ground_state(H, v0=None, tol: float = 1e-12, krylov: int = 40, max_r
     return E, v
 
 
-#: cluster levels closer than this (relative) to the lowest one count as degenerate
-DEGENERATE = 1e-10
-
-
-def pick_ground(w, v):
-    """Ground state(s) from full eigen-decompositions ``w (..., d)``, ``v (..., d, d)``.
-
-    In a degenerate ground space (levels within :data:`DEGENERATE`) the solver's choice of
-    basis is arbitrary and sensitive to rounding; the state returned is the projection of a
-    fixed reference vector onto that space, so every engine picks the same state. Gauge:
-    sum of the entries >= 0. Returns ``(..., d)``.
-    """
-    d = w.shape[-1]
-    u = _reference_vector(d)
-    deg = (w - w[..., :1]) <= DEGENERATE * np.maximum(1.0, np.abs(w[..., :1]))
-    c = np.einsum("...ij,i->...j", v, u) * deg
-    g = np.einsum("...ij,...j->...i", v, c)
-    nrm = np.linalg.norm(g, axis=-1, keepdims=True)
-    g = np.where(nrm > 1e-8, g / np.where(nrm > 0, nrm, 1.0), v[..., :, 0])
-    return g * np.where(g.sum(-1, keepdims=True) < 0, -1.0, 1.0)
-
-
-_REF: dict = {}
-
-
-def _reference_vector(d: int) -> np.ndarray:
-    u = _REF.get(d)
-    if u is None:
-        u = _REF[d] = np.random.default_rng(12345).uniform(0.5, 1.5, d)
-    return u
-
-
 def _ground_state(H, dense: bool, v0, tol):
     if dense:
         w, v = np.linalg.eigh(H)
@@ -465,8 +434,6 @@ ENGINES = ("auto", "batch", "point")
 
 def _solve_batched(batch, cl, ops, seeds, init, opt):
     """All (point, seed) rows together (:func:`phasemap.cmf.batch.solve_rows`), in chunks."""
-    from .batch import BatchProblem, solve_rows
-
     P, K, S = batch.size, len(seeds), cl.n_sites
     rows = P * K
     if init is not None:
