@@ -41,6 +41,55 @@ def _solve_small(A, b, k):
 
 
 @njit(cache=True)
+def anderson_step(x, f, px, pf, hx, hf, G, A, bb, it, m, mixing, out):
+    """Compiled Anderson (type II) step of one row, the per-row copy of :mod:`phasemap.mixing`.
+
+    ``it`` is the 1-based iteration; histories ``hx, hf`` (m, D) are a ring buffer, ``G`` the
+    Gram matrix of ``hf`` kept up to date (only the new slot changes), ``A, bb`` workspace.
+    Writes the proposed next iterate (unclipped) to ``out`` and records ``(x, f)`` in ``px, pf``.
+    Kept compiled because a numba ``prange`` loop cannot call the NumPy mixer;
+    ``tests/test_mixing.py`` checks that both give the same iterates.
+    """
+    D = x.shape[0]
+    k = min(it - 1, m)
+    ok = False
+    if k > 0:
+        slot = (it - 2) % m
+        for d in range(D):
+            hx[slot, d] = x[d] - px[d]
+            hf[slot, d] = f[d] - pf[d]
+        for a in range(k):  # Gram matrix: only the new slot's row/column changes
+            s3 = 0.0
+            for d in range(D):
+                s3 += hf[a, d] * hf[slot, d]
+            G[a, slot] = s3
+            G[slot, a] = s3
+        tr = 0.0
+        for a in range(k):
+            s2 = 0.0
+            for d in range(D):
+                s2 += hf[a, d] * f[d]
+            bb[a] = s2
+            tr += G[a, a]
+        reg = 1e-10 * max(tr, 1e-30)
+        for a in range(k):
+            for c in range(k):
+                A[a, c] = G[a, c]
+            A[a, a] += reg
+        ok = _solve_small(A, bb, k)
+    for d in range(D):
+        px[d] = x[d]
+        pf[d] = f[d]
+        st = x[d] + mixing * f[d]
+        if ok:
+            for a in range(k):
+                st -= bb[a] * (hx[a, d] + mixing * hf[a, d])
+        if not np.isfinite(st):
+            st = x[d] + mixing * f[d]
+        out[d] = st
+
+
+@njit(cache=True)
 def _map(x, g, t, V, V2, mu, U, T, nmax, plus, minus, nplus, nminus, S, H):
     """One self-consistency map: local ground states (T = 0) or local thermal states (T > 0)
     in the fields of the current iterate."""
@@ -119,6 +168,7 @@ def _one_row(r, t, V, V2, mu, U, T, nmax, plus, minus, nplus, nminus, x0, tol, m
     G = np.zeros((mm, mm))
     H = np.zeros((nmax + 1, nmax + 1))
     bb = np.zeros(mm)
+    step = np.empty(D)
     best = np.inf
     last = 0
     it = 0
@@ -146,47 +196,14 @@ def _one_row(r, t, V, V2, mu, U, T, nmax, plus, minus, nplus, nminus, x0, tol, m
         if it - last > (3 if insulating else patience):
             out[r] = g  # the map of the last iterate: a consistent product state
             break
-        k = min(it - 1, m)
-        if k > 0:
-            slot = (it - 2) % m
-            for d in range(D):
-                hx[slot, d] = x[d] - px[d]
-                hf[slot, d] = f[d] - pf[d]
-            for a in range(k):  # Gram matrix: only the new slot's row/column changes
-                s3 = 0.0
-                for d in range(D):
-                    s3 += hf[a, d] * hf[slot, d]
-                G[a, slot] = s3
-                G[slot, a] = s3
-            tr = 0.0
-            for a in range(k):
-                s2 = 0.0
-                for d in range(D):
-                    s2 += hf[a, d] * f[d]
-                bb[a] = s2
-                tr += G[a, a]
-            reg = 1e-10 * max(tr, 1e-30)
-            for a in range(k):
-                for c in range(k):
-                    A[a, c] = G[a, c]
-                A[a, a] += reg
-            ok = _solve_small(A, bb, k)
-        else:
-            ok = False
+        anderson_step(x, f, px, pf, hx, hf, G, A, bb, it, m, mixing, step)
         for d in range(D):
-            px[d] = x[d]
-            pf[d] = f[d]
-            step = x[d] + mixing * f[d]
-            if ok:
-                for a in range(k):
-                    step -= bb[a] * (hx[a, d] + mixing * hf[a, d])
-            if not np.isfinite(step):
-                step = x[d] + mixing * f[d]
+            st = step[d]
             if d < S:
-                step = min(max(step, 0.0), float(nmax))
-            elif step < 0.0:  # halve instead of clipping: phi = 0 would be a trap
-                step = 0.5 * x[d]
-            x[d] = step
+                st = min(max(st, 0.0), float(nmax))
+            elif st < 0.0:  # halve instead of clipping: phi = 0 would be a trap
+                st = 0.5 * x[d]
+            x[d] = st
     else:
         _map(x, g, t[r], V[r], V2[r], mu[r], U[r], T[r], nmax, plus, minus, nplus, nminus, S, H)
         out[r] = g

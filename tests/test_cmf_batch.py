@@ -81,6 +81,11 @@ def test_batched_engine_equals_per_point_path_tri6():
     _compare(_models("tri-hard")[:4], "tri6", n_random=0)
 
 
+def test_lockstep_numpy_loop_equals_per_point_path():
+    # the batched engine's NumPy loop (compiled=False) instead of the compiled per-row kernel
+    _compare(_models("tri-hard"), "tri3", compiled=False)
+
+
 def test_batched_lanczos_equals_per_point_path():
     # force the batched Lanczos eigensolver on a 16-state cluster
     _compare(_models("sq-hard"), "sq2x2", batch_dense_max=8)

@@ -306,6 +306,14 @@ def solve_rows(prob: BatchProblem, x0, opt, n_max: int, dense: bool, rng=0):
         ex = gs.expectations(Gv)
         return np.concatenate([ex["n"], ex["phi"]], axis=1), Gv, ex
 
+    if dense and getattr(opt, "compiled", False):
+        from .kernel import iterate_dense_rows
+
+        x_out, iters, resid, conv = iterate_dense_rows(prob, x0, opt, n_max, _reference_vector(ops.dim))
+        _, _, ex = G_of(prob, x_out, None, None)
+        E = prob.energy(ex["n"], ex["phi"], ex["hop"], ex["U"], ex["V"], ex["V2"])
+        return dict(energy=E, converged=conv, iterations=iters.astype(int), residual=resid, n=ex["n"],
+                    phi=ex["phi"], top=ex["top"].max(1))
     it = 0
     for it in range(1, opt.max_iter + 1):
         r_inner = np.full(len(x), opt.eig_tol)

@@ -113,6 +113,9 @@ class CMFOptions:
         Batched engine: dense ``eigh`` up to this dimension, batched Lanczos above.
     batch_memory_mb : float, default 64
         Batched engine: rows are processed in chunks whose Lanczos workspace stays below this.
+    compiled : bool, default True
+        Batched engine, dense clusters: compiled per-row loop (:mod:`phasemap.cmf.kernel`);
+        False: the NumPy loop over all rows in lock-step (same iteration).
     """
 
     tol: float = 1e-9
@@ -137,6 +140,7 @@ class CMFOptions:
     batch_max: int = 1024
     batch_dense_max: int = 128
     batch_memory_mb: float = 64.0
+    compiled: bool = True
 
     def __post_init__(self):
         from ..mf import MFOptions

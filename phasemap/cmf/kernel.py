@@ -1,0 +1,212 @@
+"""Compiled (numba) per-row loop of the batched cluster mean field, for small dense clusters.
+
+Same iteration as :func:`phasemap.cmf.batch.solve_rows` with dense ground states: fields from
+the decoupled bonds, ``H = sum_k coef_k B_k + diag`` from the precomputed dense term matrices,
+LAPACK ``eigh``, the deterministic choice in a degenerate ground space
+(:func:`phasemap.cmf.batch.pick_ground`), Anderson mixing (the compiled step
+:func:`phasemap.mf_kernel.anderson_step`), clipping, convergence and stall tests. Each row runs
+to its own end inside one compiled loop (no interpreter work per iteration, no waiting for the
+slowest row). Returns the end iterates; the final states and energies are evaluated in NumPy
+by the caller.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit, prange
+
+from ..mf_kernel import anderson_step
+
+__all__ = ["iterate_dense_rows"]
+
+
+@njit(cache=True)
+def _ground(x, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H, g, out):
+    """Map one iterate ``x`` (2S) to the ground state's (n, phi) in ``out``; ``g`` receives the state."""
+    dim = B.shape[1]
+    K = B.shape[0]
+    for i in range(dim):
+        for j in range(dim):
+            H[i, j] = 0.0
+    for k in range(K):
+        if k < F:
+            c = -t[k]
+        else:
+            a = k - F
+            Phi = 0.0
+            for f in range(F):
+                s = 0.0
+                for b in range(S):
+                    s += M[f, a, b] * x[S + b]
+                Phi += t[f] * s
+            c = -Phi
+        if c != 0.0:
+            for i in range(dim):
+                for j in range(dim):
+                    H[i, j] += c * B[k, i, j]
+    for i in range(dim):
+        d = -mu * dN[i] + V2 * dV2[i]
+        for f in range(F):
+            d += V[f] * dV[f, i]
+        if nmax > 1:
+            d += U * dU[i]
+        H[i, i] += d
+    for a in range(S):
+        e = 0.0
+        for f in range(F):
+            s = 0.0
+            for b in range(S):
+                s += M[f, a, b] * x[b]
+            e += V[f] * s
+        s2 = 0.0
+        for b in range(S):
+            s2 += M2[a, b] * x[b]
+        e += V2 * s2
+        for i in range(dim):
+            H[i, i] += e * occ[a, i]
+    w, v = np.linalg.eigh(H)
+    thr = 1e-10 * max(1.0, abs(w[0]))
+    for i in range(dim):
+        g[i] = 0.0
+    for j in range(dim):
+        if w[j] - w[0] > thr:
+            break
+        cj = 0.0
+        for i in range(dim):
+            cj += v[i, j] * u[i]
+        for i in range(dim):
+            g[i] += cj * v[i, j]
+    nrm = 0.0
+    for i in range(dim):
+        nrm += g[i] * g[i]
+    nrm = np.sqrt(nrm)
+    if nrm > 1e-8:
+        for i in range(dim):
+            g[i] /= nrm
+    else:
+        for i in range(dim):
+            g[i] = v[i, 0]
+    sg = 0.0
+    for i in range(dim):
+        sg += g[i]
+    if sg < 0:
+        for i in range(dim):
+            g[i] = -g[i]
+    for a in range(S):
+        nn = 0.0
+        for i in range(dim):
+            nn += occ[a, i] * g[i] * g[i]
+        out[a] = nn
+        ph = 0.0
+        for i in range(dim):
+            if g[i] != 0.0:
+                s = 0.0
+                for j in range(dim):
+                    s += B[F + a, i, j] * g[j]
+                ph += g[i] * s
+        out[S + a] = 0.5 * ph
+
+
+@njit(cache=True)
+def _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m, patience,
+         xout, iters, resid, conv):
+    D = x0.shape[1]
+    S = D // 2
+    F = t.shape[1]
+    dim = B.shape[1]
+    mm = max(m, 1)
+    x = x0[r].copy()
+    gx = np.empty(D)
+    f = np.empty(D)
+    px = np.zeros(D)
+    pf = np.zeros(D)
+    hx = np.zeros((mm, D))
+    hf = np.zeros((mm, D))
+    A = np.zeros((mm, mm))
+    G = np.zeros((mm, mm))
+    bb = np.zeros(mm)
+    step = np.empty(D)
+    H = np.empty((dim, dim))
+    g = np.empty(dim)
+    best = np.inf
+    last = 0
+    res = np.inf
+    it = 0
+    done = False
+    while it < max_iter:
+        it += 1
+        _ground(x, t[r], V[r], U[r], V2[r], mu[r], nmax, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H, g, gx)
+        res = 0.0
+        for d in range(D):
+            f[d] = gx[d] - x[d]
+            if abs(f[d]) > res:
+                res = abs(f[d])
+        if res < best * 0.999:
+            best = res
+            last = it
+        if res < tol:
+            for d in range(D):
+                xout[r, d] = gx[d]
+            conv[r] = True
+            done = True
+            break
+        if it - last > patience:
+            for d in range(D):
+                xout[r, d] = x[d]
+            done = True
+            break
+        anderson_step(x, f, px, pf, hx, hf, G, A, bb, it, m, mixing, step)
+        for d in range(D):
+            st = step[d]
+            if d < S:
+                st = min(max(st, 0.0), float(nmax))
+            elif st < 0.0:
+                st = 0.0
+            x[d] = st
+    if not done:
+        for d in range(D):
+            xout[r, d] = x[d]
+    iters[r] = it
+    resid[r] = res
+
+
+@njit(cache=True)
+def _rows_serial(t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m, patience,
+                 xout, iters, resid, conv):
+    for r in range(x0.shape[0]):
+        _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m, patience,
+             xout, iters, resid, conv)
+
+
+@njit(parallel=True, cache=True)
+def _rows_parallel(t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m,
+                   patience, xout, iters, resid, conv):
+    for r in prange(x0.shape[0]):
+        _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m, patience,
+             xout, iters, resid, conv)
+
+
+#: below this many rows the threads' start-up costs more than they save
+PARALLEL_MIN_ROWS = 4096
+
+
+def iterate_dense_rows(prob, x0, opt, n_max: int, u):
+    """Iterate every row of ``x0`` (R, 2S) of :class:`~phasemap.cmf.batch.BatchProblem` ``prob``.
+
+    Returns ``(x_end, iterations, residual, converged)``: converged rows end on the map of
+    their last iterate, stalled or capped rows on their last iterate (as in ``solve_rows``).
+    """
+    ops = prob.ops
+    R = len(x0)
+    xout = np.array(x0, float, copy=True)
+    iters = np.zeros(R, np.int64)
+    resid = np.full(R, np.inf)
+    conv = np.zeros(R, np.bool_)
+    run = _rows_parallel if R >= PARALLEL_MIN_ROWS else _rows_serial
+    run(np.ascontiguousarray(prob.t), np.ascontiguousarray(prob.V), np.ascontiguousarray(prob.U, float),
+        np.ascontiguousarray(prob.V2, float), np.ascontiguousarray(prob.mu, float), int(n_max),
+        np.ascontiguousarray(prob.M), np.ascontiguousarray(prob.M2), ops.dense_terms(), np.ascontiguousarray(ops.occ),
+        ops.diag_N.astype(float), np.ascontiguousarray(ops.diag_V), ops.diag_V2.astype(float),
+        ops.diag_U.astype(float), np.asarray(u, float), np.ascontiguousarray(x0, dtype=float), float(opt.tol),
+        int(opt.max_iter), float(opt.mixing), max(int(opt.anderson), 0), int(opt.patience), xout, iters, resid, conv)
+    return xout, iters, resid, conv
