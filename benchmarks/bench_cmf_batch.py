@@ -67,22 +67,24 @@ def part_map(n: int = 100, sample: int = 100) -> None:
           f"max |dE| = {np.abs(eb - ep)[both].max():.2e} over {both.sum()} points converged in both")
 
 
-def run_cli(args: list[str]) -> float:
+def run_cli(args: list[str]) -> float | None:
     with tempfile.TemporaryDirectory() as d:
         t0 = time.perf_counter()
         out = subprocess.run([sys.executable, "-m", "phasemap", *args], capture_output=True, text=True, cwd=d)
         dt = time.perf_counter() - t0
     if out.returncode != 0:
         print(out.stderr[-2000:], file=sys.stderr)
+        return None
     return dt
 
 
-def part_cli() -> None:
-    for args in (["strain-check", "demo", "--strain", "0.12", "--method", "cmf:tri3"],
-                 ["strain-sweep", "demo", "--methods", "mf,cmf:tri3,cmf:tri6"]):
+def part_cli(sweep_only: bool = False) -> None:
+    for args in ([] if sweep_only else [["strain-check", "demo", "--strain", "0.12", "--method", "cmf:tri3"]]) + [
+                 ["strain-sweep", "demo", "--out", "sweep-out", "--methods", "mf,cmf:tri3,cmf:tri6"]]:
         l0 = load()
         dt = run_cli(args)
-        print(f"[cli] phasemap {' '.join(args)}: {dt:.1f} s wall ({l0} before, {load()} after)")
+        took = "FAILED" if dt is None else f"{dt:.1f} s wall"
+        print(f"[cli] phasemap {' '.join(args)}: {took} ({l0} before, {load()} after)")
 
 
 def part_line(points: int = 8, dt: float = 0.002) -> None:
@@ -110,12 +112,14 @@ def part_line(points: int = 8, dt: float = 0.002) -> None:
 
 def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    p.add_argument("--only", choices=("map", "cli", "line"))
+    p.add_argument("--only", choices=("map", "cli", "line", "sweep"))
     a = p.parse_args(argv)
     print(f"{os.cpu_count()} CPUs; {load()}")
     for name, fn in (("map", part_map), ("line", part_line), ("cli", part_cli)):
         if a.only in (None, name):
             fn()
+    if a.only == "sweep":
+        part_cli(sweep_only=True)
     return 0
 
 
