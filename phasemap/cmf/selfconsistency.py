@@ -107,8 +107,9 @@ class CMFOptions:
         "batch": all rows together (:mod:`phasemap.cmf.batch`; no continuation, every row
         starts from its seed or ``init``); "point": the per-point loop with continuation
         (the reference path); "auto": batch up to Hilbert dimension ``batch_max``, else point.
-    batch_max : int, default 1024
-        Largest Hilbert dimension solved by the batched engine under "auto".
+    batch_max : int, default 128
+        Largest Hilbert dimension solved by the batched engine under "auto" (the batched
+        Lanczos above ``batch_dense_max`` is opt-in: raise this or pass ``engine="batch"``).
     batch_dense_max : int, default 128
         Batched engine: dense ``eigh`` up to this dimension, batched Lanczos above.
     batch_memory_mb : float, default 64
@@ -137,7 +138,7 @@ class CMFOptions:
     thermal_max_dim: int = 1024
 
     engine: str = "auto"
-    batch_max: int = 1024
+    batch_max: int = 128
     batch_dense_max: int = 128
     batch_memory_mb: float = 64.0
     compiled: bool = True
