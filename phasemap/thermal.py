@@ -38,8 +38,11 @@ from .params import points
 
 __all__ = ["transition_temperatures", "ORDERS"]
 
-#: order name -> (flat variable of phasemap.scan.evaluate, threshold field of Thresholds)
-ORDERS = {"density": ("contrast", "contrast_tol"), "condensate": ("condensate_max", "condensate_tol")}
+#: order name -> (flat variable of phasemap.scan.evaluate giving its size, phases that have the order).
+#: Presence is read from the classification (which knows which cluster sites are equivalent, so an
+#: anisotropic cluster's inequivalent sites are not a density wave); the size serves the
+#: first-order test.
+ORDERS = {"density": ("contrast", ("solid", "supersolid")), "condensate": ("condensate_max", ("superfluid", "supersolid"))}
 
 
 def _line(model: Model, line: dict | None) -> tuple[dict, int]:
@@ -119,11 +122,10 @@ def transition_temperatures(model: Model, line: dict | None = None, T_max: float
     out = {"phase_T0": ("point", flat["label"].reshape(P, G)[:, 0].astype(str))}
     steps = int(math.ceil(math.log2(1.0 / (n_T * tol))))
     for o in orders:
-        key, thr_name = ORDERS[o]
-        thr = getattr(thresholds, thr_name)
+        key, phases = ORDERS[o]
         op = flat[key].reshape(P, G)
         conv = flat["converged"].reshape(P, G)
-        present = (op > thr) & conv
+        present = np.isin(flat["phase"], phases).reshape(P, G) & conv
         ordered = present[:, 0]
         off = np.where(~present, np.arange(G)[None, :], G).min(1)  # first grid T without the order
         above = ordered & (off >= G)
@@ -141,7 +143,7 @@ def transition_temperatures(model: Model, line: dict | None = None, T_max: float
             for _ in range(steps):
                 mid = 0.5 * (lo + hi)
                 f = run(todo, mid)
-                same = (f[key] > thr) & f["converged"]
+                same = np.isin(f["phase"], phases) & f["converged"]
                 unconv[todo] |= ~f["converged"]
                 lo, hi = np.where(same, mid, lo), np.where(same, hi, mid)
                 op_lo = np.where(same, f[key], op_lo)
