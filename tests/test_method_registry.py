@@ -54,6 +54,9 @@ def test_registered_toy_is_found_and_spelled_once(toy):
     with pytest.raises(ConfigError, match="did you mean 'tol'"):
         MethodSpec.parse("toygas", tl=1e-9)
     assert [s.name for s in parse_specs("mf,toygas,cmf:tri6")] == ["mf", "toygas", "cmf:tri6"]
+    for bad in ("mf,", ",mf", "mf,,cmf:tri6", ""):
+        with pytest.raises(ConfigError, match="methods"):
+            parse_specs(bad)
 
 
 def test_toy_through_solve(toy):

@@ -340,9 +340,11 @@ def parse_spec(text, **options) -> MethodSpec:
 
 def parse_specs(text) -> list[MethodSpec]:
     """Comma-separated specs (``"mf,cmf:tri12"``) or a list -> list of :class:`MethodSpec`."""
-    items = list(text) if isinstance(text, (list, tuple)) else [x for x in str(text).split(",") if x.strip()]
-    if not items:
+    items = list(text) if isinstance(text, (list, tuple)) else str(text).split(",")
+    if not any(str(x).strip() for x in items):
         raise ConfigError("methods: give at least one method (e.g. 'mf' or 'mf,cmf:tri12')")
+    if any(not str(x).strip() for x in items):
+        raise ConfigError(f"methods: {text!r} has an empty item; give a comma list such as 'mf,cmf:tri12'")
     specs = [MethodSpec.parse(x) for x in items]
     names = [s.name for s in specs]
     if len(set(names)) != len(names):
