@@ -14,7 +14,7 @@ import sys
 from ..model import ConfigError
 
 # command-group modules, in the order they appear in --help
-GROUPS = ["point", "run", "replot", "demo", "ed", "scaling", "strain"]
+GROUPS = ["point", "run", "replot", "demo", "ed", "scaling", "qmc", "strain"]
 
 
 class _Parser(argparse.ArgumentParser):
