@@ -288,8 +288,9 @@ def _scan(where: str, d, model: Model, default_name: str) -> ScanSpec:
             opts = impl.parse_arg(raw.partition(":")[2])
     except ConfigError as e:
         raise ConfigError(f"{where}.{e}") from None
-    if not impl.capabilities.grand_canonical:
-        gc = [n for n in available() if get_method(n).capabilities.grand_canonical]
+    if not impl.capabilities.grand_canonical and not hasattr(impl, "evaluate_points"):
+        gc = [n for n in available() if get_method(n).capabilities.grand_canonical
+              or hasattr(get_method(n), "evaluate_points")]
         raise ConfigError(f"{where}.method: {impl.name!r} ({impl.title}) is not grand canonical; maps and curves "
                           f"need one of {', '.join(gc)} (use the method's own commands)")
     s.method = impl.name

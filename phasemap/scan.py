@@ -48,6 +48,9 @@ def evaluate(batch: ParamBatch, method="mf", options=None, thresholds=Thresholds
     """
     impl, options = resolve(method, options)
     check_temperature(impl, batch.T)
+    if not impl.capabilities.grand_canonical and hasattr(impl, "evaluate_points"):
+        # point-by-point statistical methods (qmc): every point in parallel, errors as error_* arrays
+        return impl.evaluate_points(batch, options, thresholds)
     solver = impl.batch_solver(options)
     cap = impl.max_points(batch.base, options)  # memory guard (raises if not even one point fits)
     chunk = min(chunk, cap) if cap else chunk
@@ -204,7 +207,7 @@ def phase_map(model: Model, x=("t", None), y=("mu", None), relative=True, method
                      "from boundaries)")
     _cutoff_flags(batch.base, flat, flags, ds, resolve(method, options)[0].options(options))
     ds.attrs["flags"] = json.dumps(flags)
-    if refine:
+    if refine and _refinable(method, options):
         bd = refine_boundaries(model, ds, relative=relative, method=method, options=options,
                                thresholds=thresholds, tol=refine_tol, progress=progress)
         ds = ds.merge(bd)
@@ -214,6 +217,13 @@ def phase_map(model: Model, x=("t", None), y=("mu", None), relative=True, method
                          "(boundary_converged = 0): not phase boundaries")
             ds.attrs["flags"] = json.dumps(flags)
     return ds
+
+
+def _refinable(method, options) -> bool:
+    """Bisection of boundaries/edges on classified labels: deterministic methods only (a label from
+    a Monte Carlo run is noisy; statistical maps stay on their grid with error bars)."""
+    impl, _ = resolve(method, options)
+    return not impl.capabilities.error_bars
 
 
 def _sites_of(method, options, batch):
@@ -410,7 +420,8 @@ def filling_curve(model: Model, mu=None, relative=True, method="mf", options=Non
     names = ("mu",)
     # plateau runs
     runs, start = [], 0
-    for i in range(1, len(mu) + 1):
+    # statistical methods (qmc): no plateau runs from noisy labels; n(mu) with its error bars is the answer
+    for i in range(1, len(mu) + 1 if _refinable(method, options) else 0):
         if i == len(mu) or labels[i] != labels[start]:
             if phases[start] in INCOMPRESSIBLE and conv[start]:
                 runs.append((start, i - 1))
@@ -422,6 +433,7 @@ def filling_curve(model: Model, mu=None, relative=True, method="mf", options=Non
             if 0 <= outside < len(mu) and conv[outside]:
                 seg_a.append(mu[inside]), seg_b.append(mu[outside]), seg_lab.append(labels[inside])
     edges = {}
+    refine = refine and _refinable(method, options)
     if refine and seg_a:
         lo, hi, _, fhi, _ = bisect_labels(model, names, np.array(seg_a)[:, None], np.array(seg_b)[:, None],
                                           np.array(seg_lab), relative, method, options, thresholds, tol, progress)

@@ -23,11 +23,61 @@ SWEEP_EPILOG = """examples:
   phasemap strain-sweep examples/strain_demo.csv --out strain-out
   phasemap strain-sweep examples/strain_demo.csv --out strain-out --methods mf,cmf:tri6 --lambda 0.7:1.0:4
   phasemap strain-sweep examples/strain_demo.csv --out strain-out --methods mf,ed:tri21
-  phasemap strain-sweep demo --out strain-out --methods mf,cmf:tri3 --T-measure 2.0"""
+  phasemap strain-sweep demo --out strain-out --methods mf,cmf:tri3 --T-measure 2.0
+  phasemap strain-sweep demo --out strain-out --methods mf,cmf:tri12,qmc
+  phasemap strain-sweep demo --out strain-out --methods qmc:6+9+12 --qmc sweeps=4000 --qmc every=1"""
 
 
 #: Bounds of the sweep's grid (each strain x mu point is solved for every seed).
 MAX_STRAINS, MAX_MU = 1001, 10001
+
+
+
+QMC_HELP = ("quantum Monte Carlo setting for qmc methods, repeatable: sizes=6+9+12, T_over_V, T, sweeps, "
+            "order_sweeps, bins, rounds, span, every (1: every strain), seed, workers (defaults: "
+            "phasemap.strain.qmc_method.QMC_STRAIN_DEFAULTS)")
+
+
+def _with_qmc(specs, items):
+    """Merge ``--qmc KEY=VALUE`` settings into the specs of methods with error bars (qmc); print
+    the settings every qmc spec will use (what the user can ask more of)."""
+    from ..methods import MethodSpec
+    from ..model import ConfigError
+
+    extra = {}
+    if items:
+        for it in items:
+            k, eq, v = it.partition("=")
+            if not eq or not k.strip():
+                raise ConfigError(f"--qmc: expected KEY=VALUE, got {it!r}")
+            k, v = k.strip(), v.strip()
+            if k == "sizes":
+                extra[k] = v
+                continue
+            for cast in (int, float):
+                try:
+                    v = cast(v)
+                    break
+                except ValueError:
+                    pass
+            extra[k] = v
+    out = []
+    for sp in specs:
+        if sp.capabilities.error_bars and sp.capabilities.temperature:
+            if extra:
+                sp = MethodSpec.parse(sp, **extra)
+            from ..strain.qmc_method import strain_settings
+
+            st = strain_settings(sp)
+            print(f"phasemap: {sp.name}: sizes {'+'.join(f'{L}x{L}' for L in st['sizes'])}, "
+                  + (f"T = {st['T']:g}" if st["T"] is not None else f"T = {st['T_over_V']:g} x max V")
+                  + f", {st['sweeps']} sweeps per edge run, {st['order_sweeps']} per order run, {st['rounds']} "
+                  f"bisection rounds, every {st['every']} strain(s), seed {st['seed']} (more: --qmc KEY=VALUE)",
+                  file=sys.stderr)
+        out.append(sp)
+    if extra and not any(sp.capabilities.error_bars for sp in specs):
+        raise ConfigError("--qmc: only with a qmc method in --method/--methods")
+    return out
 
 
 def register(sub) -> None:
@@ -47,6 +97,7 @@ def register(sub) -> None:
     c.add_argument("--melt-max", type=finite_float, default=10.0, help="largest t/V growth factor searched (default 10)")
     c.add_argument("--extrapolate", action="store_true", help="allow a strain outside the table (warned)")
     c.add_argument("--json", action="store_true", help="print the answer as JSON (same data as the text)")
+    c.add_argument("--qmc", action="append", default=[], metavar="KEY=VALUE", help=QMC_HELP)
     c.set_defaults(func=run_check)
 
     s = sub.add_parser("strain-sweep", help="critical strain per method, band, lambda scan, data and figures",
@@ -54,7 +105,8 @@ def register(sub) -> None:
                        "data (NetCDF, CSV, JSON) and figures into --out.", epilog=SWEEP_EPILOG, formatter_class=fmt)
     s.add_argument("table", help="strain table (.csv or .toml), or 'demo'")
     s.add_argument("--out", required=True, help="output folder (created; files written atomically)")
-    s.add_argument("--methods", default="mf", help="comma list: mf, cmf:<cluster>, ed:<cluster> (default mf)")
+    s.add_argument("--methods", default="mf", help="comma list: mf, cmf:<cluster>, ed:<cluster>, qmc[:6+9] (quantum Monte Carlo on "
+                   "L x L tori, extrapolated) (default mf)")
     s.add_argument("--lambda", dest="lambdas", default=None,
                    help="also scan interactions V -> lambda V: start:stop:count or comma list (e.g. 0.7:1.0:4)")
     s.add_argument("--scale", default="V", choices=("V", "t", "U", "V2"),
@@ -71,6 +123,7 @@ def register(sub) -> None:
     s.add_argument("--melting", action="store_true", help="compute T_melt(strain) without a measurement temperature")
     s.add_argument("--no-figures", action="store_true", help="write data only")
     s.add_argument("--json", action="store_true", help="print the summary as JSON")
+    s.add_argument("--qmc", action="append", default=[], metavar="KEY=VALUE", help=QMC_HELP)
     s.set_defaults(func=run_sweep)
 
 
@@ -107,7 +160,7 @@ def run_check(args) -> int:
     from ..strain.engine import parse_fraction
     from ._common import dumps_json
 
-    spec = _spec(args.method, args.cluster)
+    spec = _with_qmc([_spec(args.method, args.cluster)], args.qmc)[0]
     parse_fraction(args.fraction)
     table = read_table(args.table)
     _check_fraction(args.fraction, table)
@@ -146,7 +199,7 @@ def run_sweep(args) -> int:
     from ..store import check_output_folder, output_lock
 
     check_output_folder(args.out)  # before anything is read or computed
-    specs = parse_specs(args.methods)
+    specs = _with_qmc(parse_specs(args.methods), args.qmc)
     parse_fraction(args.fraction)
     from ..strain.melting import check_T_measure
 

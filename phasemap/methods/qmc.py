@@ -58,10 +58,17 @@ class QuantumMonteCarlo(Method):
         m = _SIZE.match(arg)
         if m:
             return {"size": (int(m.group(1)), int(m.group(2)))}
+        if "+" in arg:  # "qmc:6+9+12": the L x L sizes of the strain workflow / finite-size scaling
+            from ..strain.qmc_method import _sizes
+
+            return {"sizes": _sizes(arg)}
         return {"cluster": arg}
 
+    #: options used only by the strain workflow (phasemap.strain.qmc_method)
+    STRAIN_ONLY = ("sizes", "T_over_V", "order_sweeps", "rounds", "span", "every")
+
     def option_names(self):
-        return [f.name for f in fields(QMCOptions)]
+        return [f.name for f in fields(QMCOptions)] + list(self.STRAIN_ONLY)
 
     def options(self, options=None):
         from ..model import check_keys
@@ -87,10 +94,22 @@ class QuantumMonteCarlo(Method):
         c = d.get("cluster")
         return f"qmc:{c}" if isinstance(c, str) else "qmc"
 
+    def spec_name(self, options):
+        d = dict(options)
+        sizes = d.pop("sizes", None)
+        if sizes is None:
+            return super().spec_name(d)
+        return f"qmc:{'+'.join(str(L) for L in sizes)}" + "".join(f",{k}={v}" for k, v in sorted(d.items()))
+
     def solve_point(self, model, **options):
         from ..qmc import run_qmc
 
         d = self.options(options)
+        strain_only = sorted(k for k in self.STRAIN_ONLY if d.get(k) is not None)
+        if strain_only:
+            raise ConfigError(f"qmc options {strain_only}: only for the strain workflow (strain-check/strain-sweep); "
+                              "for one point use cluster=/size=, T=, sweeps=")
+        d = {k: v for k, v in d.items() if k not in self.STRAIN_ONLY}
         th = d.pop("thresholds", None)
         if isinstance(d.get("cluster"), str) and _SIZE.match(d["cluster"]):
             d["size"] = self.parse_arg(d.pop("cluster"))["size"]
@@ -101,6 +120,50 @@ class QuantumMonteCarlo(Method):
         except TypeError as e:
             raise ConfigError(f"qmc options: {e}") from None
         return res.to_solution(th)
+
+
+    # -- maps and filling curves (phasemap.scan.evaluate) ---------------------------------------
+    def evaluate_points(self, batch, options=None, thresholds=None):
+        """Every point of ``batch`` as one QMC run (all in parallel processes): flat arrays like
+        ``phasemap.scan.evaluate`` plus ``error_<key>``, ``tau_<key>`` and ``decorrelated``.
+        A point that is not decorrelated is phase ``unconverged`` (never classified)."""
+        from ..qmc.maps import evaluate_points
+
+        d = self.options(options)
+        th = d.pop("thresholds", None)  # the mean-field Thresholds of a scan do not apply (QMCThresholds)
+        return evaluate_points(self, batch, d, th)
+
+    def site_coordinates(self, batch, options=None):
+        from ..qmc.geometry import resolve_cell
+
+        d = dict(options or {})
+        model = batch.model(0)
+        if d.get("cluster") is None and d.get("size") is None:
+            d["cluster"] = self.config_default_arg(model)
+        cell, _ = resolve_cell(model, d.get("cluster"), d.get("size"))
+        return cell.sites
+
+    # -- strain workflow (phasemap/strain/qmc_method.py) ------------------------------------
+    def check_setup(self, spec, models, fraction="1/3"):
+        from ..strain.qmc_method import qmc_setup
+
+        qmc_setup(spec, models, fraction)
+
+    def strain_step(self, spec, models, fraction, **kw):
+        from ..strain.qmc_method import qmc_plateaus, qmc_setup, to_record
+
+        qmc_setup(spec, models, fraction)
+        return to_record(qmc_plateaus(models, spec, fraction), spec, fraction)
+
+    def strain_critical(self, spec, table, strains, record, fraction, **kw):
+        from ..strain.qmc_method import qmc_critical
+
+        return qmc_critical(spec, table, strains, record, fraction)
+
+    def strain_point(self, spec, model, record, mu, fraction, **kw):
+        from ..strain.qmc_method import qmc_report
+
+        return qmc_report(model, record, mu, fraction)
 
 
 METHOD = QuantumMonteCarlo()

@@ -310,6 +310,8 @@ def _closing_lines(d: dict) -> list[str]:
 def verdict_text(d: dict) -> str:
     """Plain-language verdict from a :func:`check_strain` dictionary (finite-lattice steps and
     sharp plateaus are described in their own words)."""
+    if d.get("verdict_lines"):  # the method wrote its own plain-language lines (Method.strain_point)
+        return "\n".join(list(d["verdict_lines"]) + _closing_lines(d))
     if not d["plateau"].get("sharp", True):
         return _verdict_text_step(d)
     u = d["unit"]

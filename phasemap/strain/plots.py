@@ -60,6 +60,32 @@ def _finite_label(sweep, n) -> str:
     return f"{n} ({info.get('n_sites', '?')} sites, N={info.get('N', '?')})"
 
 
+def _label(sweep, n) -> str:
+    """Legend label; statistical methods with several sizes say which (``qmc:6+9 (6x6+9x9, L->inf)``)."""
+    info = sweep.records[n].info
+    return f"{n} ({info['cluster']}, L→∞)" if "sizes" in info else n
+
+
+def _errorbar_lines(axes, sweep, colors, vref):
+    """Methods with error bars and no grand-canonical grid (qmc): extrapolated S(K)/N, stiffness, width/V."""
+    for n in sweep.names:
+        r = sweep.records[n]
+        if r.grid is not None or not r.sharp or "S(K)/N" not in r.errors:
+            continue
+        s = sweep.strains
+        for ax, key, scale in ((axes[0], "S(K)/N", 1.0), (axes[1], "stiffness", 1.0), (axes[2], "width", None)):
+            v = r.width if key == "width" else r.order.get(key)
+            e = r.errors.get(key)
+            if v is None or e is None:
+                continue
+            f = 1.0 / vref if scale is None else 1.0
+            k = np.isfinite(v)
+            lab = f"{_label(sweep, n)}: {'S(K)/N' if key == 'S(K)/N' else 'ρ_s' if key == 'stiffness' else 'width/V'}"
+            ax.errorbar(s[k], (v * f)[k], yerr=(e * f)[k], fmt="s-", color=colors[n], ms=2.5, lw=0.8, capsize=1.5,
+                        label=lab)
+            ax.legend(frameon=False, loc="best", fontsize=5)
+
+
 def _fig(w, h):
     fig = Figure(figsize=(w, h), constrained_layout=True)
     FigureCanvasAgg(fig)
@@ -91,8 +117,14 @@ def plot_plateau_edges(sweep) -> Figure:
             hi = np.where(ok, r.mu_hi, np.nan)
             ls = _STYLES[i % len(_STYLES)]
             ax.fill_between(s, lo, hi, where=ok, color=colors[n], alpha=0.18, lw=0)
-            ax.plot(s, lo, ls=ls, color=colors[n], marker=".", ms=3, label=f"{n}")
+            ax.plot(s, lo, ls=ls, color=colors[n], marker=".", ms=3, label=_label(sweep, n))
             ax.plot(s, hi, ls=ls, color=colors[n], marker=".", ms=3)
+            if "mu_lo" in r.errors:  # statistical methods: one-sigma error bars, every computed strain
+                for edge in ("mu_lo", "mu_hi"):
+                    v = getattr(r, edge)
+                    k = np.isfinite(v)
+                    ax.errorbar(s[k], v[k], yerr=r.errors[edge][k], fmt="none", ecolor=colors[n], elinewidth=0.7,
+                                capsize=1.5)
             c = sweep.critical[n]
             if c.in_band:
                 ax.plot([], [], color=colors[n], ls=":", lw=0.9, label=f"{n}: $s_c$ = {c.strain_c:.4g}")
@@ -160,10 +192,12 @@ def plot_order_parameters(sweep, mu=None) -> Figure:
         thr = [sweep.records[n].info["SK_threshold"] for n in eds if "SK_threshold" in sweep.records[n].info]
         if thr:
             axes[0].axhline(thr[0], color="0.4", lw=0.6, ls=":", label=f"finite-cluster order indicator {thr[0]:g}")
+        _errorbar_lines(axes, sweep, colors, vref)
         for ax in axes:
             _mark_critical(ax, sweep, colors)
         axes[0].set_ylabel("S(Q) (solid order)" if not eds else "S(Q), ED: S(K)/N")
-        axes[1].set_ylabel("max |⟨b⟩|")
+        has_rho = any("stiffness" in sweep.records[n].errors for n in sweep.names)
+        axes[1].set_ylabel("max |⟨b⟩|" + (f", QMC ρ_s [{u}]" if has_rho else ""))
         axes[2].set_ylabel("plateau width / V" if not eds else "width / V (ED: gap / V)")
         axes[2].set_xlabel(sweep.table.strain_label)
         if mu_k is not None:
