@@ -26,7 +26,7 @@ from ..classify import Thresholds
 from ..methods import parse_specs
 from .analysis import CAUTION
 from .critical import coarse_strains, critical_band
-from .engine import default_window, fixed_filling, parse_fraction
+from .engine import PlateauResult, default_window, fixed_filling, parse_fraction
 from .melting import check_T_measure
 from .sensitivity import critical_vs_lambda
 from .table import StrainTable
@@ -85,7 +85,7 @@ class StrainSweep:
             r = self.records[name]
             d = r.detail
             for i, s in enumerate(self.strains):
-                ff = fixed_filling(d, i) if r.sharp else {}
+                ff = fixed_filling(d, i) if isinstance(d, PlateauResult) else {}  # grand-canonical plateau search
                 row = {"method": name, "sharp": bool(r.sharp), "strain": float(s), "t_over_V": float(ratio[i]),
                        "mu_lo": float(r.mu_lo[i]), "mu_hi": float(r.mu_hi[i]), "width": float(r.width[i]),
                        "width_over_V": float(r.width[i] / vref[i]) if vref[i] > 0 else nan,
