@@ -60,3 +60,16 @@ def test_filling_curve_with_qmc_carries_errors_and_flags():
     # free bosons at V = 0 (hard-core, filling rises with mu): exact monotonic ordering within errors
     n, e = ds["filling"].values, ds["error_filling"].values
     assert n[1] - n[0] > 3 * math.hypot(*e)
+
+
+def test_toml_filling_curve_with_qmc(tmp_path):
+    from phasemap.cli import main
+    from phasemap.store import load_netcdf
+
+    cfg = tmp_path / "c.toml"
+    cfg.write_text('[model]\nlattice = "triangular"\nt = 0.3\nV = 0.0\nU = "hardcore"\nmu = 0.0\n\n'
+                   '[[scan]]\nname = "c"\nkind = "curve"\nx = {name = "mu", start = -0.5, stop = 0.5, num = 2}\n'
+                   'relative = false\nmethod = "qmc:3x3"\n\n[solver]\nT = 0.5\nsweeps = 200\nbins = 8\n')
+    assert main(["run", str(cfg), "--out", str(tmp_path / "o")]) == 0
+    ds = load_netcdf(tmp_path / "o" / "c.nc")
+    assert np.all(ds["error_filling"].values > 0)
