@@ -322,12 +322,13 @@ class QMCCritical(CriticalResult):
         sz = ", ".join(f"{L}x{L} ({L * L} sites)" for L in self.sizes)
         Ts = f"T = {min(self.temperatures):.3g}..{max(self.temperatures):.3g} {self.unit}" if self.temperatures else ""
         head = f"{self.method}: quantum Monte Carlo on {sz}, {Ts}, extrapolated to L -> inf"
+        st = f"{self.stat_error:.2g}" if self.stat_error is not None else "? (resampling found no root)"
         if self.status == "found":
-            s = (f"{head}: critical strain {self.strain_c:.4g} ± {self.stat_error:.2g} (statistical)"
+            s = (f"{head}: critical strain {self.strain_c:.4g} ± {st} (statistical)"
                  + (f" ± {self.fss_error:.2g} (finite size: 1/N vs 1/L extrapolation)" if self.fss_error is not None else ""))
         elif self.status == "bracket":
             s = (f"{head}: critical strain between {self.bracket[0]:.4g} and {self.bracket[1]:.4g} (the 1/N and 1/L "
-                 f"extrapolations disagree beyond their statistical errors; statistical ± {self.stat_error:.2g})")
+                 f"extrapolations disagree beyond their statistical errors; statistical ± {st})")
         else:
             c = self.closest
             s = (f"{head}: the extrapolated {self.fraction} plateau width does not close inside the table (smallest "
@@ -390,8 +391,8 @@ def qmc_critical(spec, table, strains, record, fraction, nboot: int = 400, nsigm
         direction = "closes with increasing strain" if H[i0] > 0 else "opens with increasing strain"
     else:
         direction = ""
-    tv = float(table.ratio(sc)[0]) if sc is not None else None
     strain_c = sc if status == "found" else (0.5 * (bracket[0] + bracket[1]) if bracket else None)
+    tv = float(table.ratio(strain_c)[0]) if strain_c is not None else None
     return QMCCritical(method=record.method, fraction=fraction, criterion="width (L -> inf)", status=status,
                        strain_c=strain_c, roots=[sc] if sc is not None else [], bracket=bracket,
                        xtol=stat or math.nan, direction=direction, closest=closest, strains=S, values=H,
