@@ -73,3 +73,44 @@ def test_toml_filling_curve_with_qmc(tmp_path):
     assert main(["run", str(cfg), "--out", str(tmp_path / "o")]) == 0
     ds = load_netcdf(tmp_path / "o" / "c.nc")
     assert np.all(ds["error_filling"].values > 0)
+
+
+def _synthetic_step(w_inf, slope_N, err=1e-3, sizes=(6, 9)):
+    """Widths w_L = w_inf(s) + slope/N exactly (the 1/N law), tiny errors; binder crossing at index 2."""
+    from phasemap.strain.qmc_method import QMCStep
+
+    P = len(w_inf)
+    per = {}
+    Ns = np.array([L * L for L in sizes], float)
+    per["width"] = w_inf[:, None] + slope_N / Ns[None, :]
+    per["width_error"] = np.full((P, len(sizes)), err)
+    per["binder"] = np.column_stack([np.linspace(1.2, 1.8, P), np.linspace(1.0, 2.0, P)])[:, :len(sizes)]
+    per["binder_error"] = np.full((P, len(sizes)), 1e-3)
+    ext = {"width": w_inf.copy(), "width_error": np.full(P, err)}
+    extL = {"width": w_inf.copy(), "width_error": np.full(P, err)}
+    return QMCStep(tuple(sizes), 1 / 3, np.full(P, 0.3), np.ones(P, bool), per, ext, extL, [],
+                   {"seed": 0, "every": 1})
+
+
+def test_critical_strain_root_errors_and_bracket():
+    from phasemap.strain.qmc_method import qmc_critical
+    from phasemap.strain.record import StepRecord
+
+    table = read_table("demo")
+    S = np.linspace(0.0, 0.16, 5)
+    w = 1.0 - S / 0.1  # exact root at strain 0.1 (linear between computed strains)
+    step = _synthetic_step(w, 20.0)
+    rec = StepRecord("qmc", "1/3", True, w * 0, w, w, w > 0, np.ones(5, bool), detail=step, flags=[[]] * 5)
+    c = qmc_critical(None, table, S, rec, "1/3")
+    assert c.status == "found" and c.strain_c == pytest.approx(0.1, abs=1e-9)
+    # statistical error from resampling against linear error propagation (exact for this construction):
+    # intercept error of the two-point 1/N fit, sigma_a = sigma sqrt(x1^2 + x2^2)/|x1 - x2|, x = 1/N;
+    # root between s = 0.08 (h = +0.2) and 0.12 (h = -0.2): dx/dh_i = 0.04 * 0.2 / 0.4^2 = 0.05 each
+    sig_a = np.sqrt((1 / 36) ** 2 + (1 / 81) ** 2) / abs(1 / 36 - 1 / 81) * 1e-3
+    assert c.stat_error == pytest.approx(sig_a * np.sqrt(2) * 0.05, rel=0.15)
+    assert c.binder_crossing["value"] == pytest.approx(0.08, abs=1e-9)
+    # the 1/L extrapolation closes elsewhere (0.12): far beyond the statistical errors -> bracket
+    step.extrap_L["width"] = 1.0 - S / 0.12
+    c = qmc_critical(None, table, S, rec, "1/3")
+    assert c.status == "bracket" and c.bracket == pytest.approx((0.1, 0.12))
+    assert "between 0.1 and 0.12" in c.summary()
