@@ -63,7 +63,7 @@ def _finite_label(sweep, n) -> str:
 def _label(sweep, n) -> str:
     """Legend label; statistical methods with several sizes say which (``qmc:6+9 (6x6+9x9, L->inf)``)."""
     info = sweep.records[n].info
-    return f"{n} ({info['cluster']}, L→∞)" if "sizes" in info else n
+    return f"{n.split(',')[0]} ({info['cluster']}, L→∞)" if "sizes" in info else n  # options stay in the data
 
 
 def _errorbar_lines(axes, sweep, colors, vref):
