@@ -105,3 +105,14 @@ def test_cli_scaling_writes_provenance_and_figure(tmp_path, capsys):
         runs.append(json.loads(capsys.readouterr().out)["per_size"])
     assert runs[0] == runs[1] and runs[0]["energy"] == d["per_size"]["energy"]
     assert main(["qmc-scaling", "--t", "0.3", "--V", "1", "--sizes", "3,6", "--sweeps", "10"]) == 2  # no T
+
+
+def test_fit_with_vanishing_errors_stays_finite():
+    # errors of 1e-12 (fillings without fluctuations): the fit must stay finite with an error >= 0
+    # (the demo strain sweep once died with a negative variance from the normal-equation inverse;
+    # its exact input was not kept, so this guards finiteness, not that particular input)
+    for y in ([1 / 3, 1 / 3], [0.3, 0.31], [5.2, 5.9]):
+        d = extrapolate([6, 9], y, [1e-12, 1e-12])
+        assert math.isfinite(d["error"]) and d["error"] >= 0
+        # two points, dof 0: the line through both (exact)
+        assert d["value"] == pytest.approx(y[1] + (y[1] - y[0]) / (1 / 9 - 1 / 6) * (0 - 1 / 9), abs=1e-9)

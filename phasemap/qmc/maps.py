@@ -53,6 +53,7 @@ def evaluate_points(method, batch, options: dict, thresholds=None) -> dict:
         "sq_max": np.array([s.order.get("sq_max", np.nan) for s in sols]),
         "condensate_max": np.full(P, np.nan), "contrast": np.zeros(P),
         "top_weight": np.full(P, np.nan), "gap_to_next_branch": np.full(P, np.nan),
+        "cutoff": np.zeros(P, bool),  # hard-core only: no occupation cut-off
         "decorrelated": np.array([bool(r.decorrelated) for r in results]),
         "T": np.array([r.T for r in results]), "n_sites": np.array([r.n_sites for r in results]),
     }

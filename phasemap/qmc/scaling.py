@@ -104,11 +104,16 @@ def weighted_fit(x, y, err, deg: int = 1) -> dict:
     x, y, e = (np.asarray(a, float) for a in (x, y, err))
     if len(x) < deg + 1:
         raise ConfigError(f"fit: need at least {deg + 1} points for degree {deg}, got {len(x)}")
-    e = np.where(e > 0, e, np.nanmax(np.r_[e[e > 0], 1e-15]) if np.any(e > 0) else 1e-15)
+    # a zero error (e.g. a filling that never fluctuated) gets the largest error of the set, or a tiny
+    # floor relative to the data, so that the weights stay finite
+    floor = 1e-9 * max(1.0, float(np.nanmax(np.abs(y))) if len(y) else 1.0)
+    e = np.where(e > floor, e, max(floor, float(np.nanmax(e)) if np.any(e > floor) else floor))
     A = np.vander(x, deg + 1, increasing=True) / e[:, None]
     b = y / e
-    cov = np.linalg.inv(A.T @ A)
-    coef = cov @ (A.T @ b)
+    # least squares by SVD: the covariance V diag(1/s^2) V^T is positive semi-definite by construction
+    U, sv, Vt = np.linalg.svd(A, full_matrices=False)
+    cov = (Vt.T / sv ** 2) @ Vt
+    coef = Vt.T @ ((U.T @ b) / sv)
     chi2 = float(np.sum((A @ coef - b) ** 2))
     dof = len(x) - deg - 1
     scale = max(1.0, chi2 / dof) if dof > 0 else 1.0

@@ -7,8 +7,8 @@ Per strain and per L x L torus (default L = 6 and 9, both containing K and accep
   T -> 0 these are the canonical mu-(N) = E0(N) - E0(N-1) and mu+(N) = E0(N+1) - E0(N) of the
   torus (the definition of exact diagonalization). Each edge is bracketed and bisected in mu
   (``rounds`` halvings of the bracket c -+ ``span`` x V around the t = 0 plateau centre c), then
-  interpolated linearly between the last two measured fillings; its one-sigma statistical
-  error is sigma_n / (dn/dmu) from that pair, the bracket resolution is recorded beside it;
+  interpolated linearly between the last two measured fillings; its one-sigma error combines
+  sigma_n / (dn/dmu) from that pair with the bracket width / sqrt(12);
 * **order at filling f**: one longer run at the middle of the two edges gives S(K)/N, the
   Binder ratio and the stiffness with their errors;
 * **L -> infinity**: edges and width are extrapolated linearly in 1/N (a gapped solid keeps
@@ -221,8 +221,10 @@ def qmc_plateaus(models, spec, fraction="1/3", progress=None) -> QMCStep:
             x = sx = math.nan
         name = "mu_lo" if e == 0 else "mu_hi"
         per[name][p, a] = x
-        # statistical error, at least a quarter of the bracket (linear interpolation of a step)
-        per[f"{name}_error"][p, a] = sx if np.isfinite(sx) else 0.25 * (hi - lo)
+        # one sigma: the statistical error of the interpolation combined with the bracket resolution
+        # (the edge lies somewhere in [lo, hi]: uniform, (hi - lo)/sqrt(12)); a step whose slope is not
+        # resolved (fillings without fluctuations) then still has an honest error
+        per[f"{name}_error"][p, a] = math.hypot(sx if np.isfinite(sx) else 0.0, (hi - lo) / math.sqrt(12.0))
         per["resolution"][p, a] = hi - lo
     per["width"] = per["mu_hi"] - per["mu_lo"]
     per["width_error"] = np.hypot(per["mu_lo_error"], per["mu_hi_error"])
