@@ -39,7 +39,8 @@ __all__ = ["RunConfig", "ScanSpec", "Output", "load_config", "parse_config", "du
 
 SECTIONS = ("meta", "model", "scan", "thresholds", "solver", "output")
 META_KEYS = ("title", "description", "invented", "notes", "source")
-MAP_KEYS = ("name", "kind", "x", "y", "relative", "method", "cluster", "refine", "refine_tol", "chunk", "T")
+MAP_KEYS = ("name", "kind", "x", "y", "relative", "method", "cluster", "refine", "refine_tol", "chunk", "T",
+            "adaptive", "coarse", "steep", "finest")
 CURVE_KEYS = ("name", "kind", "x", "relative", "method", "cluster", "refine", "edge_tol", "jump_tol", "T")
 OUTPUT_KEYS = ("folder", "formats", "width", "dpi", "figures")
 #: Largest number of grid points of one scan axis.
@@ -89,12 +90,18 @@ class ScanSpec:
     edge_tol: float = 1e-6
     jump_tol: float = 1e-3
     T: float | None = None  # temperature of this scan (same units as the axes: ratio when relative)
+    adaptive: bool = False
+    coarse: int = 8
+    steep: float = 0.05
+    finest: int = 1
 
     def to_dict(self) -> dict:
         d = {"name": self.name, "kind": self.kind, "x": self.x.spec}
         if self.kind == "map":
             d.update(y=self.y.spec, relative=self.relative, method=self.method, refine=self.refine,
                      refine_tol=self.refine_tol, chunk=self.chunk)
+            if self.adaptive:
+                d.update(adaptive=True, coarse=self.coarse, steep=self.steep, finest=self.finest)
         else:
             d.update(relative=self.relative, method=self.method, refine=self.refine, edge_tol=self.edge_tol,
                      jump_tol=self.jump_tol)
@@ -316,6 +323,10 @@ def _scan(where: str, d, model: Model, default_name: str) -> ScanSpec:
         P = len(s.x.values) * len(s.y.values)
         auto = int(min(4096, max(256, P // 20)))
         s.chunk = _number(f"{where}.chunk", d.get("chunk", auto), 1, 10**6, integer=True)
+        s.adaptive = _bool(f"{where}.adaptive", d.get("adaptive", False))
+        s.coarse = _number(f"{where}.coarse", d.get("coarse", 8), 2, 1000, integer=True)
+        s.steep = _number(f"{where}.steep", d.get("steep", 0.05), 0.0, 10.0, lo_open=True)
+        s.finest = _number(f"{where}.finest", d.get("finest", 1), 1, 2, integer=True)
         axes[s.y.name] = s.y.values
     else:
         if s.x.name != "mu":

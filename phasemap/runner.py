@@ -71,7 +71,8 @@ def _compute(cfg: RunConfig, scan: ScanSpec, out: Path, resume: bool, restart: b
     ds = phase_map(cfg.model, x=(scan.x.name, scan.x.values), y=(scan.y.name, scan.y.values),
                    relative=scan.relative, method=scan.method, options=opts, thresholds=cfg.thresholds,
                    refine=scan.refine, refine_tol=scan.refine_tol, progress=progress, checkpoint=ck,
-                   chunk=scan.chunk)
+                   chunk=scan.chunk, adaptive=scan.adaptive, coarse=scan.coarse, steep=scan.steep,
+                   finest=scan.finest)
     return ds, None, ck
 
 

@@ -158,7 +158,7 @@ def _axis_label(name, model, relative):
 
 def phase_map(model: Model, x=("t", None), y=("mu", None), relative=True, method="mf", options=None,
               thresholds=Thresholds(), refine=True, refine_tol=1e-4, progress=True, checkpoint=None,
-              chunk=4096) -> xr.Dataset:
+              chunk=4096, adaptive=False, coarse=8, steep=0.05, finest=1) -> xr.Dataset:
     """Ground-state phase map over two parameters.
 
     Parameters
@@ -177,6 +177,13 @@ def phase_map(model: Model, x=("t", None), y=("mu", None), relative=True, method
         (to ``refine_tol`` of the axis span) and store them as ``boundary_*`` variables.
     checkpoint : phasemap.store.ChunkStore, optional
         Resume a long scan.
+    adaptive : bool, default False
+        Trace the map coarse to fine (:mod:`phasemap.adaptive`): solve cells of ``coarse`` grid
+        steps, split only those whose corners differ in phase or whose filling / condensate /
+        structure factor change by more than ``steep``; the other points are filled from their
+        cell's corners. Same variables on the same grid, plus ``solved`` (which points were solved).
+        ``steep`` is per grid step; ``finest=2`` stops at 2 x 2 cells (labels within one grid
+        step of a boundary may come from the nearest solved corner).
     """
     if x[1] is None:
         x = (x[0], np.linspace(0, 0.5 if model.hardcore else 0.1, 101))
@@ -186,13 +193,23 @@ def phase_map(model: Model, x=("t", None), y=("mu", None), relative=True, method
     if xn == yn:
         raise ConfigError(f"scan axes: x and y must differ (both {xn!r})")
     batch, shape = grid(model, {xn: xv, yn: yv}, relative=relative)
-    flat = evaluate(batch, method, options, thresholds, chunk=chunk, progress=progress, desc="phase map",
-                    checkpoint=checkpoint)
+    if adaptive:
+        flat = _adaptive(batch, shape, method, options, thresholds, coarse, steep, finest, progress, checkpoint)
+    else:
+        flat = evaluate(batch, method, options, thresholds, chunk=chunk, progress=progress, desc="phase map",
+                        checkpoint=checkpoint)
     attrs = _attrs(batch.base, method, thresholds, options, relative, "phase map",
                    {"x_axis": xn, "y_axis": yn, "x_label": _axis_label(xn, model, relative),
                     "y_label": _axis_label(yn, model, relative)})
+    solved = flat.pop("solved", None)
     ds = _dataset(flat, (xn, yn), {xn: np.asarray(xv, float), yn: np.asarray(yv, float)},
                   _sites_of(method, options, batch), attrs)
+    if solved is not None:
+        ds["solved"] = ((xn, yn), solved.reshape(shape))
+        ds["solved"].attrs["description"] = ("point solved (True) or filled from the corners of a uniform "
+                                             "coarse cell by adaptive tracing (False)")
+        ds.attrs.update(adaptive=1, adaptive_coarse=int(coarse), adaptive_steep=float(steep), adaptive_finest=int(finest),
+                        solved_fraction=float(solved.mean()))
     if yn == "mu" or xn == "mu":
         axis = 1 if yn == "mu" else 0
         mu = np.asarray(yv if yn == "mu" else xv, float) * (model.scale if relative else 1.0)
@@ -224,6 +241,36 @@ def _refinable(method, options) -> bool:
     a Monte Carlo run is noisy; statistical maps stay on their grid with error bars)."""
     impl, _ = resolve(method, options)
     return not impl.capabilities.error_bars
+
+
+def _adaptive(batch, shape, method, options, thresholds, coarse, steep, finest, progress, checkpoint):
+    """Flat arrays of an adaptively traced map (see :mod:`phasemap.adaptive`), level by level."""
+    from .adaptive import trace
+
+    bar = None
+    if progress:
+        from tqdm.auto import tqdm
+
+        bar = tqdm(total=batch.size, desc="phase map (adaptive)", unit="pt", leave=False)
+
+    def solve(level, idx):
+        part = checkpoint.load(level) if checkpoint is not None else None
+        if part is None or len(part["label"]) != len(idx):
+            part = evaluate(batch.take(idx), method, options, thresholds)
+            if checkpoint is not None:
+                checkpoint.save(level, part)
+        if bar is not None:
+            bar.update(len(idx))
+        return part
+
+    try:
+        data, solved = trace(shape, solve, coarse=coarse, steep=steep, finest=finest)
+    finally:
+        if bar is not None:
+            bar.close()
+    data = {k: (v.astype(str) if v.dtype == object else v) for k, v in data.items()}
+    data["solved"] = solved.ravel()
+    return data
 
 
 def _sites_of(method, options, batch):
