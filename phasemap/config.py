@@ -37,7 +37,8 @@ from .model import ConfigError, Model, check_keys
 
 __all__ = ["RunConfig", "ScanSpec", "Output", "load_config", "parse_config", "dumps_toml", "MAX_POINTS"]
 
-SECTIONS = ("meta", "model", "scan", "thresholds", "solver", "output")
+SECTIONS = ("meta", "model", "scan", "thresholds", "solver", "output", "run")
+RUN_KEYS = ("executor", "scheduler")
 META_KEYS = ("title", "description", "invented", "notes", "source")
 MAP_KEYS = ("name", "kind", "x", "y", "relative", "method", "cluster", "refine", "refine_tol", "chunk", "T",
             "adaptive", "coarse", "steep", "finest")
@@ -139,6 +140,8 @@ class RunConfig:
     output: Output = field(default_factory=Output)
     meta: dict = field(default_factory=dict)
     source: str = ""
+    executor: str = "auto"  # [run] executor: where chunks run (phasemap.executor); not part of results
+    scheduler: str | None = None  # [run] scheduler: Dask scheduler address
 
     def options(self, scan: ScanSpec) -> dict:
         """Method options of ``scan``: [solver] plus ``cluster`` for methods that take one."""
@@ -162,6 +165,9 @@ class RunConfig:
         d["thresholds"] = self.thresholds.to_dict()
         d["solver"] = dict(self.solver)
         d["output"] = self.output.to_dict()
+        d["run"] = {"executor": self.executor}
+        if self.scheduler:
+            d["run"]["scheduler"] = self.scheduler
         return d
 
 
@@ -434,7 +440,28 @@ def parse_config(data: dict, name: str = "run", source: str = "") -> RunConfig:
         name=name, model=model, scans=scans, thresholds=_thresholds(data.get("thresholds", {})),
         solver=_solver(data.get("solver", {}), {s.method for s in scans}),
         output=_output(data.get("output", {})), meta=_meta(data.get("meta", {})), source=source,
+        **_run(data.get("run", {})),
     )
+
+
+def _run(d) -> dict:
+    """[run] section: executor ("auto", "serial", "processes[:N]", "dask", scheduler address) and
+    scheduler (Dask scheduler address); validated here, connected only when the run starts."""
+    from .executor import EXECUTORS
+
+    if not isinstance(d, dict):
+        raise ConfigError("[run]: expected a table")
+    check_keys("[run]", d, RUN_KEYS)
+    ex = d.get("executor", "auto")
+    ok = isinstance(ex, str) and (ex in ("auto", "serial", "processes", "dask", "dask:local")
+                                  or (ex.startswith("processes:") and ex[10:].isdigit() and 1 <= int(ex[10:]) <= 1024)
+                                  or ex.startswith(("dask://", "tcp://")))
+    if not ok:
+        raise ConfigError(f"[run] executor: expected one of {', '.join(EXECUTORS)} (N = 1..1024), got {ex!r}")
+    sch = d.get("scheduler")
+    if sch is not None and (not isinstance(sch, str) or not sch.strip()):
+        raise ConfigError(f"[run] scheduler: expected a Dask scheduler address such as 'tcp://host:8786', got {sch!r}")
+    return {"executor": ex, "scheduler": sch}
 
 
 def load_config(path) -> RunConfig:

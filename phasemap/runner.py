@@ -10,7 +10,7 @@ Output folder layout for a scan named ``NAME`` of a config ``CFG.toml``::
     NAME_jumps.csv       curves only: jumps (mu, n_below, n_above, from, to, status: found or not)
     NAME.png, NAME.pdf   figures
     CFG.config.toml      the resolved configuration (all defaults filled in)
-    .checkpoint/NAME/    per-chunk checkpoint of an unfinished map (removed when done)
+    .checkpoint/NAME/    per-chunk checkpoint of an unfinished map or curve (removed when done)
 
 All scans are computed before the first file is written, and each file is written atomically,
 so a failed run leaves no half-written results.
@@ -52,15 +52,15 @@ def _run_attrs(cfg: RunConfig, scan: ScanSpec) -> dict:
     return attrs
 
 
-def _compute(cfg: RunConfig, scan: ScanSpec, out: Path, resume: bool, restart: bool, progress: bool):
+#: points per checkpoint chunk of a filling curve (any value gives the same result)
+CURVE_CHUNK = 64
+
+
+def _compute(cfg: RunConfig, scan: ScanSpec, out: Path, resume: bool, restart: bool, progress: bool, executor,
+             log=None):
     from .scan import filling_curve, phase_map
 
     opts = cfg.options(scan)
-    if scan.kind == "curve":
-        curve = filling_curve(cfg.model, mu=scan.x.values, relative=scan.relative, method=scan.method,
-                              options=opts, thresholds=cfg.thresholds, refine=scan.refine,
-                              tol=scan.edge_tol, jump_tol=scan.jump_tol, progress=progress)
-        return curve.dataset, curve, None
     folder = out / CHECKPOINT_DIR / scan.name
     if restart:
         ChunkStore.discard(folder)
@@ -68,11 +68,20 @@ def _compute(cfg: RunConfig, scan: ScanSpec, out: Path, resume: bool, restart: b
         raise ConfigError(f"checkpoint: {str(folder)!r} holds an unfinished run; pass --resume to continue it "
                           "or --restart to discard it")
     ck = ChunkStore(folder, checkpoint_params(cfg, scan), resume=True)
+    done = ck.chunks()
+    if done and log is not None:
+        log(f"{scan.name}: resuming, {len(done)} finished chunk(s) taken from the checkpoint")
+    if scan.kind == "curve":
+        curve = filling_curve(cfg.model, mu=scan.x.values, relative=scan.relative, method=scan.method,
+                              options=opts, thresholds=cfg.thresholds, refine=scan.refine,
+                              tol=scan.edge_tol, jump_tol=scan.jump_tol, progress=progress, executor=executor,
+                              checkpoint=ck, chunk=CURVE_CHUNK)
+        return curve.dataset, curve, ck
     ds = phase_map(cfg.model, x=(scan.x.name, scan.x.values), y=(scan.y.name, scan.y.values),
                    relative=scan.relative, method=scan.method, options=opts, thresholds=cfg.thresholds,
                    refine=scan.refine, refine_tol=scan.refine_tol, progress=progress, checkpoint=ck,
                    chunk=scan.chunk, adaptive=scan.adaptive, coarse=scan.coarse, steep=scan.steep,
-                   finest=scan.finest)
+                   finest=scan.finest, executor=executor)
     return ds, None, ck
 
 
@@ -148,7 +157,7 @@ def _summary(scan: ScanSpec, ds, curve) -> str:
 
 
 def run(cfg: RunConfig, out=None, resume: bool = False, restart: bool = False, progress: bool = True,
-        log=print, command: str | None = None) -> list[Path]:
+        log=print, command: str | None = None, executor: str | None = None, scheduler: str | None = None) -> list[Path]:
     """Compute every scan of ``cfg`` and write results into the output folder.
 
     Parameters
@@ -168,6 +177,9 @@ def run(cfg: RunConfig, out=None, resume: bool = False, restart: bool = False, p
     command : str, optional
         Recorded in the folder's lock (default: the command line); see
         :func:`phasemap.store.output_lock`.
+    executor, scheduler : str, optional
+        Override ``[run] executor`` / ``[run] scheduler`` (:mod:`phasemap.executor`); results
+        are identical whatever runs the chunks.
 
     Returns
     -------
@@ -183,14 +195,25 @@ def run(cfg: RunConfig, out=None, resume: bool = False, restart: bool = False, p
     flag = "--out" if out is not None else "[output] folder"
     out = check_output_folder(out if out is not None else cfg.output.folder, flag)
     with output_lock(out, command, flag=flag):
-        return _run_locked(cfg, out, resume, restart, progress, log)
+        from .executor import get_executor
+
+        spec = executor or cfg.executor
+        sched = scheduler or cfg.scheduler
+        ex = spec if (spec == "auto" and not sched) else get_executor(spec, sched, "--executor")
+        try:
+            if not isinstance(ex, str):
+                log(f"executor: {ex.describe()}")
+            return _run_locked(cfg, out, resume, restart, progress, log, ex)
+        finally:
+            if not isinstance(ex, str):
+                ex.close()
 
 
-def _run_locked(cfg, out, resume, restart, progress, log):
+def _run_locked(cfg, out, resume, restart, progress, log, executor="auto"):
     results = []
     for scan in cfg.scans:
         t0 = time.perf_counter()
-        ds, curve, ck = _compute(cfg, scan, out, resume, restart, progress)
+        ds, curve, ck = _compute(cfg, scan, out, resume, restart, progress, executor, log)
         ds.attrs.update(_run_attrs(cfg, scan))
         ds.attrs["wall_time_s"] = round(time.perf_counter() - t0, 3)
         log(_summary(scan, ds, curve) + f" ({time.perf_counter() - t0:.1f} s)")

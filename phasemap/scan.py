@@ -40,34 +40,34 @@ def _progress(iterable, total, desc, enabled, unit="chunk"):
 
 
 def evaluate(batch: ParamBatch, method="mf", options=None, thresholds=Thresholds(), chunk=4096,
-             progress=False, desc="solving", checkpoint=None):
+             progress=False, desc="solving", checkpoint=None, executor=None):
     """Solve and classify every point of ``batch``; returns a dict of flat arrays.
 
-    ``checkpoint``: optional object with ``load(i) -> dict | None`` and ``save(i, dict)`` used
-    to resume a long scan chunk by chunk (see :class:`phasemap.store.ChunkStore`).
+    The points are cut into chunks of ``chunk`` points, solved independently (identical
+    results whatever the executor). ``checkpoint``: optional object with ``load(i) -> dict |
+    None`` and ``save(i, dict)`` used to resume a long scan chunk by chunk (see
+    :class:`phasemap.store.ChunkStore`). ``executor``: :class:`phasemap.executor.Executor` or
+    its spelling ("serial", "processes", "dask", a scheduler address); default in-process.
     """
-    impl, options = resolve(method, options)
+    from .executor import run_chunks
+
+    impl, ropts = resolve(method, options)
     check_temperature(impl, batch.T)
     if not impl.capabilities.grand_canonical and hasattr(impl, "evaluate_points"):
         # point-by-point statistical methods (qmc): every point in parallel, errors as error_* arrays
-        return impl.evaluate_points(batch, options, thresholds)
-    solver = impl.batch_solver(options)
-    cap = impl.max_points(batch.base, options)  # memory guard (raises if not even one point fits)
+        return impl.evaluate_points(batch, ropts, thresholds)
+    cap = impl.max_points(batch.base, ropts)  # memory guard (raises if not even one point fits)
     chunk = min(chunk, cap) if cap else chunk
     P = batch.size
     starts = list(range(0, P, chunk))
-    parts = []
-    for ci, s in enumerate(_progress(starts, len(starts), desc, progress)):
-        part = checkpoint.load(ci) if checkpoint is not None else None
-        if part is None:
-            sub = batch.take(np.arange(s, min(P, s + chunk)))
-            res = solver(sub)
-            part = _extract(res, thresholds)
-            if checkpoint is not None:
-                checkpoint.save(ci, part)
-        parts.append(part)
+    tasks = {ci: (batch.take(np.arange(s, min(P, s + chunk))), method, options, thresholds)
+             for ci, s in enumerate(starts)}
+    weights = {ci: min(P, s + chunk) - s for ci, s in enumerate(starts)}
+    parts = run_chunks(solve_chunk, tasks, executor, store=checkpoint, progress=progress, desc=desc,
+                       weights=weights, unit="pt")
+    parts = [parts[ci] for ci in range(len(starts))]
     flat = {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
-    flat["cutoff"] = _cutoff_matters(batch.hardcore, flat["top_weight"], impl.options(options))
+    flat["cutoff"] = _cutoff_matters(batch.hardcore, flat["top_weight"], impl.options(ropts))
     return flat
 
 
@@ -93,6 +93,13 @@ def _cutoff_flags(model, flat, flags, ds, options) -> None:
                  f"{_weight_warn(options):g}, variable 'cutoff'"
                  + (f"; {int(full.sum())} at n = n_max = {model.n_max} everywhere are labelled 'full ... = "
                     f"cut-off', not the Mott lobe n={model.n_max}" if full.any() else "") + "): results there are not converged in n_max; raise n_max")
+
+
+def solve_chunk(task):
+    """One chunk of :func:`evaluate`: ``(batch, method, options, thresholds)`` -> dict of flat arrays."""
+    batch, method, options, thresholds = task
+    impl, opts = resolve(method, options)
+    return _extract(impl.batch_solver(opts)(batch), thresholds)
 
 
 def _extract(res, thresholds):
@@ -158,7 +165,7 @@ def _axis_label(name, model, relative):
 
 def phase_map(model: Model, x=("t", None), y=("mu", None), relative=True, method="mf", options=None,
               thresholds=Thresholds(), refine=True, refine_tol=1e-4, progress=True, checkpoint=None,
-              chunk=4096, adaptive=False, coarse=8, steep=0.05, finest=1) -> xr.Dataset:
+              chunk=4096, adaptive=False, coarse=8, steep=0.05, finest=1, executor=None) -> xr.Dataset:
     """Ground-state phase map over two parameters.
 
     Parameters
@@ -177,6 +184,9 @@ def phase_map(model: Model, x=("t", None), y=("mu", None), relative=True, method
         (to ``refine_tol`` of the axis span) and store them as ``boundary_*`` variables.
     checkpoint : phasemap.store.ChunkStore, optional
         Resume a long scan.
+    executor : phasemap.executor.Executor or str, optional
+        Where the chunks run: "serial" (default), "processes[:N]", "dask" (local cluster) or a
+        Dask scheduler address; results are identical (see :mod:`phasemap.executor`).
     adaptive : bool, default False
         Trace the map coarse to fine (:mod:`phasemap.adaptive`): solve cells of ``coarse`` grid
         steps, split only those whose corners differ in phase or whose filling / condensate /
@@ -193,11 +203,16 @@ def phase_map(model: Model, x=("t", None), y=("mu", None), relative=True, method
     if xn == yn:
         raise ConfigError(f"scan axes: x and y must differ (both {xn!r})")
     batch, shape = grid(model, {xn: xv, yn: yv}, relative=relative)
-    if adaptive:
-        flat = _adaptive(batch, shape, method, options, thresholds, coarse, steep, finest, progress, checkpoint)
-    else:
-        flat = evaluate(batch, method, options, thresholds, chunk=chunk, progress=progress, desc="phase map",
-                        checkpoint=checkpoint)
+    from .executor import Executor, get_executor
+
+    own = executor not in (None, "auto") and not isinstance(executor, Executor)
+    executor = get_executor(executor) if own else executor
+    try:
+        flat = _map_points(batch, shape, method, options, thresholds, chunk, progress, checkpoint, executor,
+                           adaptive, coarse, steep, finest)
+    finally:
+        if own:
+            executor.close()
     attrs = _attrs(batch.base, method, thresholds, options, relative, "phase map",
                    {"x_axis": xn, "y_axis": yn, "x_label": _axis_label(xn, model, relative),
                     "y_label": _axis_label(yn, model, relative)})
@@ -243,7 +258,17 @@ def _refinable(method, options) -> bool:
     return not impl.capabilities.error_bars
 
 
-def _adaptive(batch, shape, method, options, thresholds, coarse, steep, finest, progress, checkpoint):
+def _map_points(batch, shape, method, options, thresholds, chunk, progress, checkpoint, executor, adaptive,
+                coarse, steep, finest):
+    if adaptive:
+        return _adaptive(batch, shape, method, options, thresholds, coarse, steep, finest, progress, checkpoint,
+                         executor, chunk)
+    return evaluate(batch, method, options, thresholds, chunk=chunk, progress=progress, desc="phase map",
+                    checkpoint=checkpoint, executor=executor)
+
+
+def _adaptive(batch, shape, method, options, thresholds, coarse, steep, finest, progress, checkpoint, executor,
+              chunk):
     """Flat arrays of an adaptively traced map (see :mod:`phasemap.adaptive`), level by level."""
     from .adaptive import trace
 
@@ -256,7 +281,7 @@ def _adaptive(batch, shape, method, options, thresholds, coarse, steep, finest, 
     def solve(level, idx):
         part = checkpoint.load(level) if checkpoint is not None else None
         if part is None or len(part["label"]) != len(idx):
-            part = evaluate(batch.take(idx), method, options, thresholds)
+            part = evaluate(batch.take(idx), method, options, thresholds, chunk=chunk, executor=executor)
             if checkpoint is not None:
                 checkpoint.save(level, part)
         if bar is not None:
@@ -433,7 +458,8 @@ class FillingCurve:
 
 
 def filling_curve(model: Model, mu=None, relative=True, method="mf", options=None, thresholds=Thresholds(),
-                  refine=True, tol=1e-6, jump_tol=1e-3, progress=False) -> FillingCurve:
+                  refine=True, tol=1e-6, jump_tol=1e-3, progress=False, executor=None, checkpoint=None,
+                  chunk=4096) -> FillingCurve:
     """Filling versus chemical potential with plateau detection and first-order jumps.
 
     Parameters
@@ -445,6 +471,10 @@ def filling_curve(model: Model, mu=None, relative=True, method="mf", options=Non
         Bisection tolerance of the plateau edges and jump positions (same units as ``mu``).
     jump_tol : float
         A filling change larger than this across a bracket of width ``tol`` is a discontinuity.
+    executor : phasemap.executor.Executor or str, optional
+        Where the chunks of the grid run (see :func:`phase_map`).
+    checkpoint, chunk
+        Resume the grid chunk by chunk (``chunk`` points each), as for :func:`phase_map`.
 
     Notes
     -----
@@ -458,7 +488,8 @@ def filling_curve(model: Model, mu=None, relative=True, method="mf", options=Non
     if mu.ndim != 1 or len(mu) < 2 or np.any(np.diff(mu) <= 0):
         raise ConfigError("mu: the filling curve needs at least 2 strictly increasing chemical potentials")
     batch, _ = grid(model, {"mu": mu}, relative=relative)
-    flat = evaluate(batch, method, options, thresholds, progress=progress, desc="filling curve")
+    flat = evaluate(batch, method, options, thresholds, progress=progress, desc="filling curve", executor=executor,
+                    checkpoint=checkpoint, chunk=chunk)
     attrs = _attrs(batch.base, method, thresholds, options, relative, "filling curve",
                    {"x_axis": "mu", "x_label": _axis_label("mu", model, relative)})
     ds = _dataset(flat, ("mu",), {"mu": mu}, _sites_of(method, options, batch), attrs)

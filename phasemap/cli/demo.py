@@ -17,6 +17,9 @@ def register(sub) -> None:
     p.add_argument("--points", type=_points, default=None, metavar="N",
                    help="override the number of points of every scan axis (a quick look: e.g. 9)")
     p.add_argument("--show-config", action="store_true", help="print the demo config and exit")
+    from .run import add_executor_options
+
+    add_executor_options(p)
     p.add_argument("--quiet", action="store_true", help="no progress bars")
     p.set_defaults(func=run)
 

@@ -17,8 +17,19 @@ def register(sub) -> None:
     g = p.add_mutually_exclusive_group()
     g.add_argument("--resume", action="store_true", help="continue an interrupted map from its checkpoint")
     g.add_argument("--restart", action="store_true", help="discard an existing checkpoint and start over")
+    add_executor_options(p)
     p.add_argument("--quiet", action="store_true", help="no progress bars")
     p.set_defaults(func=run)
+
+
+def add_executor_options(p) -> None:
+    """--executor / --scheduler (shared by the commands that run long jobs)."""
+    p.add_argument("--executor", default=None, metavar="SPEC",
+                   help="where chunks run: auto (default: local processes on all cores when the job is long), "
+                        "serial, processes[:N], dask (a local Dask cluster), or a Dask scheduler address; "
+                        "results are identical")
+    p.add_argument("--scheduler", default=None, metavar="ADDRESS",
+                   help="Dask scheduler address (tcp://host:8786); needs pip install \"phasemap[dask]\"")
 
 
 def execute(cfg, args) -> int:
@@ -29,7 +40,8 @@ def execute(cfg, args) -> int:
 
     paths = run_cfg(cfg, out=args.out, resume=getattr(args, "resume", False),
                     restart=getattr(args, "restart", False), progress=not args.quiet,
-                    log=lambda s: print(s, file=sys.stderr))
+                    log=lambda s: print(s, file=sys.stderr), executor=getattr(args, "executor", None),
+                    scheduler=getattr(args, "scheduler", None))
     for p in paths:
         print(p)
     return 0

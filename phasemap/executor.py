@@ -1,0 +1,266 @@
+"""Executors: one interface for running independent chunks of a long job.
+
+A long job (a phase map, a filling curve, a strain sweep, cluster-size scaling, Monte Carlo
+runs) is cut into *chunks*: independent, deterministic tasks ``fn(task) -> result`` whose result
+depends only on the task (no shared state, random streams seeded by the task). Any executor
+then gives results identical to the serial run.
+
+Executors (:func:`get_executor` spelling in parentheses):
+
+- :class:`SerialExecutor` (``"serial"``): in this process, in order.
+- :class:`ProcessExecutor` (``"processes"``, ``"processes:N"``): N local worker processes
+  (default: every core), started with ``spawn`` (safe with the numba thread pool).
+- :class:`DaskExecutor` (``"dask"``: a local Dask cluster; ``"tcp://host:8786"`` or
+  ``"dask://host:8786"``: connect to a running scheduler). Needs the optional extra
+  ``pip install "phasemap[dask]"``.
+
+:func:`run_chunks` is what jobs call: it skips chunks already in a checkpoint store, submits the
+rest, saves each result atomically as soon as it arrives (so a job killed at any moment
+recomputes nothing that was finished), and drives one progress bar for the whole job in the
+parent process, whichever workers compute the chunks.
+
+Chunk functions must be importable module-level functions and their tasks picklable: worker
+processes import phasemap afresh, so methods registered at run time in the parent (not built
+in) are not known to them — use the serial executor for those.
+"""
+
+from __future__ import annotations
+
+import os
+from typing import Callable, Iterable
+
+from .model import ConfigError
+
+__all__ = ["Executor", "SerialExecutor", "ProcessExecutor", "DaskExecutor", "get_executor", "run_chunks",
+           "EXECUTORS"]
+
+#: spellings accepted by :func:`get_executor` and :func:`run_chunks` ("auto" only there)
+EXECUTORS = ("auto", "serial", "processes", "processes:N", "dask", "dask://HOST:PORT", "tcp://HOST:PORT")
+#: "auto": a job whose remaining chunks would take longer than this (seconds, estimated from the
+#: first chunk run in this process) goes to local processes on all cores
+AUTO_PARALLEL_SECONDS = 20.0
+
+
+class Executor:
+    """Runs ``fn(task)`` for many tasks; results are returned to the caller as they finish."""
+
+    name = "executor"
+    workers = 1
+
+    def imap_unordered(self, fn: Callable, tasks: dict) -> Iterable:
+        """Yield ``(key, result)`` for every ``key, task`` of ``tasks`` as each finishes."""
+        raise NotImplementedError
+
+    def close(self) -> None:
+        """Release workers (idempotent)."""
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+    def describe(self) -> str:
+        return f"{self.name} ({self.workers} worker{'s' if self.workers != 1 else ''})"
+
+
+class SerialExecutor(Executor):
+    """In this process, in key order."""
+
+    name = "serial"
+
+    def imap_unordered(self, fn, tasks):
+        for key, task in tasks.items():
+            yield key, fn(task)
+
+
+class ProcessExecutor(Executor):
+    """Local worker processes (``concurrent.futures``, spawn start method)."""
+
+    name = "processes"
+
+    def __init__(self, workers: int | None = None):
+        self.workers = int(workers or os.cpu_count() or 1)
+        self._pool = None
+
+    def _get(self):
+        if self._pool is None:
+            import multiprocessing as mp
+            from concurrent.futures import ProcessPoolExecutor
+
+            self._pool = ProcessPoolExecutor(self.workers, mp_context=mp.get_context("spawn"))
+        return self._pool
+
+    def imap_unordered(self, fn, tasks):
+        from concurrent.futures import as_completed
+
+        pool = self._get()
+        futs = {pool.submit(fn, task): key for key, task in tasks.items()}
+        try:
+            for f in as_completed(futs):
+                yield futs[f], f.result()
+        finally:
+            for f in futs:
+                f.cancel()
+
+    def close(self):
+        if self._pool is not None:
+            self._pool.shutdown(wait=True, cancel_futures=True)
+            self._pool = None
+
+
+class DaskExecutor(Executor):
+    """Dask distributed: a scheduler at ``address``, or a local cluster when ``address`` is None.
+
+    ``local_kw`` go to ``distributed.LocalCluster`` (e.g. ``host="127.0.0.1"`` to stay on the
+    loopback interface, ``n_workers``, ``threads_per_worker``).
+    """
+
+    name = "dask"
+
+    def __init__(self, address: str | None = None, workers: int | None = None, **local_kw):
+        try:
+            from distributed import Client, LocalCluster
+        except ImportError:
+            raise ConfigError('executor "dask": Dask is not installed; pip install "phasemap[dask]"') from None
+        self._cluster = None
+        if address is None:
+            kw = dict(n_workers=int(workers or os.cpu_count() or 1), threads_per_worker=1, processes=True,
+                      dashboard_address=None)
+            kw.update(local_kw)
+            self._cluster = LocalCluster(**kw)
+            self._client = Client(self._cluster)
+        else:
+            try:
+                self._client = Client(address, timeout="10s")
+            except (OSError, TimeoutError) as e:
+                raise ConfigError(f"--scheduler: cannot reach the Dask scheduler at {address!r} ({e})") from None
+        self.workers = max(1, len(self._client.scheduler_info().get("workers", {})))
+        self.address = address or self._cluster.scheduler_address
+
+    def imap_unordered(self, fn, tasks):
+        from distributed import as_completed
+
+        futs = {}
+        for key, task in tasks.items():
+            # pure=False: never merge two chunks that happen to hash alike
+            futs[self._client.submit(fn, task, pure=False)] = key
+        try:
+            for f in as_completed(list(futs)):
+                yield futs[f], f.result()
+        finally:
+            for f in futs:
+                f.cancel()
+
+    def close(self):
+        if getattr(self, "_client", None) is not None:
+            self._client.close()
+            self._client = None
+        if getattr(self, "_cluster", None) is not None:
+            self._cluster.close()
+            self._cluster = None
+
+    def describe(self) -> str:
+        return f"dask at {self.address} ({self.workers} workers)"
+
+
+def get_executor(spec: "str | Executor | None" = None, scheduler: str | None = None,
+                 field: str = "executor") -> Executor:
+    """An executor from its spelling (see :data:`EXECUTORS`); ``scheduler`` implies Dask.
+
+    Raises
+    ------
+    ConfigError
+        Unknown spelling, bad worker count, or Dask requested but not installed / unreachable.
+    """
+    if isinstance(spec, Executor):
+        return spec
+    if scheduler:
+        return DaskExecutor(scheduler if "://" in scheduler else f"tcp://{scheduler}")
+    spec = (spec or "serial").strip()
+    if spec in ("serial", "auto"):
+        return SerialExecutor()
+    if spec == "processes" or spec.startswith("processes:"):
+        n = spec.partition(":")[2]
+        if n and not (n.isdigit() and 1 <= int(n) <= 1024):
+            raise ConfigError(f"{field}: worker count must be an integer 1..1024, got {n!r}")
+        return ProcessExecutor(int(n) if n else None)
+    if spec == "dask" or spec == "dask:local":
+        return DaskExecutor(None)
+    if spec.startswith("dask://"):
+        return DaskExecutor("tcp://" + spec[len("dask://"):])
+    if spec.startswith("tcp://"):
+        return DaskExecutor(spec)
+    raise ConfigError(f"{field}: unknown executor {spec!r}; allowed: {', '.join(EXECUTORS)}")
+
+
+def run_chunks(fn: Callable, tasks: dict, executor: "Executor | str | None" = None, store=None,
+               progress: bool = False, desc: str = "chunks", weights: dict | None = None,
+               unit: str = "chunk") -> dict:
+    """Run ``fn(task)`` for every ``key, task`` of ``tasks``; returns ``{key: result}``.
+
+    Parameters
+    ----------
+    store : object with ``load(key) -> result | None`` and ``save(key, result)``, optional
+        Checkpoint (e.g. :class:`phasemap.store.ChunkStore`): finished chunks are loaded instead
+        of recomputed, new ones saved (atomically) the moment they arrive.
+    executor : Executor or str, optional
+        Default serial. ``"auto"``: the first pending chunk runs in this process; if the others
+        would take longer than :data:`AUTO_PARALLEL_SECONDS`, they go to local processes on all
+        cores (the default for long jobs; results are identical either way).
+    progress : bool
+        One tqdm bar for the job (in this process), with the time left.
+    weights : dict, optional
+        Work per chunk for the bar (e.g. points per chunk); default 1 each.
+    """
+    out = {}
+    todo = {}
+    for key, task in tasks.items():
+        part = store.load(key) if store is not None else None
+        if part is None:
+            todo[key] = task
+        else:
+            out[key] = part
+    weights = weights or {}
+    bar = None
+    if progress:
+        from tqdm.auto import tqdm
+
+        bar = tqdm(total=sum(weights.get(k, 1) for k in tasks), desc=desc, unit=unit, leave=False,
+                   initial=sum(weights.get(k, 1) for k in out))
+    auto = executor == "auto"
+    own = not isinstance(executor, Executor)
+    ex = None
+    try:
+        if todo and auto:  # time the first chunk here, then decide
+            import time
+
+            key = next(iter(todo))
+            t0 = time.perf_counter()
+            part = fn(todo.pop(key))
+            spent = time.perf_counter() - t0
+            if store is not None:
+                store.save(key, part)
+            out[key] = part
+            if bar is not None:
+                bar.update(weights.get(key, 1))
+            cores = os.cpu_count() or 1
+            if todo and cores > 1 and spent * len(todo) > AUTO_PARALLEL_SECONDS:
+                ex = ProcessExecutor()
+            else:
+                ex = SerialExecutor()
+        elif todo:
+            ex = get_executor(executor)
+        if todo:
+            for key, part in ex.imap_unordered(fn, todo):
+                if store is not None:
+                    store.save(key, part)
+                out[key] = part
+                if bar is not None:
+                    bar.update(weights.get(key, 1))
+    finally:
+        if bar is not None:
+            bar.close()
+        if own and ex is not None:
+            ex.close()
+    return {k: out[k] for k in tasks}

@@ -1,0 +1,81 @@
+"""Executors (phasemap.executor): chunks are independent and deterministic, so every executor
+gives the serial result; finished chunks in a store are never recomputed.
+
+Source: common practice, no source (software-behaviour checks; the physics of the compared maps
+is checked elsewhere). The serial run is the independent reference.
+"""
+
+import numpy as np
+import pytest
+import xarray as xr
+
+import phasemap
+from phasemap.executor import DaskExecutor, ProcessExecutor, SerialExecutor, get_executor, run_chunks
+from phasemap.model import ConfigError
+from phasemap.scan import filling_curve, phase_map
+
+
+def _map(executor, **kw):
+    m = phasemap.Model("triangular", t=0.0, V=1.0)
+    return phase_map(m, ("t", np.linspace(0.0, 0.4, 13)), ("mu", np.linspace(-1.0, 7.0, 17)), refine=False,
+                     progress=False, chunk=40, executor=executor, **kw)
+
+
+def _square(x):
+    return x * x
+
+
+class _Store(dict):
+    def load(self, k):
+        return self.get(k)
+
+    def save(self, k, v):
+        self[k] = v
+
+
+def test_run_chunks_skips_stored_and_saves_each():
+    store = _Store({1: -1})  # chunk 1 "finished" earlier (a marker value it would never compute)
+    out = run_chunks(_square, {0: 2, 1: 3, 2: 4}, SerialExecutor(), store=store)
+    assert out == {0: 4, 1: -1, 2: 16}
+    assert store == {0: 4, 1: -1, 2: 16}
+
+
+def test_get_executor_spellings_and_errors():
+    assert isinstance(get_executor(None), SerialExecutor)
+    assert isinstance(get_executor("processes:2"), ProcessExecutor) and get_executor("processes:2").workers == 2
+    for bad in ("threads", "processes:0", "processes:x"):
+        with pytest.raises(ConfigError, match="executor"):
+            get_executor(bad)
+
+
+def test_config_run_section_validated():
+    from phasemap.config import parse_config
+
+    base = {"model": {"lattice": "triangular", "t": 0.1, "V": 1.0},
+            "scan": {"kind": "curve", "x": {"name": "mu", "start": 0.0, "stop": 1.0, "num": 3}}}
+    assert parse_config(dict(base, run={"executor": "processes:2"})).executor == "processes:2"
+    with pytest.raises(ConfigError, match=r"\[run\] executor"):
+        parse_config(dict(base, run={"executor": "gpu"}))
+    with pytest.raises(ConfigError, match="did you mean|scheduler"):
+        parse_config(dict(base, run={"schedular": "tcp://x:1"}))
+
+
+def test_processes_identical_to_serial():
+    serial = _map("serial")
+    with ProcessExecutor(2) as ex:
+        par = _map(ex)
+        xr.testing.assert_identical(serial, par)
+        # the adaptive map cuts each level into chunks too
+        xr.testing.assert_identical(_map("serial", adaptive=True, coarse=4), _map(ex, adaptive=True, coarse=4))
+
+
+def test_dask_on_loopback_identical_to_serial():
+    pytest.importorskip("distributed")
+    serial = _map("serial")
+    with DaskExecutor(None, workers=2, host="127.0.0.1") as ex:
+        assert ex.address.startswith("tcp://127.0.0.1:")
+        xr.testing.assert_identical(serial, _map(ex))
+        m = phasemap.Model("triangular", t=0.1, V=1.0)
+        a = filling_curve(m, np.linspace(-1, 7, 41), refine=False, executor=ex)
+        b = filling_curve(m, np.linspace(-1, 7, 41), refine=False)
+        xr.testing.assert_identical(a.dataset, b.dataset)
