@@ -44,10 +44,13 @@ def _compare(models, cluster, **kw):
     # A seed whose iterate wanders (oscillates between states) for many iterations before it
     # lands follows a chaotic trajectory: rounding-level differences between the engines
     # (fields summed in another order) can decide where, or whether, it lands. Rows that
-    # converge directly (<= 60 iterations in both) must agree, nearly all rows must agree,
-    # and the winning state of every point must agree.
+    # converge directly (<= 60 iterations) must converge in both and agree, nearly all rows must
+    # agree, and the winning state of every point must agree.
     c = ref.converged & new.converged
-    assert (ref.converged != new.converged).mean() <= 0.06
+    # a row that converges directly (<= 60 iterations) in either engine converges in both; only
+    # wandering rows may end differently (tri6: 3 of 36 stripe-seed rows, 99-185 iterations)
+    direct_any = (ref.converged & (ref.iterations <= 60)) | (new.converged & (new.iterations <= 60))
+    assert (ref.converged & new.converged)[direct_any].all()
     direct = c & (ref.iterations <= 60) & (new.iterations <= 60)
     assert direct.sum() >= 0.8 * c.sum()
     same = c & np.isclose(ref.energy, new.energy, rtol=0, atol=1e-9)
