@@ -41,7 +41,7 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from .lattice import Supercell, search_cell
-from .mixing import Anderson
+from .mixing import Anderson, StallWatch
 from .params import ParamBatch
 from .seeds import Seed, make_seeds
 
@@ -296,18 +296,13 @@ def _iterate(ops: CellOps, batch: ParamBatch, n0, phi0, opt: MFOptions):
     idx = np.arange(rows)
     x = x_out.copy()
     live = np.ones(rows, bool)
-    best_r = np.full(rows, np.inf)
-    last_gain = np.zeros(rows, int)
+    watch = StallWatch(rows, opt.tol, opt.patience)
     mix = Anderson(rows, 2 * S, m, opt.mixing)
     for it in range(1, opt.max_iter + 1):
         gx, _, _ = G(x, idx)
         f = gx - x
         r = np.abs(f).max(axis=1)
-        gain = r < 0.999 * best_r
-        best_r = np.where(gain, r, best_r)
-        last_gain = np.where(gain, it, last_gain)
-        done = live & (r < opt.tol)
-        stalled = live & ~done & ((it - last_gain) > opt.patience)
+        done, stalled = watch.update(r, it, live)
         fin = done | stalled
         if fin.any():
             g = idx[fin]
@@ -324,7 +319,8 @@ def _iterate(ops: CellOps, batch: ParamBatch, n0, phi0, opt: MFOptions):
             keep = live
             idx, x = idx[keep], x[keep]
             mix.keep(keep)
-            best_r, last_gain, live = best_r[keep], last_gain[keep], live[keep]
+            watch.keep(keep)
+            live = live[keep]
     else:
         g = idx[live]
         x_out[g], iters[g], resid[g] = x[live], opt.max_iter, np.abs(f[live]).max(axis=1)

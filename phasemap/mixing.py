@@ -30,7 +30,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["Anderson", "anderson_update"]
+__all__ = ["Anderson", "anderson_update", "StallWatch"]
 
 
 def anderson_update(x, f, dX, dF, mixing: float):
@@ -118,3 +118,29 @@ class Anderson:
         self.hx, self.hf = self.hx[:, mask], self.hf[:, mask]
         if self.px is not None:
             self.px, self.pf = self.px[mask], self.pf[mask]
+
+
+class StallWatch:
+    """Per-row stopping rule of the batched fixed-point loops (mean field and cluster mean field).
+
+    A row is done when its residual is below ``tol``; it is stalled (stopped, unconverged) when its
+    best residual has not improved by 0.1 % for more than ``patience`` iterations. ``keep`` drops
+    finished rows together with the loop's other compacted arrays.
+    """
+
+    def __init__(self, rows: int, tol: float, patience: int):
+        self.best = np.full(rows, np.inf)
+        self.last = np.zeros(rows, int)
+        self.tol, self.patience = tol, patience
+
+    def update(self, r, it: int, live):
+        """``(done, stalled)`` masks after iteration ``it`` with residuals ``r`` of the rows."""
+        gain = r < 0.999 * self.best
+        self.best = np.where(gain, r, self.best)
+        self.last = np.where(gain, it, self.last)
+        done = live & (r < self.tol)
+        stalled = live & ~done & ((it - self.last) > self.patience)
+        return done, stalled
+
+    def keep(self, mask) -> None:
+        self.best, self.last = self.best[mask], self.last[mask]

@@ -25,7 +25,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..mixing import Anderson
+from ..mixing import Anderson, StallWatch
 
 __all__ = ["BatchProblem", "solve_rows", "lanczos_batch", "pick_ground"]
 
@@ -285,8 +285,7 @@ def solve_rows(prob: BatchProblem, x0, opt, n_max: int, dense: bool, rng=0):
     idx = np.arange(R)
     x = x_out.copy()
     live = np.ones(R, bool)
-    best_r = np.full(R, np.inf)
-    last_gain = np.zeros(R, int)
+    watch = StallWatch(R, opt.tol, opt.patience)
     r_prev = np.full(R, np.inf)
     mix = Anderson(R, 2 * S, opt.anderson, opt.mixing)
     sub = prob
@@ -328,11 +327,7 @@ def solve_rows(prob: BatchProblem, x0, opt, n_max: int, dense: bool, rng=0):
                 f = gx - x
                 r = np.abs(f).max(axis=1)
         r_prev = r
-        gain = r < 0.999 * best_r
-        best_r = np.where(gain, r, best_r)
-        last_gain = np.where(gain, it, last_gain)
-        done = live & (r < opt.tol)
-        stalled = live & ~done & ((it - last_gain) > opt.patience)
+        done, stalled = watch.update(r, it, live)
         fin = done | stalled
         if fin.any():
             gi = idx[fin]
@@ -351,7 +346,8 @@ def solve_rows(prob: BatchProblem, x0, opt, n_max: int, dense: bool, rng=0):
             keep = live
             idx, x, sub = idx[keep], x[keep], sub.take(keep)
             mix.keep(keep)
-            best_r, last_gain, live, r_prev = best_r[keep], last_gain[keep], live[keep], r_prev[keep]
+            watch.keep(keep)
+            live, r_prev = live[keep], r_prev[keep]
             if V is not None:
                 V = V[:, keep]
     else:
