@@ -51,7 +51,7 @@ class Graph:
     table_info: list = field(default_factory=list)
 
     def __post_init__(self):
-        w, C = [], []
+        w = []
         for ty in self.types:
             wi, ci = vertex_weights(ty["t"], ty["V"], ty["mu_i"], ty["mu_j"], ty["eps"])
             ty["C"] = ci

@@ -123,7 +123,6 @@ def sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
     for i in range(N):
         first[i] = -1
         last[i] = -1
-    Nq = cosq.shape[1]
     npart = 0
     for i in range(N):
         npart += state[i]

@@ -38,7 +38,7 @@ def plot_scaling(res) -> Figure:
             ax.errorbar([0], [d["value"]], yerr=[d["error"]], fmt="s", color="C3", ms=4, capsize=2,
                         label=f"L→∞: {d['value']:.3g} ± {d['error']:.1g}")
         ax.axhline(0, color="0.7", lw=0.5)
-        ax.set_xlabel(f"1/L" + ("" if p == 1 else f"$^{{{p:g}}}$"))
+        ax.set_xlabel("1/L" + ("" if p == 1 else f"$^{{{p:g}}}$"))
         ax.set_ylabel(lab)
         ax.set_xlim(left=-0.01)
         h, _ = ax.get_legend_handles_labels()

@@ -56,7 +56,7 @@ def _chain(job: dict) -> dict:
     """Run one chain to the end (resuming from its checkpoint file if present)."""
     g: Graph = job["graph"]
     beta, sweeps, therm, bins, nslice = job["beta"], job["sweeps"], job["thermalization"], job["bins"], job["slices"]
-    N, Nb = g.n_sites, len(g.bonds)
+    N = g.n_sites
     key = _job_hash(job, g)
     path = job.get("checkpoint")
     interval = job.get("interval", 5.0)

@@ -360,7 +360,6 @@ def qmc_critical(spec, table, strains, record, fraction, nboot: int = 400, nsigm
     S = np.asarray(strains, float)[c]
     per = {k: v[c] for k, v in step.per_size.items()}
     Ns = np.array([L * L for L in step.sizes], float)
-    Ls = np.array(step.sizes, float)
     H = record.width[c]
     sc, i0 = _root(S, H)
     HL = step.extrap_L["width"][c]
