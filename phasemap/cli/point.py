@@ -48,9 +48,14 @@ def register(sub) -> None:
 
 def run(args) -> int:
     """Solve and print; returns the exit code."""
+    import contextlib
+
     from ..api import solve
     from ..model import ConfigError
+    from ..store import check_output_folder, output_lock
 
+    if args.checkpoint is not None:  # the output path first (DEVELOPERS.md conventions); one writer per folder
+        check_output_folder(args.checkpoint, "--checkpoint")
     model = model_from_args(args)
     impl, opts = resolve_method(args.method)
     if args.cluster is not None:
@@ -79,8 +84,11 @@ def run(args) -> int:
         if impl.name != "ed":
             raise ConfigError(f"--no-stiffness: only used with --method ed ({impl.name} computes no stiffness)")
         opts["observables"] = ("sq", "condensate")
+    lock = (output_lock(args.checkpoint, flag="--checkpoint") if args.checkpoint is not None
+            else contextlib.nullcontext())
     try:
-        sol = solve(model, method=impl.name, **opts)
+        with lock:
+            sol = solve(model, method=impl.name, **opts)
     except ImportError as e:
         raise ConfigError(f"--method {args.method}: not available in this installation ({e})") from None
     except TypeError as e:  # an option the method does not take

@@ -165,12 +165,25 @@ def classify_extrapolated(sk: dict | None, rho: dict | None, filling: float, t_m
 
 
 # ----------------------------------------------------------------------------- crossings
+def first_sign_change(x, d):
+    """First sign change of ``d`` along ``x`` among the points where ``d`` is defined (finite).
+
+    A NaN is a point that was not measured reliably (e.g. a run that did not decorrelate), not a
+    zero: it is skipped, so the sign change is bracketed by the nearest *defined* neighbours and
+    located by linear interpolation between them. Returns ``(root, i, j)`` with ``i < j`` the
+    indices of the bracketing points (``j - i > 1`` when undefined points lie between them), or
+    ``(nan, None, None)`` without a sign change. ``d = 0`` counts as not positive.
+    """
+    x, d = np.asarray(x, float), np.asarray(d, float)
+    ok = np.flatnonzero(np.isfinite(d))
+    for i, j in zip(ok[:-1], ok[1:]):
+        if (d[i] > 0) != (d[j] > 0):
+            return float(x[i] + (x[j] - x[i]) * d[i] / (d[i] - d[j])), int(i), int(j)
+    return math.nan, None, None
+
+
 def _first_crossing(x, d):
-    s = np.sign(d)
-    for i in range(len(x) - 1):
-        if np.isfinite(d[i]) and np.isfinite(d[i + 1]) and s[i] != 0 and s[i] != s[i + 1]:
-            return x[i] + (x[i + 1] - x[i]) * d[i] / (d[i] - d[i + 1])
-    return math.nan
+    return first_sign_change(x, d)[0]
 
 
 def crossings(x, L, y, err, nboot: int = 400, seed: int = 0) -> list[dict]:

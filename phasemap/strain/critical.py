@@ -297,7 +297,8 @@ def critical_band(results) -> dict:
         None), ``missing`` (methods without a transition in the table), ``text``.
     """
     found = {r.method: r.strain_c for r in results if r.strain_c is not None}
-    missing = [r.method for r in results if r.strain_c is None]
+    missing = [r.method for r in results if r.strain_c is None and getattr(r, "reason", "") != "closed"]
+    closed = [r.method for r in results if r.strain_c is None and getattr(r, "reason", "") == "closed"]
     if found:
         lo, hi = min(found.values()), max(found.values())
         txt = (f"critical strain band {lo:.4g} .. {hi:.4g} over {', '.join(found)}" if len(found) > 1
@@ -307,4 +308,7 @@ def critical_band(results) -> dict:
         txt = "no method finds a transition inside the table"
     if missing:
         txt += f"; no transition inside the table for {', '.join(missing)}"
-    return {"lo": lo, "hi": hi, "methods": {r.method: r.strain_c for r in results}, "missing": missing, "text": txt}
+    if closed:  # statistical methods (qmc): closed at every strain where the width was determined
+        txt += f"; {', '.join(closed)}: plateau already closed at the first strain with a determined width"
+    return {"lo": lo, "hi": hi, "methods": {r.method: r.strain_c for r in results}, "missing": missing + closed,
+            "text": txt}

@@ -305,7 +305,14 @@ def to_record(step: QMCStep, spec, fraction, nsigma: float = 2.0):
 
 @dataclass
 class QMCCritical(CriticalResult):
-    """Critical strain of qmc: root of the extrapolated width with statistical and finite-size errors."""
+    """Critical strain of qmc: root of the extrapolated width with statistical and finite-size errors.
+
+    ``reason`` says why there is no root when ``status == "none"``: ``"open"`` (the plateau is open
+    at every strain where its width was determined), ``"closed"`` (closed at every such strain: the
+    closing lies below the first of them), ``"undetermined"`` (fewer than two strains with a
+    width). ``undetermined`` lists the computed strains whose width is NaN (an edge or order
+    value from a run that did not decorrelate: not measured, *not* "no plateau").
+    """
 
     stat_error: float | None = None
     fss_error: float | None = None
@@ -313,11 +320,15 @@ class QMCCritical(CriticalResult):
     alt_root: float | None = None
     binder_crossing: dict = field(default_factory=dict)
     temperatures: tuple = ()
+    reason: str = ""
+    undetermined: list = field(default_factory=list)
+    interval: tuple | None = None
 
     def to_dict(self) -> dict:
         d = super().to_dict()
         d.update(stat_error=self.stat_error, fss_error=self.fss_error, sizes=list(self.sizes), alt_root=self.alt_root,
-                 binder_crossing=self.binder_crossing, temperatures=list(self.temperatures))
+                 binder_crossing=self.binder_crossing, temperatures=list(self.temperatures), reason=self.reason,
+                 undetermined=list(self.undetermined), interval=list(self.interval) if self.interval else None)
         return d
 
     def summary(self) -> str:
@@ -325,16 +336,35 @@ class QMCCritical(CriticalResult):
         Ts = f"T = {min(self.temperatures):.3g}..{max(self.temperatures):.3g} {self.unit}" if self.temperatures else ""
         head = f"{self.method}: quantum Monte Carlo on {sz}, {Ts}, extrapolated to L -> inf"
         st = f"{self.stat_error:.2g}" if self.stat_error is not None else "? (resampling found no root)"
+        S = np.asarray(self.strains, float)
+        H = np.asarray(self.values, float)
+        ok = np.isfinite(H)
         if self.status == "found":
             s = (f"{head}: critical strain {self.strain_c:.4g} ± {st} (statistical)"
                  + (f" ± {self.fss_error:.2g} (finite size: 1/N vs 1/L extrapolation)" if self.fss_error is not None else ""))
         elif self.status == "bracket":
             s = (f"{head}: critical strain between {self.bracket[0]:.4g} and {self.bracket[1]:.4g} (the 1/N and 1/L "
                  f"extrapolations disagree beyond their statistical errors; statistical ± {st})")
-        else:
+        elif self.reason == "closed":
+            first = float(S[ok][0])
+            below = S[~ok & (S < first)]
+            s = (f"{head}: the extrapolated {self.fraction} plateau width is <= 0 at every computed strain where it "
+                 f"was determined (from strain {first:.4g}, width {H[ok][0]:.3g} {self.unit}): the plateau closes "
+                 + (f"below strain {first:.4g}, where the width was not determined (strains "
+                    f"{', '.join(f'{x:.4g}' for x in below)})" if len(below) else "at or before the start of the table"))
+        elif self.reason == "open":
             c = self.closest
-            s = (f"{head}: the extrapolated {self.fraction} plateau width does not close inside the table (smallest "
-                 f"{c['value']:.3g} {self.unit} at strain {c['strain']:.4g})")
+            s = (f"{head}: the extrapolated {self.fraction} plateau width stays > 0 at every computed strain where it "
+                 f"was determined: it does not close inside the table (smallest {c['value']:.3g} {self.unit} at "
+                 f"strain {c['strain']:.4g})")
+        else:
+            s = (f"{head}: the {self.fraction} plateau width was determined at fewer than two computed strains "
+                 "(runs not decorrelated, see flags): no critical strain; run longer (--qmc sweeps=...)")
+        if self.status != "none" and self.interval is not None and self.undetermined:
+            gap = [x for x in self.undetermined if self.interval[0] < x < self.interval[1]]
+            if gap:
+                s += (f" [interpolated between strains {self.interval[0]:.4g} and {self.interval[1]:.4g}: width not "
+                      f"determined at {', '.join(f'{x:.4g}' for x in gap)}]")
         if self.t_over_V_c is not None and self.status != "none":
             s += f" (t/V = {self.t_over_V_c:.4g})"
         bc = self.binder_crossing
@@ -343,35 +373,34 @@ class QMCCritical(CriticalResult):
         return s
 
 
-def _root(S, H):
-    """First sign change of H (positive -> negative or back) by linear interpolation."""
-    for i in range(len(S) - 1):
-        if np.isfinite(H[i]) and np.isfinite(H[i + 1]) and (H[i] > 0) != (H[i + 1] > 0):
-            return float(S[i] + (S[i + 1] - S[i]) * H[i] / (H[i] - H[i + 1])), i
-    return None, None
-
-
 def qmc_critical(spec, table, strains, record, fraction, nboot: int = 400, nsigma: float = 2.0) -> QMCCritical:
-    """Critical strain of the qmc record (module notes)."""
-    from ..qmc.scaling import combine_crossings, crossings, extrapolate
+    """Critical strain of the qmc record (module notes).
+
+    The root is the first sign change of the extrapolated width among the computed strains
+    where the width is *defined*; a NaN width (an edge or order run that did not decorrelate) is
+    "not measured", not "no plateau", so it is skipped and the root is interpolated between the
+    nearest defined neighbours (the strains skipped are listed in ``undetermined`` and named in
+    the summary)."""
+    from ..qmc.scaling import combine_crossings, crossings, extrapolate, first_sign_change
 
     step: QMCStep = record.detail
     c = step.computed
     S = np.asarray(strains, float)[c]
     per = {k: v[c] for k, v in step.per_size.items()}
     Ns = np.array([L * L for L in step.sizes], float)
-    H = record.width[c]
-    sc, i0 = _root(S, H)
-    HL = step.extrap_L["width"][c]
-    scL, _ = _root(S, HL)
+    H = np.asarray(record.width, float)[c]
+    sc, i0, j0 = first_sign_change(S, H)
+    scL = first_sign_change(S, step.extrap_L["width"][c])[0]
+    sc = None if not np.isfinite(sc) else sc
+    scL = None if not np.isfinite(scL) else scL
     rng = np.random.default_rng(int(step.settings["seed"]))
     draws = []
     for _ in range(nboot):
         w = per["width"] + per["width_error"] * rng.standard_normal(per["width"].shape)
         h = np.array([extrapolate(Ns, w[p], np.maximum(per["width_error"][p], 1e-12))["value"]
                       if np.all(np.isfinite(w[p])) else np.nan for p in range(len(S))])
-        r, _ = _root(S, h)
-        if r is not None:
+        r = first_sign_change(S, h)[0]
+        if np.isfinite(r):
             draws.append(r)
     stat = float(np.std(draws)) if len(draws) > 1 else None
     finite = np.isfinite(H)
@@ -382,9 +411,13 @@ def qmc_critical(spec, table, strains, record, fraction, nboot: int = 400, nsigm
                    seed=int(step.settings["seed"]))
     bcomb = combine_crossings(bc, nsigma)
     fl = [f for fs in record.flags for f in fs if not f.startswith("not computed")]
-    status, bracket, fss = "none", None, None
+    undetermined = [float(x) for x in S[~finite]]
+    status, bracket, fss, reason, interval = "none", None, None, "", None
     if sc is not None:
-        status = "found"
+        status, interval = "found", (float(S[i0]), float(S[j0]))
+        if j0 - i0 > 1:
+            fl.append(f"width not determined at strain(s) {', '.join(f'{x:.4g}' for x in S[i0 + 1:j0])} (runs not "
+                      f"decorrelated): the root is interpolated between {S[i0]:.4g} and {S[j0]:.4g}")
         if scL is not None:
             fss = abs(sc - scL)
             if fss > nsigma * math.hypot(stat or 0.0, stat or 0.0) and fss > 0:
@@ -392,6 +425,7 @@ def qmc_critical(spec, table, strains, record, fraction, nboot: int = 400, nsigm
         direction = "closes with increasing strain" if H[i0] > 0 else "opens with increasing strain"
     else:
         direction = ""
+        reason = ("undetermined" if finite.sum() < 2 else "open" if np.all(H[finite] > 0) else "closed")
     strain_c = sc if status == "found" else (0.5 * (bracket[0] + bracket[1]) if bracket else None)
     tv = float(table.ratio(strain_c)[0]) if strain_c is not None else None
     return QMCCritical(method=record.method, fraction=fraction, criterion="width (L -> inf)", status=status,
@@ -399,7 +433,14 @@ def qmc_critical(spec, table, strains, record, fraction, nboot: int = 400, nsigm
                        xtol=stat or math.nan, direction=direction, closest=closest, strains=S, values=H,
                        unit=table.unit, t_over_V_c=tv, flags=fl, stat_error=stat, fss_error=fss, sizes=step.sizes,
                        alt_root=scL, binder_crossing=bcomb, temperatures=tuple(np.unique(np.round(step.T[c], 6))),
-                       evaluations=step.runs)
+                       evaluations=step.runs, reason=reason, undetermined=undetermined, interval=interval)
+
+
+#: Why a qmc strain check gives no melt factor (the mean-field line "t/V would need to grow/fall to ...").
+QMC_NO_MELT_FACTOR = ("not computed for qmc: the factor is a root of the plateau width in t/V, and for a statistical "
+                      "width extrapolated over sizes that root needs a QMC scan in t/V on every size (a sweep's worth "
+                      "of runs per strain), not a root finder on noisy values; the QMC answer to how far the solid is "
+                      "from melting is the critical strain of `strain-sweep --methods qmc` (with t/V there)")
 
 
 def qmc_report(model, record, mu, fraction) -> dict:
@@ -436,6 +477,8 @@ def qmc_report(model, record, mu, fraction) -> dict:
             verdict = "uncertain"
             lines.append(f"the extrapolated {fraction} plateau width {w:.4g} ± {we:.2g} {u} is neither clearly open nor "
                          "closed at two sigma: run larger sizes or longer (--qmc sizes=6+9+12 --qmc sweeps=...).")
+    melt = {"status": "not-computed", "reason": QMC_NO_MELT_FACTOR}
+    lines.append(f"t/V melt factor: {QMC_NO_MELT_FACTOR}.")
     if np.isfinite(sk):
         lines.append(f"at filling {fraction}: S(K)/N -> {sk:.4g} ± {ske:.2g}, stiffness -> {rho:.4g} ± {rhoe:.2g} {u} "
                      "(linear in 1/L over the sizes).")
@@ -443,7 +486,7 @@ def qmc_report(model, record, mu, fraction) -> dict:
                  "parameter fit; larger systems can move it." if len(step.sizes) < 3 else
                  f"sizes up to {max(step.sizes) ** 2} sites.")
     out = {"kind": "qmc", "sizes": list(step.sizes), "per_size": rows, "L_extrapolated": ext,
-           "T": float(step.T[0]), "settings": {k: v for k, v in step.settings.items()}, "verdict": verdict,
+           "T": float(step.T[0]), "settings": {k: v for k, v in step.settings.items()}, "verdict": verdict, "melt": melt,
            "verdict_lines": lines}
     if mu is not None:
         lo, hi = ext["mu_lo"][0], ext["mu_hi"][0]

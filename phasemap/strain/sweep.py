@@ -105,7 +105,11 @@ class StrainSweep:
         """The provenance every file of the sweep carries (:func:`phasemap.store.provenance`)."""
         from ..store import provenance
 
-        return provenance(method=",".join(self.names), table=self.table, unit=self.table.unit, **extra)
+        # per method its options; a method with statistical settings (qmc: sizes, T, sweeps, seed, ...)
+        # reports the full settings it ran with (StepRecord.info["settings"]), so the files say how it was made
+        opts = {m.name: self.records[m.name].info.get("settings", m.option_dict) if m.name in self.records
+                else m.option_dict for m in self.methods}
+        return provenance(method=",".join(self.names), options=opts, table=self.table, unit=self.table.unit, **extra)
 
     def metadata(self) -> dict:
         return {
@@ -374,7 +378,8 @@ def _has_melting(spec) -> bool:
     """The method has a finite-temperature mode and implements the strain_melting hook."""
     from ..methods import Method
 
-    return spec.capabilities.temperature and type(spec.impl).strain_melting is not Method.strain_melting
+    return (spec.capabilities.temperature and type(spec.impl).strain_melting is not Method.strain_melting
+            and not getattr(spec.impl, "MELTING_UNAVAILABLE", None))
 
 
 def _var(key: str) -> str:
@@ -455,7 +460,7 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
                 secs[f"{sp.name} melting"] = time.perf_counter() - t1
             else:
                 why = ("has no finite-temperature mode" if not sp.capabilities.temperature else
-                       "does not provide Method.strain_melting yet")
+                       getattr(sp.impl, "MELTING_UNAVAILABLE", None) or "does not provide Method.strain_melting yet")
                 notes.append(f"no melting temperature for {sp.name}: {sp.impl.title} {why}")
     sharp = [crit[sp.name] for sp in specs if recs[sp.name].sharp]
     band = critical_band(sharp)
