@@ -236,3 +236,28 @@ def test_qmc_check_says_why_there_is_no_melt_factor(tmp_path):
     res = check_strain(_tiny_table(tmp_path), 0.0, spec)
     assert res.data["melt"]["status"] == "not-computed"
     assert "t/V melt factor: not computed for qmc" in res.verdict()
+
+
+def test_refine_measures_the_skipped_strains_at_the_closing(monkeypatch):
+    """every = 2 measures strains 0, 2, 4, 6, 8 first; the extrapolated width (exactly 1 - p/5 + 20/N
+    here) changes sign between 4 and 6, so strain 5 is measured too, and nothing else."""
+    import phasemap.strain.qmc_method as qm
+
+    calls = []
+
+    def fake(models, pidx, s, f, T, per, counter, flags):
+        calls.append([int(p) for p in pidx])
+        for p in pidx:
+            for a, L in enumerate(s["sizes"]):
+                per["width"][p, a] = 1.0 - p / 5.0 + 20.0 / L ** 2
+                per["width_error"][p, a] = 1e-3
+
+    monkeypatch.setattr(qm, "_measure", fake)
+    models = [Model(lattice="triangular", t=0.1, V=1.0, U=math.inf)] * 9
+    step = qm.qmc_plateaus(models, MethodSpec.parse("qmc"))
+    assert calls == [[0, 2, 4, 6, 8], [5]]
+    assert np.flatnonzero(step.computed).tolist() == [0, 2, 4, 5, 6, 8]
+    assert step.extrap["width"][5] == pytest.approx(0.0, abs=1e-9)  # the 1/N fit is exact here
+    calls.clear()
+    step = qm.qmc_plateaus(models, MethodSpec.parse("qmc", refine=False))
+    assert calls == [[0, 2, 4, 6, 8]]

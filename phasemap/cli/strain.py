@@ -34,7 +34,8 @@ MAX_STRAINS, MAX_MU = 1001, 10001
 
 
 QMC_HELP = ("quantum Monte Carlo setting for qmc methods, repeatable: sizes=6+9+12, T_over_V, T, sweeps, "
-            "order_sweeps, bins, rounds, span, every (1: every strain), seed, workers (defaults: "
+            "order_sweeps, bins, rounds, span, every (1: every strain), refine (0: do not measure the skipped "
+            "strains at the closing), seed, workers (defaults: "
             "phasemap.strain.qmc_method.QMC_STRAIN_DEFAULTS)")
 
 
@@ -72,7 +73,9 @@ def _with_qmc(specs, items):
             print(f"phasemap: {sp.name}: sizes {'+'.join(f'{L}x{L}' for L in st['sizes'])}, "
                   + (f"T = {st['T']:g}" if st["T"] is not None else f"T = {st['T_over_V']:g} x max V")
                   + f", {st['sweeps']} sweeps per edge run, {st['order_sweeps']} per order run, {st['rounds']} "
-                  f"bisection rounds, every {st['every']} strain(s), seed {st['seed']} (more: --qmc KEY=VALUE)",
+                  f"bisection rounds, every {st['every']} strain(s)"
+                  + (" (+ the skipped strains at the closing)" if st["refine"] and st["every"] > 1 else "")
+                  + f", seed {st['seed']} (more: --qmc KEY=VALUE)",
                   file=sys.stderr)
         out.append(sp)
     if extra and not any(sp.capabilities.error_bars for sp in specs):

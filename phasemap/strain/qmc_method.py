@@ -38,9 +38,12 @@ from .critical import CriticalResult
 __all__ = ["QMC_STRAIN_DEFAULTS", "qmc_setup", "qmc_plateaus", "qmc_critical", "QMCStep", "QMCCritical", "strain_settings"]
 
 #: Defaults of the strain workflow (chosen so that ``strain-sweep demo --methods qmc`` fits in
-#: about 30 min on 2 cores; ask for more with ``--qmc sizes=6+9+12 --qmc sweeps=5000`` ...).
-QMC_STRAIN_DEFAULTS = {"sizes": (6, 9), "T_over_V": 0.05, "sweeps": 500, "order_sweeps": 1000, "bins": 12,
-                       "rounds": 5, "span": 1.5, "every": 2, "seed": 0, "workers": None, "T": None,
+#: 30 min on 2 cores; ask for more with ``--qmc sizes=6+9+12 --qmc sweeps=5000`` ...). 1500 sweeps
+#: in 12 bins = 125 sweeps per bin, so a filling with tau_int up to ~15 sweeps counts as decorrelated
+#: (500 sweeps left most demo edges NaN: tau_int of the filling ~5-6 sweeps next to the edges on 6x6
+#: and 9x9, measured); 7 rounds bisect mu_c -+ 1.5 V to 3 V / 128 ~ 0.023 V.
+QMC_STRAIN_DEFAULTS = {"sizes": (6, 9), "T_over_V": 0.05, "sweeps": 1500, "order_sweeps": 3000, "bins": 12,
+                       "rounds": 7, "span": 1.5, "every": 2, "refine": True, "seed": 0, "workers": None, "T": None,
                        "thermalization": None}
 _KEYS = set(QMC_STRAIN_DEFAULTS) | {"size", "cluster", "chains"}
 
@@ -77,6 +80,9 @@ def strain_settings(spec) -> dict:
             raise ConfigError(f"qmc {k}: expected an integer >= 1, got {s[k]!r}")
     if s["sweeps"] < 2 * s["bins"] or s["order_sweeps"] < 2 * s["bins"]:
         raise ConfigError(f"qmc sweeps: need at least 2 sweeps per bin (bins = {s['bins']}), got {s['sweeps']}")
+    if s["refine"] not in (True, False, 0, 1):
+        raise ConfigError(f"qmc refine: expected true/false (or 1/0), got {s['refine']!r}")
+    s["refine"] = bool(s["refine"])
     if not (float(s["T_over_V"]) > 0):
         raise ConfigError(f"qmc T_over_V: must be > 0, got {s['T_over_V']!r}")
     return s
@@ -148,9 +154,17 @@ def _edge_from_pair(m1, n1, e1, m2, n2, e2, target):
     return float(min(max(x, m1), m2)), float(s if slope else math.nan)
 
 
+_PER_KEYS = ("mu_lo", "mu_lo_error", "mu_hi", "mu_hi_error", "width", "width_error", "resolution", "S(K)/N",
+             "S(K)/N_error", "binder", "binder_error", "stiffness", "stiffness_error", "filling", "filling_error")
+
+
 def qmc_plateaus(models, spec, fraction="1/3", progress=None) -> QMCStep:
-    """Edges, width and order at ``fraction`` on every size for every model (module notes)."""
-    from ..qmc.scaling import extrapolate, job_seed, run_many
+    """Edges, width and order at ``fraction`` on every size for every model (module notes).
+
+    Every ``every``-th strain (and the last) is measured first; with ``refine`` (default) the
+    strains skipped inside the first sign change of the extrapolated width are measured too, so
+    the critical strain is interpolated between neighbouring strains of the path."""
+    from ..qmc.scaling import first_sign_change
     from .engine import parse_fraction
 
     s = strain_settings(spec)
@@ -162,8 +176,28 @@ def qmc_plateaus(models, spec, fraction="1/3", progress=None) -> QMCStep:
     computed[::every] = True
     computed[-1] = True
     T = np.array([float(s["T"]) if s["T"] is not None else float(s["T_over_V"]) * max(m.V) for m in models])
-    counter = [0]
-    flags = []
+    per = {k: np.full((P, nL), np.nan) for k in _PER_KEYS}
+    counter, flags = [0], []
+    _measure(models, np.flatnonzero(computed), s, f, T, per, counter, flags)
+    ext, extL = _extrapolations(per, sizes)
+    if s["refine"] and every > 1:
+        pc = np.flatnonzero(computed)
+        _, i, j = first_sign_change(pc, ext["width"][pc])
+        new = [q for q in range(pc[i] + 1, pc[j]) if not computed[q]] if i is not None else []
+        if new:
+            _measure(models, np.array(new), s, f, T, per, counter, flags)
+            computed[new] = True
+            ext, extL = _extrapolations(per, sizes)
+    flags.sort(key=lambda x: int(x.split("#")[1].split(",")[0]) if x.startswith("strain #") else -1)
+    return QMCStep(tuple(sizes), f, T, computed, per, ext, extL, flags, s, runs=counter[0])
+
+
+def _measure(models, pidx, s, f, T, per, counter, flags):
+    """Bisect both edges and run the order measurement for the strains ``pidx`` (fills ``per``)."""
+    from ..qmc.scaling import job_seed, run_many
+
+    sizes = s["sizes"]
+    nL = len(sizes)
 
     def kw(p, L, sweeps):
         counter[0] += 1
@@ -176,7 +210,7 @@ def qmc_plateaus(models, spec, fraction="1/3", progress=None) -> QMCStep:
         return run_many(jobs, s["workers"])
 
     # -- one bracket [c - span V, c + span V] around the t = 0 plateau centre for both edges
-    idx = [(p, a) for p in range(P) if computed[p] for a in range(nL)]
+    idx = [(int(p), a) for p in pidx for a in range(nL)]
     target = {}
     br = {}
     for p, a in idx:
@@ -208,8 +242,6 @@ def qmc_plateaus(models, spec, fraction="1/3", progress=None) -> QMCStep:
                 br[key][0] = m
             else:
                 br[key][1] = m
-    per = {k: np.full((P, nL), np.nan) for k in ("mu_lo", "mu_lo_error", "mu_hi", "mu_hi_error", "width",
-                                                 "width_error", "resolution")}
     for key, (lo, hi) in br.items():
         p, a, e = key
         r1, r2 = meas[(p, a, lo)], meas[(p, a, hi)]
@@ -226,8 +258,9 @@ def qmc_plateaus(models, spec, fraction="1/3", progress=None) -> QMCStep:
         # resolved (fillings without fluctuations) then still has an honest error
         per[f"{name}_error"][p, a] = math.hypot(sx if np.isfinite(sx) else 0.0, (hi - lo) / math.sqrt(12.0))
         per["resolution"][p, a] = hi - lo
-    per["width"] = per["mu_hi"] - per["mu_lo"]
-    per["width_error"] = np.hypot(per["mu_lo_error"], per["mu_hi_error"])
+    for p, a in idx:
+        per["width"][p, a] = per["mu_hi"][p, a] - per["mu_lo"][p, a]
+        per["width_error"][p, a] = math.hypot(per["mu_lo_error"][p, a], per["mu_hi_error"][p, a])
     # -- order at filling f: one longer run per size at the middle of the edges
     pts = []
     for p, a in idx:
@@ -235,9 +268,6 @@ def qmc_plateaus(models, spec, fraction="1/3", progress=None) -> QMCStep:
         if not np.isfinite(mid):
             mid = _centre(models[p])[0]
         pts.append((p, a, float(mid)))
-    for k in ("S(K)/N", "binder", "stiffness", "filling"):
-        per[k] = np.full((P, nL), np.nan)
-        per[f"{k}_error"] = np.full((P, nL), np.nan)
     for (p, a, mu), r in zip(pts, run(pts, s["order_sweeps"])):
         if not r.decorrelated:
             flags.append(f"strain #{p}, L={sizes[a]}: order run at mu = {mu:.4g} not decorrelated "
@@ -246,7 +276,13 @@ def qmc_plateaus(models, spec, fraction="1/3", progress=None) -> QMCStep:
         for k in ("S(K)/N", "binder", "stiffness", "filling"):
             if k in r.estimates:
                 per[k][p, a], per[f"{k}_error"][p, a] = r.estimates[k].value, r.estimates[k].error
-    # -- extrapolations
+
+
+def _extrapolations(per, sizes):
+    """L -> inf: edges and width linear in 1/N, S(K)/N and stiffness in 1/L; the width also in 1/L."""
+    from ..qmc.scaling import extrapolate
+
+    P = per["width"].shape[0]
     Ns = np.array([L * L for L in sizes], float)
     Ls = np.array(sizes, float)
     ext, extL = {}, {}
@@ -266,7 +302,7 @@ def qmc_plateaus(models, spec, fraction="1/3", progress=None) -> QMCStep:
         if ok.sum() >= 2:
             d = extrapolate(Ls[ok], y[ok], np.maximum(e[ok], 1e-12), 1.0)
             extL["width"][p], extL["width_error"][p] = d["value"], d["error"]
-    return QMCStep(tuple(sizes), f, T, computed, per, ext, extL, flags, s, runs=counter[0])
+    return ext, extL
 
 
 def to_record(step: QMCStep, spec, fraction, nsigma: float = 2.0):
