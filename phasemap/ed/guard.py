@@ -112,18 +112,29 @@ def _hop_probability(L: int, N: int) -> float:
     return N * (L - N) / (L * (L - 1)) if L > 1 else 0.0
 
 
-def estimate_space_group(L: int, N: int, dim: int, n_hop_dirs: int, ncv: int = 20) -> Estimate:
+#: A space-group rank table (4 bytes per Fock state) is kept after the build only up to this
+#: size; a larger one is freed before Lanczos and rebuilt on demand by the observables.
+TABLE_KEEP_BYTES = 2 * 2**30
+
+
+def estimate_space_group(L: int, N: int, dim: int, n_hop_dirs: int, ncv: int = 20,
+                         keep_table_bytes: float = TABLE_KEEP_BYTES) -> Estimate:
     """Peak memory of a hard-core space-group sector (:class:`phasemap.ed.spacegroup.SymSector`).
 
-    ``dim`` is the exact sector dimension (Burnside count). Bytes: the rank table (4 per
-    Fock state, ``C(L, N)``), the CSR Hamiltonian (4-byte column, 1-byte code, 8-byte value
-    per hopping entry; entries = ``dim * n_hop_dirs * L * p`` with the hard-core hop
-    probability ``p``), about 60 bytes per state (representatives, stabilisers, diagonal,
-    row pointers, bond counts) and ``ncv + 6`` Lanczos vectors.
+    ``dim`` is the exact sector dimension (Burnside count). Bytes: the Hamiltonian entries
+    (one packed int32 per hop, values made in the product; entries = ``dim * n_hop_dirs * L * p``
+    with the hard-core hop probability ``p``), about 60 bytes per state (representatives,
+    stabilisers, diagonal, row pointers, bond counts), and the larger of two phases: the build
+    (rank table, 4 bytes per Fock state ``C(L, N)``, plus ~16 bytes per state of enumeration
+    temporaries) and Lanczos (``ncv + 6`` vectors, plus the rank table only if it is kept,
+    i.e. at most ``keep_table_bytes``; a larger table is freed before Lanczos and rebuilt
+    after it by the observables that need it).
     """
     fock = fock_dimension(L, N, 1)
     hops = int(dim * n_hop_dirs * L * _hop_probability(L, N))
-    b = 4.0 * fock + 13.0 * hops + 60.0 * dim + 8.0 * (ncv + 6) * dim
+    table = 4.0 * fock
+    lanczos = 8.0 * (ncv + 6) * dim + (table if table <= keep_table_bytes else 0.0)
+    b = 4.0 * hops + 60.0 * dim + max(table + 16.0 * dim, lanczos)
     return Estimate(L, N, 1, fock, int(dim), hops, float(b), kind="in the space-group sector (exact)")
 
 

@@ -55,12 +55,17 @@ from numba import njit, prange
 from ..lattice import Supercell
 from ..model import Model
 from .clusters import point_group
+from .guard import TABLE_KEEP_BYTES
 
 __all__ = ["SymSector", "group_permutations", "sector_dimension", "MAX_SITES"]
 
 MAX_SITES = 62
 _SENT = np.int32(-(2**31))
 _DENSE_MAX = 600
+#: Hamiltonian entries are one int32 each: column in the low _COL_BITS bits, above it
+#: 2 (family) + (1 if the character sign is -1); values are made on the fly in the product.
+_COL_BITS = 27
+_COL_MASK = (1 << _COL_BITS) - 1
 
 
 # -- byte tables -----------------------------------------------------------------------------
@@ -254,7 +259,8 @@ def _count_hops(reps, table, rtab, pc, ba, bb):
 
 
 @njit(cache=True, parallel=True)
-def _fill_hops(reps, table, rtab, pc, ba, bb, bcode, indptr, indices, codes):
+def _fill_hops(reps, table, rtab, pc, ba, bb, bcode, indptr, packed):
+    """Column and matrix-element kind of every hop, packed in one int32 (``_COL_BITS``)."""
     n = reps.shape[0]
     sent = np.int32(-(2**31))
     for r in prange(n):
@@ -267,35 +273,42 @@ def _fill_hops(reps, table, rtab, pc, ba, bb, bcode, indptr, indices, codes):
                 t = s ^ ((np.int64(1) << a) | (np.int64(1) << b))
                 v = table[_rank(rtab, pc, t)]
                 if v != sent:
+                    kind = 2 * (np.int64(bcode[q]) - 1)
                     if v > 0:
-                        indices[p] = v - 1
-                        codes[p] = bcode[q]
+                        col = np.int64(v) - 1
                     else:
-                        indices[p] = -v - 1
-                        codes[p] = -bcode[q]
+                        col = -np.int64(v) - 1
+                        kind += 1
+                    packed[p] = np.int32(col | (kind << _COL_BITS))
                     p += 1
 
 
 @njit(cache=True, parallel=True)
-def _values(indptr, indices, codes, stab, amps, out):
-    """out[p] = sign(code) * amps[|code| - 1] * sqrt(stab[col] / stab[row])."""
+def _values(indptr, packed, stab, amps, out):
+    """out[p] = +-amps[family] * sqrt(stab[col] / stab[row]) (explicit values, tests and small sectors)."""
     n = indptr.shape[0] - 1
     for r in prange(n):
         sr = stab[r]
         for p in range(indptr[r], indptr[r + 1]):
-            c = codes[p]
-            a = amps[abs(c) - 1] * np.sqrt(stab[indices[p]] / sr)
-            out[p] = a if c > 0 else -a
+            e = packed[p]
+            c = e & _COL_MASK
+            k = e >> _COL_BITS
+            a = amps[k >> 1] * np.sqrt(stab[c] / sr)
+            out[p] = -a if k & 1 else a
 
 
 @njit(cache=True, parallel=True)
-def _csr_matvec(indptr, indices, data, diag, x, y):
+def _packed_matvec(indptr, packed, amp2, sq, isq, diag, x, z, y):
+    r"""y = H x with values made on the fly: y_r = d_r x_r + (1/sqrt S_r) sum_p a_p sqrt(S_c) x_c."""
     n = indptr.shape[0] - 1
     for r in prange(n):
-        acc = diag[r] * x[r]
+        z[r] = sq[r] * x[r]
+    for r in prange(n):
+        acc = 0.0
         for p in range(indptr[r], indptr[r + 1]):
-            acc += data[p] * x[indices[p]]
-        y[r] = acc
+            e = packed[p]
+            acc += amp2[e >> _COL_BITS] * z[e & _COL_MASK]
+        y[r] = diag[r] * x[r] + isq[r] * acc
 
 
 @njit(cache=True, parallel=True)
@@ -428,7 +441,7 @@ class SymSector:
         One-dimensional character of the point group (default trivial).
     """
 
-    def __init__(self, cell: Supercell, model: Model, N: int, ops=None, chi=None):
+    def __init__(self, cell: Supercell, model: Model, N: int, ops=None, chi=None, keep_table=None):
         t0 = time.perf_counter()
         if not model.hardcore:
             raise ValueError("SymSector: hard-core bosons only")
@@ -446,26 +459,34 @@ class SymSector:
         self.perms, self.opi = group_permutations(cell, self.ops)
         self.chi = chi_op[self.opi].astype(np.int64)
         self.dim = sector_dimension(self.perms, self.chi, self.N)
+        if self.dim > _COL_MASK + 1:
+            raise ValueError(f"SymSector: sector dimension {self.dim} above the packed-column limit 2**{_COL_BITS}")
         self.fock = math.comb(L, self.N)
+        self.keep_table = 4.0 * self.fock <= TABLE_KEEP_BYTES if keep_table is None else bool(keep_table)
         self._rtab, self._pc = _rank_tables_cached(L)
-        ptab = _perm_tables(self.perms)
+        self._ptab = _perm_tables(self.perms)
         self.table = np.zeros(self.fock, np.int32)
-        self.states, self.stab = _enumerate(self.N, self.fock, ptab, self._rtab, self._pc, self.chi, self.table)
+        self.states, self.stab = _enumerate(self.N, self.fock, self._ptab, self._rtab, self._pc, self.chi, self.table)
         n = len(self.states)
         if n != self.dim:  # pragma: no cover - guards the Burnside count and the enumeration
             raise RuntimeError(f"SymSector: enumeration found {n} states, Burnside predicts {self.dim}")
         self.enum_time = time.perf_counter() - t0
         self._bonds_H()
+        if 2 * cell.neighbors.shape[0] > 2 ** (31 - _COL_BITS):  # pragma: no cover - 8 families fit
+            raise ValueError("SymSector: too many hopping families for the packed entries")
         nb = np.asarray(cell.neighbors, np.int64)
         self.counts = _bond_counts(self.states, nb)
         self.nnn_counts = (_bond_counts(self.states, np.asarray(cell.nnn_neighbors, np.int64)).sum(1)
                            if model.V2 else None)
         self.indptr = np.cumsum(_count_hops(self.states, self.table, self._rtab, self._pc, self._ba, self._bb))
-        nnz = int(self.indptr[-1])
-        self.indices = np.empty(nnz, np.int32)
-        self.codes = np.empty(nnz, np.int8)
+        self.packed = np.empty(int(self.indptr[-1]), np.int32)
         _fill_hops(self.states, self.table, self._rtab, self._pc, self._ba, self._bb, self._bcode,
-                   self.indptr, self.indices, self.codes)
+                   self.indptr, self.packed)
+        if not self.keep_table:
+            self.table = None
+        stab = self.stab.astype(np.float64)
+        self._sq, self._isq = np.sqrt(stab), 1.0 / np.sqrt(stab)
+        self._z = None
         self.set_model(model)
         self.build_time = time.perf_counter() - t0
 
@@ -509,18 +530,30 @@ class SymSector:
         if model is not self.model and not self.compatible(model):
             raise ValueError("SymSector.set_model: the model changes the symmetry or the hopping families")
         self.model = model
-        amps = -np.asarray(model.t, float)
-        self.data = np.empty(self.nnz, np.float64)
-        _values(self.indptr, self.indices, self.codes, self.stab.astype(np.float64), amps, self.data)
+        self._amps = -np.asarray(model.t, float)
+        self._amp2 = np.repeat(self._amps, 2) * np.tile([1.0, -1.0], len(self._amps))
         d = self.counts.astype(np.float64) @ np.asarray(model.V, float) - model.mu * self.N
         if self.nnn_counts is not None:
             d = d + model.V2 * self.nnn_counts
         self.diag = d
 
+    @property
+    def data(self) -> np.ndarray:
+        """Explicit off-diagonal values (8 bytes per entry; the product does not need them)."""
+        out = np.empty(self.nnz, np.float64)
+        _values(self.indptr, self.packed, self.stab.astype(np.float64), self._amps, out)
+        return out
+
+    @property
+    def indices(self) -> np.ndarray:
+        return self.packed & _COL_MASK
+
     def matvec(self, x) -> np.ndarray:
         x = np.ascontiguousarray(x, dtype=np.float64)
         y = np.empty_like(x)
-        _csr_matvec(self.indptr, self.indices, self.data, self.diag, x, y)
+        if self._z is None:
+            self._z = np.empty(self.dim)
+        _packed_matvec(self.indptr, self.packed, self._amp2, self._sq, self._isq, self.diag, x, self._z, y)
         return y
 
     def matrix(self):
@@ -531,8 +564,17 @@ class SymSector:
         return (H + sp.diags(self.diag)).tocsr()
 
     def drop_table(self) -> None:
-        """Free the rank table (4 bytes per Fock state); observables need it."""
+        """Free the rank table (4 bytes per Fock state); :meth:`ensure_table` rebuilds it."""
         self.table = None
+
+    def ensure_table(self) -> np.ndarray:
+        """The rank table (Fock rank -> +-(representative index + 1)), rebuilt if it was freed."""
+        if self.table is None:
+            table = np.full(self.fock, _SENT, np.int32)
+            _mark_orbits(self.states, np.arange(self.dim, dtype=np.int64), self._ptab, self._rtab, self._pc,
+                         self.chi, table)
+            self.table = table
+        return self.table
 
     # -- eigenpairs ------------------------------------------------------------------------------
     def solve(self, k: int = 1, tol: float = 1e-10, v0=None):
@@ -564,10 +606,9 @@ class SymSector:
     # -- observables -------------------------------------------------------------------------
     def apply_bonds(self, ba, bb, amp, x) -> np.ndarray:
         """Matrix-free product with a G-invariant hopping operator sum_q amp_q b_{a_q}^+ b_{b_q}."""
-        if self.table is None:
-            raise RuntimeError("SymSector: the rank table was dropped; observables need it")
+        table = self.ensure_table()
         y = np.empty(self.dim)
-        _apply_bonds(self.states, self.table, self._rtab, self._pc, self.stab.astype(np.float64),
+        _apply_bonds(self.states, table, self._rtab, self._pc, self.stab.astype(np.float64),
                      np.asarray(ba, np.int64), np.asarray(bb, np.int64), np.asarray(amp, np.float64),
                      np.ascontiguousarray(x, np.float64), y)
         return y
