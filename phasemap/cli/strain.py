@@ -93,8 +93,8 @@ def register(sub) -> None:
     c.add_argument("--strain", type=finite_float, required=True, help="strain at which to judge")
     c.add_argument("--mu", type=finite_float, default=None, help="chemical potential (table unit) to report the phase at")
     c.add_argument("--method", default="mf", help="mf, cmf[:<cluster>] or ed[:<cluster>] (exact diagonalization, canonical finite cluster "
-                   "containing K: tri12 (default, no V2), tri21, tri27) (default mf)")
-    c.add_argument("--cluster", default=None, help="cluster for cmf (e.g. tri3, tri6, tri12) or ed (tri12, tri21, tri27)")
+                   "containing K: tri12 (default, no V2), tri21, tri27, tri36) (default mf)")
+    c.add_argument("--cluster", default=None, help="cluster for cmf (e.g. tri3, tri6, tri12) or ed (tri12, tri21, tri27, tri36)")
     c.add_argument("--fraction", default="1/3", help="plateau filling (default 1/3)")
     c.add_argument("--no-melt", action="store_true", help="skip the melt-factor root-finding (faster; ED has none)")
     c.add_argument("--melt-max", type=finite_float, default=10.0, help="largest t/V growth factor searched (default 10)")

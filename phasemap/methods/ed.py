@@ -19,7 +19,7 @@ class ExactDiagonalization(Method):
     caution = ("exact diagonalization is canonical on a finite periodic cluster: mu-(N) and mu+(N) bound the "
                "cluster's step at N = f L and their difference is the charge gap, which never closes exactly on "
                "a finite cluster, so ED gives no sharp critical strain; only the scaling with cluster size "
-               "(tri12, tri21, tri27) tells a plateau from a compressible phase, and S(K)/N above the indicator "
+               "(tri12, tri21, tri27, tri36) tells a plateau from a compressible phase, and S(K)/N above the indicator "
                "threshold is a finite-size indicator of density order, not a thermodynamic statement")
 
     def option_names(self):
