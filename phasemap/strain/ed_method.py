@@ -3,8 +3,8 @@ r"""Exact diagonalization as a method of the strain workflow (canonical, finite 
 For every interpolated model ED on a periodic cluster of L sites containing K (tri12 by
 default; tri21, tri27, tri36; sectors over the memory budget are refused with their estimate by
 the ED cost guard, :mod:`phasemap.ed.guard` — on a 23-GiB machine tri36 runs for isotropic
-couplings and is refused under strain, where the smaller symmetry group makes the N = 13 sector
-~22.6 GiB) gives the *finite-cluster* step of the staircase at
+couplings and under uniaxial strain, where the smaller symmetry group makes the N = 13 sector
+~12.8 GiB, docs/ed.md) gives the *finite-cluster* step of the staircase at
 :math:`N = fL` (f = 1/3 by default):
 
 .. math:: \mu_-(N) = E_c(N) - E_c(N-1),\qquad \mu_+(N) = E_c(N+1) - E_c(N),\qquad
