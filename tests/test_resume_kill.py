@@ -124,3 +124,47 @@ def test_map_killed_and_resumed(tmp_path):
 @pytest.mark.slow
 def test_curve_killed_and_resumed(tmp_path):
     _kill_and_resume(tmp_path, CURVE, "curve", min_chunks=1)
+
+
+@pytest.mark.slow
+def test_cluster_scaling_killed_and_resumed(tmp_path):
+    args = ["cluster-scaling", "--lattice", "square", "--U", "1", "--n-max", "3", "--t", "0.01",
+            "--quantity", "lobe-tip", "--clusters", "sq1,sq2-sd,sq2x1", "--quiet"]
+    ref = subprocess.run([sys.executable, "-m", "phasemap", *args, "--out", str(tmp_path / "ref")], env=_env(),
+                         capture_output=True, text=True, timeout=900)
+    assert ref.returncode == 0, ref.stderr
+    out = tmp_path / "out"
+    ck = out / CHECKPOINT_DIR / "scaling"
+    proc = subprocess.Popen([sys.executable, "-m", "phasemap", *args, "--out", str(out)], env=_env(),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        t0 = time.monotonic()
+        while not list(ck.glob("chunk_*.npz")):
+            assert proc.poll() is None, f"finished before it could be killed: {proc.stderr.read()}"
+            assert time.monotonic() - t0 < 600
+            time.sleep(0.02)
+        proc.send_signal(signal.SIGKILL)
+        proc.wait(60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait(60)
+    finished = sorted(ck.glob("chunk_*.npz"))
+    stamps = {p: p.stat().st_mtime_ns for p in finished}
+    assert finished and not (out / "scaling.json").exists()
+    r = subprocess.run([sys.executable, "-m", "phasemap", *args, "--out", str(out)], env=_env(),
+                       capture_output=True, text=True, timeout=900)
+    assert r.returncode == 2 and "--resume" in r.stderr, r.stderr  # an unfinished run is not silently reused
+    changed = [a if a != "0.01" else "0.02" for a in args]
+    r = subprocess.run([sys.executable, "-m", "phasemap", *changed, "--out", str(out), "--resume"], env=_env(),
+                       capture_output=True, text=True, timeout=900)
+    assert r.returncode == 2 and "model.t" in r.stderr, r.stderr
+    for p in finished:
+        assert p.stat().st_mtime_ns == stamps[p]
+    r = subprocess.run([sys.executable, "-m", "phasemap", *args, "--out", str(out), "--resume"], env=_env(),
+                       capture_output=True, text=True, timeout=900)
+    assert r.returncode == 0, r.stderr
+    assert f"resuming, {len(finished)} finished cluster(s)" in r.stderr
+    assert (out / "scaling.json").read_text() == (tmp_path / "ref" / "scaling.json").read_text()
+    assert (out / "scaling.csv").read_text() == (tmp_path / "ref" / "scaling.csv").read_text()
+    assert not ck.exists()

@@ -65,6 +65,14 @@ def register(subparsers) -> None:
     o = p.add_argument_group("output")
     o.add_argument("--out", help="output folder (scaling.json, scaling.csv, scaling.png, scaling.pdf)")
     o.add_argument("--json", action="store_true", help="print the result as JSON on stdout")
+    g = o.add_mutually_exclusive_group()
+    g.add_argument("--resume", action="store_true",
+                   help="continue an interrupted run from OUT/.checkpoint/scaling (finished clusters are kept)")
+    g.add_argument("--restart", action="store_true", help="discard an existing checkpoint and start over")
+    from .run import add_executor_options
+
+    add_executor_options(o)
+    o.add_argument("--quiet", action="store_true", help="no progress bar")
     p.set_defaults(func=run)
 
 
@@ -211,6 +219,28 @@ def run(args) -> int:
         return _run(args, model, sc, q, clusters)
 
 
+def _checkpoint(args, model, clusters, q, kw):
+    """Per-cluster checkpoint in OUT/.checkpoint/scaling (None without --out)."""
+    if not args.out:
+        return None
+    from .. import __version__
+    from ..store import ChunkStore
+
+    folder = os.path.join(args.out, ".checkpoint", "scaling")
+    if getattr(args, "restart", False):
+        ChunkStore.discard(folder)
+    elif not getattr(args, "resume", False) and os.path.isfile(os.path.join(folder, ChunkStore.MANIFEST)):
+        raise ConfigError(f"checkpoint: {folder!r} holds an unfinished run; pass --resume to continue it "
+                          "or --restart to discard it")
+    params = {"model": model.to_dict(), "clusters": [str(c) for c in clusters], "quantity": q, "options": kw,
+              "version": __version__}
+    ck = ChunkStore(folder, params, resume=True)
+    if ck.chunks():
+        print(f"cluster scaling: resuming, {len(ck.chunks())} finished cluster(s) taken from the checkpoint",
+              file=sys.stderr)
+    return ck
+
+
 def _run(args, model, sc, q, clusters) -> int:
     from ..cmf.scaling import cluster_scaling, plot_scaling
 
@@ -224,8 +254,16 @@ def _run(args, model, sc, q, clusters) -> int:
     else:
         kw["filling"] = sc.get("filling", 1)
     ref = sc.get("reference")
-    res = cluster_scaling(model, clusters, q, fit_min_lambda=sc.get("fit_min_lambda"),
-                          reference=tuple(ref) if ref else None, **kw)
+    ck = _checkpoint(args, model, clusters, q, kw)
+    from ..executor import get_executor
+
+    ex = get_executor(args.executor or "serial", args.scheduler, "--executor")
+    try:
+        res = cluster_scaling(model, clusters, q, fit_min_lambda=sc.get("fit_min_lambda"),
+                              reference=tuple(ref) if ref else None, executor=ex, checkpoint=ck,
+                              progress=not (args.quiet or args.json), **kw)
+    finally:
+        ex.close()
     from ..store import atomic_write_text, dumps_json, provenance, save_csv
 
     prov = provenance(model, "cmf", sc["options"], quantity=q, clusters=list(res.clusters))
@@ -245,6 +283,10 @@ def _run(args, model, sc, q, clusters) -> int:
                                  res.label: [float(x) for x in res.values] + [float(res.extrapolated)],
                                  "in_fit": [str(int(m)) for m in res.fit_mask] + [""]}, prov)
         plot_scaling(res, base)
+        if ck is not None:
+            ck.remove()
+            with contextlib.suppress(OSError):
+                os.rmdir(os.path.join(args.out, ".checkpoint"))
         if not args.json:
             print(f"wrote {base}.json, .csv, .png, .pdf")
     return 0

@@ -210,7 +210,7 @@ def transition_point(model, cluster, axis: str, lo: float, hi: float, order: str
 
 
 def cluster_scaling(model, clusters, quantity: str = "transition", fit_min_lambda: float | None = None,
-                    reference=None, **kw) -> ScalingResult:
+                    reference=None, executor=None, checkpoint=None, progress: bool = False, **kw) -> ScalingResult:
     """Compute ``quantity`` for every cluster and extrapolate linearly in λ to λ = 1.
 
     Parameters
@@ -222,47 +222,64 @@ def cluster_scaling(model, clusters, quantity: str = "transition", fit_min_lambd
         Only clusters with λ >= this enter the fit (all are reported).
     reference : (float, str), optional
         Outside reference value drawn on the figure.
+    executor, checkpoint, progress
+        One chunk per cluster through :func:`phasemap.executor.run_chunks` (serial by default;
+        a :class:`phasemap.store.ChunkStore` checkpoint resumes after a kill).
     **kw
         ``lobe-tip``: ``filling``; ``transition``: ``axis, lo, hi, order, threshold, xtol``;
         ``order``: ``order``; plus :class:`phasemap.cmf.CMFOptions` fields.
     """
+    import json
+
+    from ..executor import run_chunks
+
     if quantity not in QUANTITIES:
         raise ConfigError(f"cluster scaling: unknown quantity {quantity!r}; allowed: {', '.join(QUANTITIES)}")
+    if quantity == "transition":
+        for k in ("axis", "lo", "hi"):
+            if k not in kw:
+                raise ConfigError(f"cluster scaling: quantity 'transition' needs {k!r}")
     cls = [get_cluster(c, model.lattice) for c in clusters]
     lam = np.array([c.lam for c in cls])
-    vals, details = [], []
-    for c in cls:
-        if quantity == "lobe-tip":
-            from .stability import mott_lobe_tip
-
-            r = mott_lobe_tip(model, c, filling=int(kw.get("filling", 1)),
-                              **{k: kw[k] for k in ("memory_mb", "max_dim") if k in kw})
-            vals.append(r["t_over_U"])
-            details.append(r)
-            label = "(t/U)_c"
-        elif quantity == "transition":
-            opts = {k: v for k, v in kw.items() if k not in ("axis", "lo", "hi", "order", "threshold", "xtol", "relative")}
-            try:
-                axis, lo, hi = kw["axis"], kw["lo"], kw["hi"]
-            except KeyError as e:
-                raise ConfigError(f"cluster scaling: quantity 'transition' needs {e.args[0]!r}") from None
-            r = transition_point(model, c, axis, lo, hi, kw.get("order", "contrast"), kw.get("threshold", 1e-3),
-                                 kw.get("xtol", 1e-4), kw.get("relative", True), **opts)
-            vals.append(r["x"])
-            details.append({"cluster": c.name, "bracket": r["bracket"]})
-            label = f"{axis}_c" + (f"/{model.scale_name}" if kw.get("relative", True) else "")
-        else:
-            order = kw.get("order", "contrast")
-            opts = {k: v for k, v in kw.items() if k != "order"}
-            v, info = order_value(model, c, order, **opts)
-            vals.append(v)
-            details.append({"cluster": c.name, **info})
-            label = order
-    vals = np.array(vals, float)
+    tasks = {i: (model, c, quantity, kw) for i, c in enumerate(cls)}
+    parts = run_chunks(scaling_chunk, tasks, executor, store=checkpoint, progress=progress,
+                       desc="cluster scaling", unit="cluster")
+    vals = np.array([float(parts[i]["value"]) for i in range(len(cls))], float)
+    details = [json.loads(str(parts[i]["detail"])) for i in range(len(cls))]
+    label = str(parts[0]["label"]) if cls else quantity
     mask = np.ones(len(cls), bool) if fit_min_lambda is None else lam >= fit_min_lambda - 1e-12
     mask &= np.isfinite(vals)
     fit = fit_linear(lam[mask], vals[mask])
     return ScalingResult(quantity, label, [c.name for c in cls], lam, vals, fit, mask, details, reference)
+
+
+def scaling_chunk(task) -> dict:
+    """One cluster of :func:`cluster_scaling`: ``(model, cluster, quantity, kw)`` -> arrays
+    ``value``, ``detail`` (JSON text) and ``label`` (a checkpoint chunk)."""
+    import json
+
+    from ..store import jsonable
+
+    model, c, quantity, kw = task
+    if quantity == "lobe-tip":
+        from .stability import mott_lobe_tip
+
+        r = mott_lobe_tip(model, c, filling=int(kw.get("filling", 1)),
+                          **{k: kw[k] for k in ("memory_mb", "max_dim") if k in kw})
+        v, detail, label = r["t_over_U"], r, "(t/U)_c"
+    elif quantity == "transition":
+        opts = {k: v for k, v in kw.items() if k not in ("axis", "lo", "hi", "order", "threshold", "xtol", "relative")}
+        axis, lo, hi = kw["axis"], kw["lo"], kw["hi"]
+        r = transition_point(model, c, axis, lo, hi, kw.get("order", "contrast"), kw.get("threshold", 1e-3),
+                             kw.get("xtol", 1e-4), kw.get("relative", True), **opts)
+        v, detail = r["x"], {"cluster": c.name, "bracket": r["bracket"]}
+        label = f"{axis}_c" + (f"/{model.scale_name}" if kw.get("relative", True) else "")
+    else:
+        order = kw.get("order", "contrast")
+        opts = {k: x for k, x in kw.items() if k != "order"}
+        v, info = order_value(model, c, order, **opts)
+        detail, label = {"cluster": c.name, **info}, order
+    return {"value": np.array(float(v)), "detail": np.array(json.dumps(jsonable(detail))), "label": np.array(label)}
 
 
 def plot_scaling(result: ScalingResult, path_base: str, width: float = 3.4) -> list[str]:
