@@ -196,7 +196,7 @@ def get_executor(spec: "str | Executor | None" = None, scheduler: str | None = N
 
 def run_chunks(fn: Callable, tasks: dict, executor: "Executor | str | None" = None, store=None,
                progress: bool = False, desc: str = "chunks", weights: dict | None = None,
-               unit: str = "chunk") -> dict:
+               unit: str = "chunk", bar=None) -> dict:
     """Run ``fn(task)`` for every ``key, task`` of ``tasks``; returns ``{key: result}``.
 
     Parameters
@@ -212,6 +212,9 @@ def run_chunks(fn: Callable, tasks: dict, executor: "Executor | str | None" = No
         One tqdm bar for the job (in this process), with the time left.
     weights : dict, optional
         Work per chunk for the bar (e.g. points per chunk); default 1 each.
+    bar : tqdm-like, optional
+        The job's own bar (a job of several stages keeps one bar): advanced by the weights of
+        loaded and computed chunks, never closed here (``progress`` is then ignored).
     """
     out = {}
     todo = {}
@@ -222,8 +225,10 @@ def run_chunks(fn: Callable, tasks: dict, executor: "Executor | str | None" = No
         else:
             out[key] = part
     weights = weights or {}
-    bar = None
-    if progress:
+    own_bar = bar is None
+    if bar is not None:
+        bar.update(sum(weights.get(k, 1) for k in out))
+    elif progress:
         from tqdm.auto import tqdm
 
         bar = tqdm(total=sum(weights.get(k, 1) for k in tasks), desc=desc, unit=unit, leave=False,
@@ -259,7 +264,7 @@ def run_chunks(fn: Callable, tasks: dict, executor: "Executor | str | None" = No
                 if bar is not None:
                     bar.update(weights.get(key, 1))
     finally:
-        if bar is not None:
+        if bar is not None and own_bar:
             bar.close()
         if own and ex is not None:
             ex.close()

@@ -25,8 +25,7 @@ from pathlib import Path
 import numpy as np
 
 from .config import RunConfig, ScanSpec, dumps_toml
-from .model import ConfigError
-from .store import ChunkStore, atomic_write_text, check_output_folder, output_lock, save_csv, save_netcdf
+from .store import atomic_write_text, check_output_folder, job_checkpoint, output_lock, save_csv, save_netcdf
 
 __all__ = ["run", "checkpoint_params", "curve_tables"]
 
@@ -62,12 +61,7 @@ def _compute(cfg: RunConfig, scan: ScanSpec, out: Path, resume: bool, restart: b
 
     opts = cfg.options(scan)
     folder = out / CHECKPOINT_DIR / scan.name
-    if restart:
-        ChunkStore.discard(folder)
-    elif not resume and (folder / ChunkStore.MANIFEST).is_file():
-        raise ConfigError(f"checkpoint: {str(folder)!r} holds an unfinished run; pass --resume to continue it "
-                          "or --restart to discard it")
-    ck = ChunkStore(folder, checkpoint_params(cfg, scan), resume=True)
+    ck = job_checkpoint(folder, checkpoint_params(cfg, scan), resume, restart)
     done = ck.chunks()
     if done and log is not None:
         log(f"{scan.name}: resuming, {len(done)} finished chunk(s) taken from the checkpoint")

@@ -45,7 +45,7 @@ import xarray as xr
 from .model import ConfigError
 
 __all__ = ["provenance", "read_input_text", "check_output_folder", "output_lock", "LOCK_NAME", "mark_incomplete", "mark_complete", "COMPLETE_NAME", "dumps_json", "atomic_path", "atomic_write_text", "save_netcdf", "load_netcdf", "save_csv", "load_csv",
-           "curve_to_dataset", "ChunkStore", "params_hash", "jsonable"]
+           "curve_to_dataset", "ChunkStore", "job_checkpoint", "params_hash", "jsonable"]
 
 
 # -- provenance --------------------------------------------------------------------------------
@@ -680,6 +680,27 @@ class ChunkStore:
         self.clear()
         with contextlib.suppress(OSError):
             self.folder.rmdir()
+
+
+def job_checkpoint(folder, params: dict, resume: bool = False, restart: bool = False) -> ChunkStore:
+    """The checkpoint of a long job in ``folder`` (the one rule of every resumable command).
+
+    ``restart`` discards whatever is there; an unfinished run found without ``resume`` is
+    refused (never silently reused or overwritten); with ``resume`` a checkpoint of different
+    parameters is refused naming the changed fields (:class:`ChunkStore`).
+
+    Raises
+    ------
+    ConfigError
+        Unfinished run without ``--resume``, or parameters changed since the checkpoint.
+    """
+    folder = Path(folder)
+    if restart:
+        ChunkStore.discard(folder)
+    elif not resume and (folder / ChunkStore.MANIFEST).is_file():
+        raise ConfigError(f"checkpoint: {str(folder)!r} holds an unfinished run; pass --resume to continue it "
+                          "or --restart to discard it")
+    return ChunkStore(folder, params, resume=True)
 
 
 def _clean(v):

@@ -79,3 +79,41 @@ def test_dask_on_loopback_identical_to_serial():
         a = filling_curve(m, np.linspace(-1, 7, 41), refine=False, executor=ex)
         b = filling_curve(m, np.linspace(-1, 7, 41), refine=False)
         xr.testing.assert_identical(a.dataset, b.dataset)
+
+
+def test_strain_sweep_chunks_identical_to_whole_path():
+    # a sweep runs one chunk per (method, strain) and joins them: the joined record must equal one
+    # strain_step over the whole path (the pre-chunking sweep)
+    from phasemap.classify import Thresholds
+    from phasemap.methods import MethodSpec
+    from phasemap.strain import read_table
+    from phasemap.strain.sweep import strain_sweep
+
+    table = read_table("demo")
+    S = np.array([0.0, 0.08, 0.16])
+    serial = strain_sweep(table, "mf", strains=S, n_mu=41, executor="serial")
+    sp = MethodSpec.parse("mf")
+    whole = sp.impl.strain_step(sp, table.models(S), "1/3", mu=serial.mu, keep_grid=True, width_floor=1e-3,
+                                thresholds=Thresholds(), ed_thresholds=None)
+    got = serial.records["mf"]
+    for k in ("mu_lo", "mu_hi", "width", "exists", "converged"):
+        np.testing.assert_array_equal(getattr(got, k), getattr(whole, k), err_msg=k)
+    for k in whole.grid:
+        np.testing.assert_array_equal(got.grid[k], whole.grid[k], err_msg=k)
+    for k in ("jump_lo", "jump_hi", "label_center", "n_below", "n_above"):
+        np.testing.assert_array_equal(getattr(got.detail, k), getattr(whole.detail, k), err_msg=k)
+    assert got.flags == whole.flags and got.detail.flags == whole.detail.flags
+
+
+@pytest.mark.slow
+def test_strain_sweep_processes_identical_to_serial():
+    from phasemap.strain import read_table
+    from phasemap.strain.sweep import strain_sweep
+
+    table = read_table("demo")
+    S = np.array([0.0, 0.08, 0.16])
+    serial = strain_sweep(table, "mf", strains=S, n_mu=41, executor="serial")
+    with ProcessExecutor(2) as ex:
+        par = strain_sweep(table, "mf", strains=S, n_mu=41, executor=ex)
+    xr.testing.assert_identical(serial.to_dataset(), par.to_dataset())
+    assert serial.critical["mf"].to_dict() == par.critical["mf"].to_dict()

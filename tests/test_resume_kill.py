@@ -1,6 +1,7 @@
-"""Kill-and-resume with a real SIGKILL of a running ``phasemap run`` (maps and filling curves):
-the rerun with ``--resume`` recomputes none of the chunks finished before the kill and writes a
-result identical to an uninterrupted run; a changed configuration is refused, naming the field.
+"""Kill-and-resume with a real SIGKILL of a running job (``phasemap run`` maps and filling curves,
+``strain-sweep``, ``cluster-scaling``, ``qmc-scaling``): the rerun with ``--resume`` recomputes
+none of the chunks finished before the kill and writes a result identical to an uninterrupted
+run; a changed configuration is refused, naming the field; a second writer is refused by the lock.
 
 Source: common practice, no source (software behaviour; the uninterrupted run is the reference).
 """
@@ -126,45 +127,111 @@ def test_curve_killed_and_resumed(tmp_path):
     _kill_and_resume(tmp_path, CURVE, "curve", min_chunks=1)
 
 
-@pytest.mark.slow
-def test_cluster_scaling_killed_and_resumed(tmp_path):
-    args = ["cluster-scaling", "--lattice", "square", "--U", "1", "--n-max", "3", "--t", "0.01",
-            "--quantity", "lobe-tip", "--clusters", "sq1,sq2-sd,sq2x1", "--quiet"]
-    ref = subprocess.run([sys.executable, "-m", "phasemap", *args, "--out", str(tmp_path / "ref")], env=_env(),
-                         capture_output=True, text=True, timeout=900)
-    assert ref.returncode == 0, ref.stderr
-    out = tmp_path / "out"
-    ck = out / CHECKPOINT_DIR / "scaling"
-    proc = subprocess.Popen([sys.executable, "-m", "phasemap", *args, "--out", str(out)], env=_env(),
+def _phasemap(*args, timeout=900):
+    return subprocess.run([sys.executable, "-m", "phasemap", *map(str, args)], env=_env(), capture_output=True,
+                          text=True, timeout=timeout)
+
+
+def _cli_kill(args, ck, min_chunks=1, while_paused=None):
+    """Start ``phasemap ARGS``, wait for ``min_chunks`` checkpoint chunks in ``ck``, SIGSTOP it and
+    call ``while_paused()`` (the job is alive and holds its folder), then SIGKILL it. Returns the
+    modification stamps of the chunks finished before the kill."""
+    proc = subprocess.Popen([sys.executable, "-m", "phasemap", *map(str, args)], env=_env(),
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     try:
         t0 = time.monotonic()
-        while not list(ck.glob("chunk_*.npz")):
+        while len(list(ck.glob("chunk_*.npz"))) < min_chunks:
             assert proc.poll() is None, f"finished before it could be killed: {proc.stderr.read()}"
             assert time.monotonic() - t0 < 600
             time.sleep(0.02)
+        proc.send_signal(signal.SIGSTOP)
+        if while_paused is not None:
+            while_paused()
         proc.send_signal(signal.SIGKILL)
         proc.wait(60)
     finally:
         if proc.poll() is None:
             proc.kill()
             proc.wait(60)
-    finished = sorted(ck.glob("chunk_*.npz"))
-    stamps = {p: p.stat().st_mtime_ns for p in finished}
-    assert finished and not (out / "scaling.json").exists()
-    r = subprocess.run([sys.executable, "-m", "phasemap", *args, "--out", str(out)], env=_env(),
-                       capture_output=True, text=True, timeout=900)
+    return {p: p.stat().st_mtime_ns for p in ck.glob("chunk_*.npz")}
+
+
+def _resume_in_process(args, stamps, monkeypatch, capsys):
+    """Run ``phasemap ARGS --resume`` in this process, recording every chunk it saves: none of the
+    chunks finished before the kill may be saved again (that would be a recomputation), and those
+    files stay untouched until the finished result removes the checkpoint."""
+    from phasemap.cli import main
+    from phasemap.store import ChunkStore
+
+    finished = {int(p.stem.split("_")[1]) for p in stamps}
+    saved = []
+    save = ChunkStore.save
+
+    def spy(self, i, part):
+        for p, t in stamps.items():
+            assert p.stat().st_mtime_ns == t
+        saved.append(int(i))
+        save(self, i, part)
+
+    monkeypatch.setattr(ChunkStore, "save", spy)
+    code = main([*map(str, args), "--resume"])
+    err = capsys.readouterr().err
+    assert code == 0, err
+    assert saved and not finished & set(saved), (finished, saved)
+    return err
+
+
+def _second_writer_refused(args):
+    def check():
+        r = _phasemap(*args)
+        assert r.returncode == 2 and "in use" in r.stderr, r.stderr
+    return check
+
+
+@pytest.mark.slow
+def test_strain_sweep_killed_and_resumed(tmp_path, monkeypatch, capsys):
+    demo = (ROOT / "phasemap" / "data" / "strain_demo.csv").read_text()
+    table = tmp_path / "table.csv"
+    table.write_text(demo)
+    args = ["strain-sweep", table, "--methods", "mf", "--n-strain", "9", "--n-mu", "61", "--no-figures", "--quiet",
+            "--executor", "serial"]
+    ref = _phasemap(*args, "--out", tmp_path / "ref")
+    assert ref.returncode == 0, ref.stderr
+    out = tmp_path / "out"
+    ck = out / CHECKPOINT_DIR / "sweep"
+    stamps = _cli_kill([*args, "--out", out], ck, 2, _second_writer_refused([*args, "--out", out, "--resume"]))
+    assert stamps and not (out / "sweep.nc").exists()
+    r = _phasemap(*args, "--out", out)
     assert r.returncode == 2 and "--resume" in r.stderr, r.stderr  # an unfinished run is not silently reused
-    changed = [a if a != "0.01" else "0.02" for a in args]
-    r = subprocess.run([sys.executable, "-m", "phasemap", *changed, "--out", str(out), "--resume"], env=_env(),
-                       capture_output=True, text=True, timeout=900)
+    changed = tmp_path / "changed" / "table.csv"
+    changed.parent.mkdir()
+    changed.write_text(demo.replace("0.04,0.8272,0.7084,0.7084,5.6472", "0.04,0.8272,0.7084,0.7084,5.6400"))
+    r = _phasemap(*[changed if a == table else a for a in args], "--out", out, "--resume")
+    assert r.returncode == 2 and "table.rows.strain=0.04.V_d1" in r.stderr, r.stderr
+    err = _resume_in_process([*args, "--out", out], stamps, monkeypatch, capsys)
+    assert f"resuming, {len(stamps)} finished chunk(s)" in err
+    assert not ck.exists()
+    xr.testing.assert_identical(load_netcdf(out / "sweep.nc"), load_netcdf(tmp_path / "ref" / "sweep.nc"))
+    for f in ("plateau.csv", "critical.csv"):
+        assert (out / f).read_text() == (tmp_path / "ref" / f).read_text()
+
+
+@pytest.mark.slow
+def test_cluster_scaling_killed_and_resumed(tmp_path, monkeypatch, capsys):
+    args = ["cluster-scaling", "--lattice", "square", "--U", "1", "--n-max", "3", "--t", "0.01",
+            "--quantity", "lobe-tip", "--clusters", "sq1,sq2-sd,sq2x1", "--quiet", "--executor", "serial"]
+    ref = _phasemap(*args, "--out", tmp_path / "ref")
+    assert ref.returncode == 0, ref.stderr
+    out = tmp_path / "out"
+    ck = out / CHECKPOINT_DIR / "scaling"
+    stamps = _cli_kill([*args, "--out", out], ck, 1, _second_writer_refused([*args, "--out", out, "--resume"]))
+    assert stamps and not (out / "scaling.json").exists()
+    r = _phasemap(*args, "--out", out)
+    assert r.returncode == 2 and "--resume" in r.stderr, r.stderr  # an unfinished run is not silently reused
+    r = _phasemap(*[a if a != "0.01" else "0.02" for a in args], "--out", out, "--resume")
     assert r.returncode == 2 and "model.t" in r.stderr, r.stderr
-    for p in finished:
-        assert p.stat().st_mtime_ns == stamps[p]
-    r = subprocess.run([sys.executable, "-m", "phasemap", *args, "--out", str(out), "--resume"], env=_env(),
-                       capture_output=True, text=True, timeout=900)
-    assert r.returncode == 0, r.stderr
-    assert f"resuming, {len(finished)} finished cluster(s)" in r.stderr
+    err = _resume_in_process([*args, "--out", out], stamps, monkeypatch, capsys)
+    assert f"resuming, {len(stamps)} finished cluster(s)" in err
     assert (out / "scaling.json").read_text() == (tmp_path / "ref" / "scaling.json").read_text()
     assert (out / "scaling.csv").read_text() == (tmp_path / "ref" / "scaling.csv").read_text()
     assert not ck.exists()

@@ -14,11 +14,7 @@ def register(sub) -> None:
     p = sub.add_parser("run", help=HELP, description="Run a phasemap TOML config.", epilog=EPILOG)
     p.add_argument("config", help="path to CONFIG.toml")
     p.add_argument("--out", default=None, metavar="DIR", help="output folder (default: [output] folder of the config)")
-    g = p.add_mutually_exclusive_group()
-    g.add_argument("--resume", action="store_true", help="continue an interrupted map from its checkpoint")
-    g.add_argument("--restart", action="store_true", help="discard an existing checkpoint and start over")
-    add_executor_options(p)
-    p.add_argument("--quiet", action="store_true", help="no progress bars")
+    add_job_options(p, "map or curve")
     p.set_defaults(func=run)
 
 
@@ -30,6 +26,34 @@ def add_executor_options(p) -> None:
                         "results are identical")
     p.add_argument("--scheduler", default=None, metavar="ADDRESS",
                    help="Dask scheduler address (tcp://host:8786); needs pip install \"phasemap[dask]\"")
+
+
+def add_job_options(p, what: str = "run") -> None:
+    """--resume / --restart, --executor / --scheduler and --quiet of a resumable long job."""
+    g = p.add_mutually_exclusive_group()
+    g.add_argument("--resume", action="store_true",
+                   help=f"continue an interrupted {what} from OUT/.checkpoint/ (finished chunks are kept)")
+    g.add_argument("--restart", action="store_true", help="discard an existing checkpoint and start over")
+    add_executor_options(p)
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
+
+
+def job_executor(args, default: str = "auto"):
+    """The executor asked for by ``--executor`` / ``--scheduler`` (validated now, before any work):
+    the string ``"auto"`` (:func:`phasemap.executor.run_chunks` decides after the first chunk) or
+    an :class:`~phasemap.executor.Executor`; close it with ``close_executor``."""
+    from ..executor import get_executor
+
+    spec = getattr(args, "executor", None) or default
+    sched = getattr(args, "scheduler", None)
+    if spec == "auto" and not sched:
+        return "auto"
+    return get_executor(spec, sched, "--executor")
+
+
+def close_executor(ex) -> None:
+    if not isinstance(ex, str):
+        ex.close()
 
 
 def execute(cfg, args) -> int:

@@ -65,14 +65,9 @@ def register(subparsers) -> None:
     o = p.add_argument_group("output")
     o.add_argument("--out", help="output folder (scaling.json, scaling.csv, scaling.png, scaling.pdf)")
     o.add_argument("--json", action="store_true", help="print the result as JSON on stdout")
-    g = o.add_mutually_exclusive_group()
-    g.add_argument("--resume", action="store_true",
-                   help="continue an interrupted run from OUT/.checkpoint/scaling (finished clusters are kept)")
-    g.add_argument("--restart", action="store_true", help="discard an existing checkpoint and start over")
-    from .run import add_executor_options
+    from .run import add_job_options
 
-    add_executor_options(o)
-    o.add_argument("--quiet", action="store_true", help="no progress bar")
+    add_job_options(o, "cluster scaling")
     p.set_defaults(func=run)
 
 
@@ -224,17 +219,11 @@ def _checkpoint(args, model, clusters, q, kw):
     if not args.out:
         return None
     from .. import __version__
-    from ..store import ChunkStore
+    from ..store import job_checkpoint
 
-    folder = os.path.join(args.out, ".checkpoint", "scaling")
-    if getattr(args, "restart", False):
-        ChunkStore.discard(folder)
-    elif not getattr(args, "resume", False) and os.path.isfile(os.path.join(folder, ChunkStore.MANIFEST)):
-        raise ConfigError(f"checkpoint: {folder!r} holds an unfinished run; pass --resume to continue it "
-                          "or --restart to discard it")
     params = {"model": model.to_dict(), "clusters": [str(c) for c in clusters], "quantity": q, "options": kw,
               "version": __version__}
-    ck = ChunkStore(folder, params, resume=True)
+    ck = job_checkpoint(os.path.join(args.out, ".checkpoint", "scaling"), params, args.resume, args.restart)
     if ck.chunks():
         print(f"cluster scaling: resuming, {len(ck.chunks())} finished cluster(s) taken from the checkpoint",
               file=sys.stderr)
@@ -255,15 +244,15 @@ def _run(args, model, sc, q, clusters) -> int:
         kw["filling"] = sc.get("filling", 1)
     ref = sc.get("reference")
     ck = _checkpoint(args, model, clusters, q, kw)
-    from ..executor import get_executor
+    from .run import close_executor, job_executor
 
-    ex = get_executor(args.executor or "serial", args.scheduler, "--executor")
+    ex = job_executor(args)
     try:
         res = cluster_scaling(model, clusters, q, fit_min_lambda=sc.get("fit_min_lambda"),
                               reference=tuple(ref) if ref else None, executor=ex, checkpoint=ck,
                               progress=not (args.quiet or args.json), **kw)
     finally:
-        ex.close()
+        close_executor(ex)
     from ..store import atomic_write_text, dumps_json, provenance, save_csv
 
     prov = provenance(model, "cmf", sc["options"], quantity=q, clusters=list(res.clusters))

@@ -7,6 +7,8 @@ line naming the row/column or option and the allowed values, exit code 2, nothin
 from __future__ import annotations
 
 import argparse
+import contextlib
+import os
 import sys
 
 from ._common import bounded_int, finite_float
@@ -27,6 +29,9 @@ SWEEP_EPILOG = """examples:
   phasemap strain-sweep demo --out strain-out --methods mf,cmf:tri12,qmc
   phasemap strain-sweep demo --out strain-out --methods qmc:6+9+12 --qmc sweeps=4000 --qmc every=1"""
 
+
+#: checkpoint folder inside --out (as for maps and curves)
+CHECKPOINT_DIR = ".checkpoint"
 
 #: Bounds of the sweep's grid (each strain x mu point is solved for every seed).
 MAX_STRAINS, MAX_MU = 1001, 10001
@@ -127,6 +132,9 @@ def register(sub) -> None:
     s.add_argument("--no-figures", action="store_true", help="write data only")
     s.add_argument("--json", action="store_true", help="print the summary as JSON")
     s.add_argument("--qmc", action="append", default=[], metavar="KEY=VALUE", help=QMC_HELP)
+    from .run import add_job_options
+
+    add_job_options(s, "sweep")
     s.set_defaults(func=run_sweep)
 
 
@@ -187,6 +195,19 @@ def run_check(args) -> int:
     return 0
 
 
+def _sweep_checkpoint(args, table, specs, settings):
+    """The sweep's checkpoint, OUT/.checkpoint/sweep (``--resume`` / ``--restart``)."""
+    from ..store import job_checkpoint
+    from ..strain.sweep import sweep_checkpoint_params
+
+    params = sweep_checkpoint_params(table, specs, args.fraction, **settings)
+    ck = job_checkpoint(os.path.join(args.out, CHECKPOINT_DIR, "sweep"), params, args.resume, args.restart)
+    if ck.chunks():
+        print(f"strain sweep: resuming, {len(ck.chunks())} finished chunk(s) taken from the checkpoint",
+              file=sys.stderr)
+    return ck
+
+
 def run_sweep(args) -> int:
     import time
     import warnings
@@ -213,16 +234,28 @@ def run_sweep(args) -> int:
     if args.scale == "U" and table.hardcore and lam is not None:
         raise ConfigError("--scale U: the table is hard-core (U = inf); scale V or t instead")
     t0 = time.perf_counter()
-    with output_lock(args.out):
-        with warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always")
-            table.sparsity_warnings()
-            sw = strain_sweep(table, specs, n_strain=args.n_strain, n_mu=args.n_mu, fraction=args.fraction,
-                              lambdas=lam, param=args.scale, melting=args.melting, T_measure=args.T_measure)
-        for w in caught:
-            print(f"phasemap: warning: {w.message}", file=sys.stderr)
-        sw.seconds["total"] = time.perf_counter() - t0
-        paths = sw.save(args.out, figures=not args.no_figures)
+    from .run import close_executor, job_executor
+
+    ex = job_executor(args)
+    try:
+        with output_lock(args.out):
+            settings = dict(n_strain=args.n_strain, n_mu=args.n_mu, lambdas=lam, param=args.scale,
+                            melting=args.melting, T_measure=args.T_measure)
+            ck = _sweep_checkpoint(args, table, specs, settings)
+            with warnings.catch_warnings(record=True) as caught:
+                warnings.simplefilter("always")
+                table.sparsity_warnings()
+                sw = strain_sweep(table, specs, fraction=args.fraction, executor=ex, checkpoint=ck,
+                                  progress=not (args.quiet or args.json), **settings)
+            for w in caught:
+                print(f"phasemap: warning: {w.message}", file=sys.stderr)
+            sw.seconds["total"] = time.perf_counter() - t0
+            paths = sw.save(args.out, figures=not args.no_figures)
+            ck.remove()
+            with contextlib.suppress(OSError):
+                os.rmdir(os.path.join(args.out, CHECKPOINT_DIR))
+    finally:
+        close_executor(ex)
     if args.json:
         print(dumps_json({**sw.summary(), "files": [str(p) for p in paths]}))
     else:

@@ -85,6 +85,11 @@ class Method:
         Argument used when a spec gives none (``"tri12"``).
     caution : str
         The honest caution shown beside every result of the method.
+    strain_local : bool
+        :meth:`strain_step` on one strain gives that strain's row of the path's record (the
+        strain sweep then runs, checkpoints and resumes one chunk per strain); False (Monte
+        Carlo: one random stream and strain subsampling along the whole path): one chunk per
+        method.
     """
 
     name: str = ""
@@ -93,6 +98,7 @@ class Method:
     capabilities: Capabilities = Capabilities()
     default_arg: str | None = None
     caution: str = ""
+    strain_local: bool = True
 
     # -- options ---------------------------------------------------------------------------
     def option_names(self) -> list[str]:

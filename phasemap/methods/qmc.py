@@ -45,6 +45,7 @@ class QuantumMonteCarlo(Method):
     name = "qmc"
     title = "quantum Monte Carlo (stochastic series expansion)"
     Options = QMCOptions
+    strain_local = False  # one seed counter and "every" subsampling along the whole strain path
     capabilities = Capabilities(canonical=False, grand_canonical=False, temperature=True, error_bars=True,
                                 cluster=True)
     default_arg = None  # solve_point falls back to tri12 (square: sq16) when neither cluster nor size is given

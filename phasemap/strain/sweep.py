@@ -15,7 +15,10 @@ labelled data (NetCDF + CSV with metadata + JSON, one method dimension ``solver`
 
 from __future__ import annotations
 
+import dataclasses
 import json
+import pickle
+import time
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -31,7 +34,7 @@ from .melting import check_T_measure
 from .sensitivity import critical_vs_lambda
 from .table import StrainTable
 
-__all__ = ["StrainSweep", "strain_sweep"]
+__all__ = ["StrainSweep", "strain_sweep", "sweep_checkpoint_params", "sweep_step_chunk", "sweep_finish_chunk"]
 
 
 @dataclass
@@ -390,7 +393,8 @@ def _var(key: str) -> str:
 def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int | None = None, mu=None,
                  n_mu: int = 121, fraction="1/3", lambdas=None, param: str = "V", xtol: float | None = None,
                  width_floor: float = 1e-3, thresholds=Thresholds(), ed_thresholds=None, melting: bool = False,
-                 T_measure: float | None = None, T_max: float | None = None, **locate_kw) -> StrainSweep:
+                 T_measure: float | None = None, T_max: float | None = None, executor=None, checkpoint=None,
+                 progress: bool = False, **locate_kw) -> StrainSweep:
     """Sweep the strain path for every method (one path: each method's strain hooks).
 
     Parameters
@@ -415,12 +419,22 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
         The measurement temperature (table unit), drawn across the T_melt(strain) figure.
     T_max : float, optional
         Top of the melting search (default max V).
+    executor : Executor or str, optional
+        Where the chunks run (:func:`phasemap.executor.run_chunks`; default serial). Chunks: one
+        per method and strain (``Method.strain_local``; one per method otherwise), then one per
+        method for its critical strain, lambda scan and melting. The result is the same for
+        every executor.
+    checkpoint : phasemap.store.ChunkStore, optional
+        Finished chunks are saved as they arrive and taken from it on a rerun
+        (:func:`sweep_checkpoint_params` is what its ``params`` must hold).
+    progress : bool
+        One progress bar for the whole sweep.
 
     Returns
     -------
     StrainSweep
     """
-    import time
+    from ..executor import get_executor, run_chunks
 
     specs = parse_specs(methods)
     lab, f = parse_fraction(fraction)
@@ -438,30 +452,52 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
         mu = np.linspace(w[:, 0].min(), w[:, 1].max(), int(n_mu))
     mu = np.asarray(mu, float)
     kw = dict(width_floor=width_floor, thresholds=thresholds, ed_thresholds=ed_thresholds, **locate_kw)
-    recs, crit, lams, secs, notes, melts = {}, {}, {}, {}, [], {}
-    for sp in specs:
-        t0 = time.perf_counter()
-        rec = sp.impl.strain_step(sp, models, lab, mu=mu, keep_grid=True, **kw)
-        recs[sp.name] = rec
-        crit[sp.name] = sp.impl.strain_critical(sp, table, S, rec, lab, xtol=xtol, **kw)
-        secs[sp.name] = time.perf_counter() - t0
-        if lambdas is not None:
-            if rec.sharp:
-                t1 = time.perf_counter()
-                lams[sp.name] = critical_vs_lambda(table, sp, lambdas, param, lab, n_strain=n_strain,
-                                                   width_floor=width_floor, thresholds=thresholds, **locate_kw)
-                secs[f"{sp.name} lambda"] = time.perf_counter() - t1
-            else:
-                notes.append(f"lambda scan not done for {sp.name}: a finite lattice has no sharp critical strain")
-        if melting:
-            if _has_melting(sp):
-                t1 = time.perf_counter()
-                melts[sp.name] = sp.impl.strain_melting(sp, models, rec, lab, T_max=T_max, thresholds=thresholds)
-                secs[f"{sp.name} melting"] = time.perf_counter() - t1
-            else:
-                why = ("has no finite-temperature mode" if not sp.capabilities.temperature else
-                       getattr(sp.impl, "MELTING_UNAVAILABLE", None) or "does not provide Method.strain_melting yet")
-                notes.append(f"no melting temperature for {sp.name}: {sp.impl.title} {why}")
+    # stage 1: the plateau record of every method at every strain
+    steps, where = {}, {}  # key -> task; key -> (method index, strain slice)
+    for a, sp in enumerate(specs):
+        rows = [slice(i, i + 1) for i in range(len(S))] if sp.impl.strain_local else [slice(0, len(S))]
+        for sl in rows:
+            where[len(steps)] = (a, sl)
+            steps[len(steps)] = (sp, models[sl], lab, mu, kw)
+    weights = {k: sl.stop - sl.start for k, (a, sl) in where.items()}
+    finish_keys = {a: len(steps) + a for a in range(len(specs))}
+    weights.update({k: len(S) for k in finish_keys.values()})
+    bar = None
+    if progress:
+        from tqdm.auto import tqdm
+
+        bar = tqdm(total=sum(weights.values()), desc="strain sweep", unit="strain", leave=False)
+    own = executor is not None and not isinstance(executor, str)
+    ex = executor if (own or executor in (None, "auto")) else get_executor(executor)
+    try:
+        parts = run_chunks(sweep_step_chunk, steps, ex, store=checkpoint, weights=weights, bar=bar)
+        recs, secs = {}, {}
+        for a, sp in enumerate(specs):
+            got = [_unpack(parts[k]) for k in steps if where[k][0] == a]
+            recs[sp.name] = _concat([g["record"] for g in got])
+            secs[sp.name] = float(sum(g["seconds"] for g in got))
+        # stage 2: per method, its critical strain (from the whole path), lambda scan, melting
+        finish = {finish_keys[a]: {"spec": sp, "table": table, "strains": S, "record": recs[sp.name],
+                                   "fraction": lab, "xtol": xtol, "kw": kw, "lambdas": lambdas, "param": param,
+                                   "n_strain": n_strain, "melting": melting, "T_max": T_max}
+                  for a, sp in enumerate(specs)}
+        done = run_chunks(sweep_finish_chunk, finish, ex, store=checkpoint, weights=weights, bar=bar)
+    finally:
+        if bar is not None:
+            bar.close()
+        if ex is not executor and not isinstance(ex, str) and ex is not None:
+            ex.close()
+    crit, lams, notes, melts = {}, {}, [], {}
+    for a, sp in enumerate(specs):
+        d = _unpack(done[finish_keys[a]])
+        crit[sp.name] = d["critical"]
+        if "lambda" in d:
+            lams[sp.name] = d["lambda"]
+        if "melting" in d:
+            melts[sp.name] = d["melting"]
+        notes += d["notes"]
+        secs[sp.name] += d["seconds"].pop(sp.name)
+        secs.update(d["seconds"])
     sharp = [crit[sp.name] for sp in specs if recs[sp.name].sharp]
     band = critical_band(sharp)
     if not sharp:
@@ -473,3 +509,96 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
         band["excluded"] = excluded
     return StrainSweep(table=table, methods=specs, fraction=lab, strains=S, mu=mu, records=recs, critical=crit,
                        band=band, lambdas=lams, seconds=secs, notes=notes, melting=melts, T_measure=T_measure)
+
+
+def sweep_checkpoint_params(table: StrainTable, methods, fraction, **settings) -> dict:
+    """Everything that fixes a sweep's chunks, for :class:`phasemap.store.ChunkStore`: the table
+    row by row (a changed cell is named ``table.rows.strain=0.04.V_a``), the method specs with
+    their options, the filling and every other setting (plain values), the package version."""
+    from .. import __version__
+
+    cols = table.columns()
+    rows = {f"strain={s:g}": {k: float(v[i]) for k, v in cols.items()} for i, s in enumerate(table.strain)}
+    specs = parse_specs(methods)
+    return {"table": {"unit": table.unit, "lattice": table.lattice, "hardcore": bool(table.hardcore), "rows": rows},
+            "methods": {sp.name: {"method": sp.method, "options": dict(sp.options)} for sp in specs},
+            "fraction": str(fraction), "settings": settings, "version": __version__}
+
+
+def _pack(obj) -> dict:
+    """A checkpoint chunk holding any picklable result (a :class:`~phasemap.store.ChunkStore`
+    stores arrays: the pickle goes in as bytes; only this package's own checkpoints are read)."""
+    return {"pickle": np.frombuffer(pickle.dumps(obj, protocol=pickle.HIGHEST_PROTOCOL), np.uint8)}
+
+
+def _unpack(part: dict):
+    return pickle.loads(np.asarray(part["pickle"], np.uint8).tobytes())
+
+
+def _concat(parts: list):
+    """Join the records of consecutive strain chunks into the record of the whole path: arrays
+    and lists (one entry per model, leading axis) are concatenated, dicts and dataclasses
+    joined field by field, everything else (method, cluster, thresholds) taken from the first."""
+    a = parts[0]
+    if len(parts) == 1:
+        return a
+    if dataclasses.is_dataclass(a) and not isinstance(a, type):
+        return dataclasses.replace(a, **{f.name: _concat([getattr(p, f.name) for p in parts])
+                                         for f in dataclasses.fields(a) if f.init})
+    if isinstance(a, dict):
+        keys = list(a)
+        for p in parts[1:]:
+            if list(p) != keys:
+                raise ValueError(f"strain sweep: chunks disagree on keys {keys} vs {list(p)}")
+        return {k: _concat([p[k] for p in parts]) for k in keys}
+    if isinstance(a, np.ndarray) and a.ndim >= 1:
+        return np.concatenate(parts, axis=0)
+    if isinstance(a, list):
+        return [x for p in parts for x in p]
+    return a
+
+
+def sweep_step_chunk(task) -> dict:
+    """Chunk of stage 1: ``(spec, models, fraction, mu, kw)`` -> the packed ``StepRecord``
+    and its seconds (the evaluation cache is cleared first: the result depends on the task
+    alone, in any process, resumed or not)."""
+    from .engine import clear_cache
+
+    spec, models, lab, mu, kw = task
+    clear_cache()
+    t0 = time.perf_counter()
+    rec = spec.impl.strain_step(spec, models, lab, mu=mu, keep_grid=True, **kw)
+    return _pack({"record": rec, "seconds": time.perf_counter() - t0})
+
+
+def sweep_finish_chunk(task: dict) -> dict:
+    """Chunk of stage 2 (one method): critical strain from the whole path's record, the lambda
+    scan (sharp methods) and the melting temperatures (finite-temperature methods)."""
+    from .engine import clear_cache
+
+    clear_cache()
+    sp, table, S, rec, lab, kw = (task[k] for k in ("spec", "table", "strains", "record", "fraction", "kw"))
+    out = {"seconds": {}, "notes": []}
+    t0 = time.perf_counter()
+    out["critical"] = sp.impl.strain_critical(sp, table, S, rec, lab, xtol=task["xtol"], **kw)
+    out["seconds"][sp.name] = time.perf_counter() - t0
+    if task["lambdas"] is not None:
+        if rec.sharp:
+            t1 = time.perf_counter()
+            locate = {k: v for k, v in kw.items() if k not in ("width_floor", "thresholds", "ed_thresholds")}
+            out["lambda"] = critical_vs_lambda(table, sp, task["lambdas"], task["param"], lab, n_strain=task["n_strain"],
+                                               width_floor=kw["width_floor"], thresholds=kw["thresholds"], **locate)
+            out["seconds"][f"{sp.name} lambda"] = time.perf_counter() - t1
+        else:
+            out["notes"].append(f"lambda scan not done for {sp.name}: a finite lattice has no sharp critical strain")
+    if task["melting"]:
+        if _has_melting(sp):
+            t1 = time.perf_counter()
+            out["melting"] = sp.impl.strain_melting(sp, table.models(S), rec, lab, T_max=task["T_max"],
+                                                    thresholds=kw["thresholds"])
+            out["seconds"][f"{sp.name} melting"] = time.perf_counter() - t1
+        else:
+            why = ("has no finite-temperature mode" if not sp.capabilities.temperature else
+                   getattr(sp.impl, "MELTING_UNAVAILABLE", None) or "does not provide Method.strain_melting yet")
+            out["notes"].append(f"no melting temperature for {sp.name}: {sp.impl.title} {why}")
+    return _pack(out)
