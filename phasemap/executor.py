@@ -79,8 +79,9 @@ class ProcessExecutor(Executor):
 
     name = "processes"
 
-    def __init__(self, workers: int | None = None):
+    def __init__(self, workers: int | None = None, context: str = "spawn"):
         self.workers = int(workers or os.cpu_count() or 1)
+        self.context = context  # "fork" only for code that starts no threads before forking
         self._pool = None
 
     def _get(self):
@@ -88,7 +89,7 @@ class ProcessExecutor(Executor):
             import multiprocessing as mp
             from concurrent.futures import ProcessPoolExecutor
 
-            self._pool = ProcessPoolExecutor(self.workers, mp_context=mp.get_context("spawn"))
+            self._pool = ProcessPoolExecutor(self.workers, mp_context=mp.get_context(self.context))
         return self._pool
 
     def imap_unordered(self, fn, tasks):

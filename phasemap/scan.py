@@ -54,8 +54,10 @@ def evaluate(batch: ParamBatch, method="mf", options=None, thresholds=Thresholds
     impl, ropts = resolve(method, options)
     check_temperature(impl, batch.T)
     if not impl.capabilities.grand_canonical and hasattr(impl, "evaluate_points"):
-        # point-by-point statistical methods (qmc): every point in parallel, errors as error_* arrays
-        return impl.evaluate_points(batch, ropts, thresholds)
+        # point-by-point statistical methods (qmc): one chunk per point (same executor, checkpoint
+        # and progress bar), errors as error_* arrays
+        return impl.evaluate_points(batch, ropts, thresholds, executor=executor, checkpoint=checkpoint,
+                                    progress=progress)
     cap = impl.max_points(batch.base, ropts)  # memory guard (raises if not even one point fits)
     chunk = min(chunk, cap) if cap else chunk
     P = batch.size

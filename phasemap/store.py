@@ -45,7 +45,7 @@ import xarray as xr
 from .model import ConfigError
 
 __all__ = ["provenance", "read_input_text", "check_output_folder", "output_lock", "LOCK_NAME", "mark_incomplete", "mark_complete", "COMPLETE_NAME", "dumps_json", "atomic_path", "atomic_write_text", "save_netcdf", "load_netcdf", "save_csv", "load_csv",
-           "curve_to_dataset", "ChunkStore", "job_checkpoint", "params_hash", "jsonable"]
+           "curve_to_dataset", "ChunkStore", "job_checkpoint", "pack_object", "unpack_object", "params_hash", "jsonable"]
 
 
 # -- provenance --------------------------------------------------------------------------------
@@ -610,6 +610,7 @@ class ChunkStore:
     """
 
     MANIFEST = "manifest.json"
+    INNER = "inner"
 
     def __init__(self, folder, params: dict, resume: bool = True):
         self.folder = Path(folder)
@@ -662,16 +663,24 @@ class ChunkStore:
             with open(tmp, "wb") as fh:
                 np.savez(fh, **arrays)
 
+    def inner(self) -> Path:
+        """Folder for checkpoints *inside* unfinished chunks (e.g. Monte Carlo chains resumed
+        mid-run); removed with the store."""
+        return self.folder / self.INNER
+
     def clear(self) -> None:
-        """Remove this store's chunk files and manifest (nothing else in the folder)."""
+        """Remove this store's chunk files, inner checkpoints and manifest (nothing else in the folder)."""
         self.discard(self.folder)
 
     @classmethod
     def discard(cls, folder) -> None:
-        """Remove any checkpoint (chunk files and manifest) in ``folder``, whatever its scan."""
+        """Remove any checkpoint (chunk files, inner checkpoints, manifest) in ``folder``, whatever its scan."""
+        import shutil
+
         folder = Path(folder)
         for p in folder.glob("chunk_*.npz"):
             p.unlink()
+        shutil.rmtree(folder / cls.INNER, ignore_errors=True)
         with contextlib.suppress(FileNotFoundError):
             (folder / cls.MANIFEST).unlink()
 
@@ -680,6 +689,21 @@ class ChunkStore:
         self.clear()
         with contextlib.suppress(OSError):
             self.folder.rmdir()
+
+
+def pack_object(obj) -> dict:
+    """A checkpoint chunk holding any picklable result (:class:`ChunkStore` stores arrays: the
+    pickle goes in as bytes). Only for this package's own checkpoint folders."""
+    import pickle
+
+    return {"pickle": np.frombuffer(pickle.dumps(obj, protocol=pickle.HIGHEST_PROTOCOL), np.uint8)}
+
+
+def unpack_object(part: dict):
+    """The object of a :func:`pack_object` chunk."""
+    import pickle
+
+    return pickle.loads(np.asarray(part["pickle"], np.uint8).tobytes())
 
 
 def job_checkpoint(folder, params: dict, resume: bool = False, restart: bool = False) -> ChunkStore:

@@ -80,7 +80,7 @@ def _kill_and_resume(tmp_path, text, name, min_chunks=2):
     proc = subprocess.Popen(cmd, env=_env(), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     try:
         t0 = time.monotonic()
-        while len(list(ck.glob("chunk_*.npz"))) < min_chunks:
+        while len(list(ck.glob("chunk_*.npz"))) < min_chunks or (ready is not None and not ready()):
             assert proc.poll() is None, f"finished before it could be killed: {proc.stderr.read()}"
             assert time.monotonic() - t0 < 600
             time.sleep(0.02)
@@ -132,15 +132,15 @@ def _phasemap(*args, timeout=900):
                           text=True, timeout=timeout)
 
 
-def _cli_kill(args, ck, min_chunks=1, while_paused=None):
-    """Start ``phasemap ARGS``, wait for ``min_chunks`` checkpoint chunks in ``ck``, SIGSTOP it and
+def _cli_kill(args, ck, min_chunks=1, while_paused=None, ready=None):
+    """Start ``phasemap ARGS``, wait for ``min_chunks`` checkpoint chunks in ``ck`` (and ``ready()``), SIGSTOP it and
     call ``while_paused()`` (the job is alive and holds its folder), then SIGKILL it. Returns the
     modification stamps of the chunks finished before the kill."""
     proc = subprocess.Popen([sys.executable, "-m", "phasemap", *map(str, args)], env=_env(),
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     try:
         t0 = time.monotonic()
-        while len(list(ck.glob("chunk_*.npz"))) < min_chunks:
+        while len(list(ck.glob("chunk_*.npz"))) < min_chunks or (ready is not None and not ready()):
             assert proc.poll() is None, f"finished before it could be killed: {proc.stderr.read()}"
             assert time.monotonic() - t0 < 600
             time.sleep(0.02)
@@ -234,4 +234,30 @@ def test_cluster_scaling_killed_and_resumed(tmp_path, monkeypatch, capsys):
     assert f"resuming, {len(stamps)} finished cluster(s)" in err
     assert (out / "scaling.json").read_text() == (tmp_path / "ref" / "scaling.json").read_text()
     assert (out / "scaling.csv").read_text() == (tmp_path / "ref" / "scaling.csv").read_text()
+    assert not ck.exists()
+
+
+@pytest.mark.slow
+def test_qmc_scaling_killed_and_resumed(tmp_path, monkeypatch, capsys):
+    # two Monte Carlo runs (3x3, 6x6), killed after the first run finished and after the second
+    # run's chain wrote its own mid-run checkpoint (every 5 s of work): the resume keeps the first
+    # run, continues the chain from its checkpoint, and gives the uninterrupted numbers
+    args = ["qmc-scaling", "--t", "0.1", "--V", "1", "--mu", "3", "--sizes", "3,6", "--T", "0.3", "--sweeps",
+            "100000", "--quiet", "--executor", "serial"]
+    ref = _phasemap(*args, "--out", tmp_path / "ref")
+    assert ref.returncode == 0, ref.stderr
+    out = tmp_path / "out"
+    ck = out / CHECKPOINT_DIR / "qmc"
+    chain = ck / "inner" / "1"
+    stamps = _cli_kill([*args, "--out", out], ck, 1, _second_writer_refused([*args, "--out", out, "--resume"]),
+                       ready=lambda: any(chain.glob("*.npz")))
+    assert list(stamps) == [ck / "chunk_00000.npz"] and not (out / "scaling.json").exists()
+    r = _phasemap(*args, "--out", out)
+    assert r.returncode == 2 and "--resume" in r.stderr, r.stderr
+    r = _phasemap(*[a if a != "0.3" else "0.31" for a in args], "--out", out, "--resume")
+    assert r.returncode == 2 and "runs.T" in r.stderr, r.stderr
+    err = _resume_in_process([*args, "--out", out], stamps, monkeypatch, capsys)
+    assert "resuming, 1 finished run(s)" in err
+    for f in ("scaling.json", "scaling.csv"):
+        assert (out / f).read_text() == (tmp_path / "ref" / f).read_text()
     assert not ck.exists()

@@ -51,6 +51,9 @@ def register(subparsers) -> None:
     o = p.add_argument_group("output")
     o.add_argument("--out", default=None, help="folder: scaling.json/.csv (or crossing.*), figure .png/.pdf")
     o.add_argument("--json", action="store_true", help="print the result as JSON")
+    from .run import add_job_options
+
+    add_job_options(o, "run (finished runs kept, unfinished chains resume mid-chain)")
     p.set_defaults(func=run)
 
 
@@ -75,6 +78,26 @@ def parse_scan(text: str):
     if len(vals) < 2:
         raise ConfigError(f"--scan: need at least two values, got {text!r}")
     return axis.strip(), vals
+
+
+#: checkpoint folder inside --out (as for every resumable job)
+CHECKPOINT_DIR = ".checkpoint"
+
+
+def _checkpoint(args, model, sizes, kw):
+    """OUT/.checkpoint/qmc: one chunk per finished run, chains of unfinished runs inside."""
+    import os
+
+    from .. import __version__
+    from ..store import job_checkpoint
+
+    params = {"model": model.to_dict(), "sizes": list(sizes), "scan": args.scan, "version": __version__,
+              "runs": {k: kw[k] for k in ("T", "beta_L", "sweeps", "thermalization", "bins", "chains", "seed")}}
+    ck = job_checkpoint(os.path.join(args.out, CHECKPOINT_DIR, "qmc"), params, args.resume, args.restart)
+    if ck.chunks():
+        print(f"qmc-scaling: resuming, {len(ck.chunks())} finished run(s) taken from the checkpoint",
+              file=sys.stderr)
+    return ck
 
 
 def run(args) -> int:
@@ -104,12 +127,19 @@ def run(args) -> int:
     print(f"qmc-scaling: sizes {', '.join(f'{L}x{L}' for L in sizes)}, "
           + (f"T = {args.T:g}" if args.T is not None else f"beta = {args.beta_L:g} L")
           + f", {args.sweeps} sweeps x {args.chains} chain(s), seed {args.seed}", file=sys.stderr)
-    with output_lock(args.out) if args.out else contextlib.nullcontext():
+    from .run import close_executor, job_executor
+
+    ex = job_executor(args, None) if (args.executor or args.scheduler) else None  # default: --workers processes
+    with output_lock(args.out) if args.out else contextlib.nullcontext(), contextlib.ExitStack() as stack:
+        if ex is not None:
+            stack.callback(close_executor, ex)
+        ck = _checkpoint(args, model, sizes, kw) if args.out else None
+        run_kw = dict(kw, executor=ex, checkpoint=ck, progress=not (args.quiet or args.json))
         if scan is None:
-            res = finite_size_scaling(model, power=args.power, **kw)
+            res = finite_size_scaling(model, power=args.power, **run_kw)
             stem, table = "scaling", res.table()
         else:
-            res = scan_crossing(model, scan[0], scan[1], **kw)
+            res = scan_crossing(model, scan[0], scan[1], **run_kw)
             stem = "crossing"
             table = {"L": [], scan[0]: []}
             for a, L in enumerate(res.sizes):
@@ -133,6 +163,9 @@ def run(args) -> int:
             fig = plot_scaling(res) if scan is None else plot_crossing(res)
             paths += save_figure(fig, out / stem)
             mark_complete(out, paths, **meta)
+            ck.remove()
+            with contextlib.suppress(OSError):
+                (out / CHECKPOINT_DIR).rmdir()
     if args.json:
         print(dumps_json(data))
     else:

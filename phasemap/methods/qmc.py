@@ -124,15 +124,17 @@ class QuantumMonteCarlo(Method):
 
 
     # -- maps and filling curves (phasemap.scan.evaluate) ---------------------------------------
-    def evaluate_points(self, batch, options=None, thresholds=None):
-        """Every point of ``batch`` as one QMC run (all in parallel processes): flat arrays like
+    def evaluate_points(self, batch, options=None, thresholds=None, executor=None, checkpoint=None,
+                        progress=False):
+        """Every point of ``batch`` as one QMC run (one chunk each: processes, Dask, checkpoint and
+        resume mid-chain, :func:`phasemap.qmc.scaling.run_many`): flat arrays like
         ``phasemap.scan.evaluate`` plus ``error_<key>``, ``tau_<key>`` and ``decorrelated``.
         A point that is not decorrelated is phase ``unconverged`` (never classified)."""
         from ..qmc.maps import evaluate_points
 
         d = self.options(options)
         th = d.pop("thresholds", None)  # the mean-field Thresholds of a scan do not apply (QMCThresholds)
-        return evaluate_points(self, batch, d, th)
+        return evaluate_points(self, batch, d, th, executor=executor, checkpoint=checkpoint, progress=progress)
 
     def site_coordinates(self, batch, options=None):
         from ..qmc.geometry import resolve_cell

@@ -21,8 +21,12 @@ def _var(k: str) -> str:
     return {"S(K)/N": "SK_per_site"}.get(k, k)
 
 
-def evaluate_points(method, batch, options: dict, thresholds=None) -> dict:
-    """Flat per-point arrays (keys of ``phasemap.scan.evaluate``) from one QMC run per point."""
+def evaluate_points(method, batch, options: dict, thresholds=None, executor=None, checkpoint=None,
+                    progress: bool = False) -> dict:
+    """Flat per-point arrays (keys of ``phasemap.scan.evaluate``) from one QMC run per point
+    (one chunk per point: ``executor``, ``checkpoint``, ``progress`` as in
+    :func:`phasemap.qmc.scaling.run_many`; seeds from the point index, so any executor and a
+    resumed run give the same numbers)."""
     from .scaling import job_seed, run_many
 
     d = dict(options)
@@ -40,7 +44,7 @@ def evaluate_points(method, batch, options: dict, thresholds=None) -> dict:
             kw["T"] = float(Tb[p])
         kw["seed"] = job_seed(seed, p)
         jobs.append((batch.model(p), kw))
-    results = run_many(jobs, workers)
+    results = run_many(jobs, workers, executor, checkpoint, progress, desc="Monte Carlo points")
     sols = [r.to_solution(thresholds) for r in results]
     P = batch.size
     out = {

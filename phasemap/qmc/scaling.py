@@ -47,21 +47,46 @@ def _one(job):
     return run_qmc(model, **kw)
 
 
-def run_many(jobs: list, workers: int | None = None) -> list:
-    """Run ``[(model, run_qmc kwargs), ...]`` in parallel processes; results in input order.
+def run_chunk(job) -> dict:
+    """One Monte Carlo run as a chunk of :func:`phasemap.executor.run_chunks` (packed QMCResult)."""
+    from ..store import pack_object
 
-    Each job runs its chains one after the other inside its process (``workers=1``), the jobs
-    are spread over ``workers`` processes (default: the number of cores).
+    return pack_object(_one(job))
+
+
+def run_many(jobs: list, workers: int | None = None, executor=None, checkpoint=None, progress: bool = False,
+             desc: str = "Monte Carlo runs") -> list:
+    """Run ``[(model, run_qmc kwargs), ...]``; results in input order.
+
+    Each job (its chains one after the other, ``workers=1`` inside) is one chunk of
+    :func:`phasemap.executor.run_chunks`: by default spread over ``workers`` local processes
+    (default: the number of cores), or on ``executor`` (processes, Dask). The numbers depend on
+    the jobs' seeds only, never on where they ran.
+
+    ``checkpoint`` (:class:`phasemap.store.ChunkStore`, key = job index): finished runs are saved
+    as they arrive and taken from it on a rerun; unfinished runs keep their chains' own
+    checkpoints in ``checkpoint.inner()/<job>`` and resume mid-chain. One progress bar
+    (``progress``) advances by the sites of each finished run.
     """
-    jobs = [(m, {**kw, "workers": 1}) for m, kw in jobs]
-    workers = min(len(jobs), os.cpu_count() or 1) if workers is None else max(1, int(workers))
-    if workers <= 1 or len(jobs) <= 1:
-        return [_one(j) for j in jobs]
-    import multiprocessing as mp
-    from concurrent.futures import ProcessPoolExecutor
+    from ..executor import ProcessExecutor, SerialExecutor, run_chunks
+    from ..store import unpack_object
 
-    with ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("fork")) as ex:
-        return list(ex.map(_one, jobs))
+    inner = checkpoint.inner() if checkpoint is not None and hasattr(checkpoint, "inner") else None
+    jobs = [(m, {**kw, "workers": 1, **({"checkpoint": str(inner / str(k))} if inner is not None else {})})
+            for k, (m, kw) in enumerate(jobs)]
+    own = executor is None
+    if own:
+        workers = min(len(jobs), os.cpu_count() or 1) if workers is None else max(1, int(workers))
+        executor = (SerialExecutor() if workers <= 1 or len(jobs) <= 1 else
+                    ProcessExecutor(workers, context="fork"))
+    weights = {k: int(np.prod(kw["size"])) if kw.get("size") is not None else 1 for k, (m, kw) in enumerate(jobs)}
+    try:
+        parts = run_chunks(run_chunk, dict(enumerate(jobs)), executor, store=checkpoint, progress=progress,
+                           desc=desc, weights=weights, unit="site")
+    finally:
+        if own:
+            executor.close()
+    return [unpack_object(parts[k]) for k in range(len(jobs))]
 
 
 def parse_sizes(sizes) -> list[int]:
@@ -333,18 +358,20 @@ def _extrapolations(sizes, results, power):
 
 def finite_size_scaling(model: Model, sizes=(6, 9, 12), T=None, beta_L=None, sweeps: int = 5000,
                         thermalization=None, bins: int = 32, chains: int = 1, seed: int = 0, workers=None,
-                        power: float = 1.0, nsigma: float = 2.0, run_options=None) -> ScalingResult:
+                        power: float = 1.0, nsigma: float = 2.0, run_options=None, executor=None, checkpoint=None,
+                        progress: bool = False) -> ScalingResult:
     """Run ``model`` on L x L tori for every L in ``sizes`` (in parallel) and extrapolate.
 
     S(K)/N and the stiffness are fitted as ``a + b/L**power`` (default power 1) with weights
     from their one-sigma errors; the phase follows :func:`classify_extrapolated`.
-    ``T`` fixes the temperature, else ``beta = beta_L * L``.
+    ``T`` fixes the temperature, else ``beta = beta_L * L``. ``executor``, ``checkpoint``,
+    ``progress``: see :func:`run_many` (one run per size).
     """
     sizes = parse_sizes(sizes)
     jobs = [(model, {"size": (L, L), "T": temperature_for(model, L, T, beta_L),
                      **_run_kw(sweeps, thermalization, bins, chains, seed, k, run_options)})
             for k, L in enumerate(sizes)]
-    results = run_many(jobs, workers)
+    results = run_many(jobs, workers, executor, checkpoint, progress)
     ext, flags = _extrapolations(sizes, results, power)
     n = float(np.mean([r.filling.value for r in results]))
     cls = classify_extrapolated(ext.get("S(K)/N"), ext.get("stiffness"), n, max(model.t), nsigma)
@@ -388,11 +415,13 @@ class CrossingScan:
 
 def scan_crossing(model: Model, axis: str, values, sizes=(6, 9, 12), T=None, beta_L=None, sweeps: int = 5000,
                   thermalization=None, bins: int = 32, chains: int = 1, seed: int = 0, workers=None,
-                  nboot: int = 400, nsigma: float = 2.0, run_options=None) -> CrossingScan:
+                  nboot: int = 400, nsigma: float = 2.0, run_options=None, executor=None, checkpoint=None,
+                  progress: bool = False) -> CrossingScan:
     """Binder-ratio and L-scaled-stiffness crossings of successive sizes along ``axis``.
 
     ``axis``: a model field (``t``, ``mu``, ``V``, ``V2``, ``t_<family>``, ``V_<family>``)
-    set to each of ``values``. All (size, value) runs go to the process pool at once.
+    set to each of ``values``. All (size, value) runs go to the process pool at once
+    (``executor``, ``checkpoint``, ``progress``: see :func:`run_many`).
     Non-decorrelated points are NaN in the curves (flagged) and do not make crossings.
     """
     from ..params import points
@@ -409,7 +438,7 @@ def scan_crossing(model: Model, axis: str, values, sizes=(6, 9, 12), T=None, bet
             jobs.append((m, {"size": (L, L), "T": temperature_for(m, L, T, beta_L),
                              **_run_kw(sweeps, thermalization, bins, chains, seed, k, run_options)}))
             k += 1
-    flat = run_many(jobs, workers)
+    flat = run_many(jobs, workers, executor, checkpoint, progress)
     res = [flat[i * len(values):(i + 1) * len(values)] for i in range(len(sizes))]
     flags = []
     curves = {}

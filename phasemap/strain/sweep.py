@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import dataclasses
 import json
-import pickle
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -435,6 +434,7 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
     StrainSweep
     """
     from ..executor import get_executor, run_chunks
+    from ..store import unpack_object
 
     specs = parse_specs(methods)
     lab, f = parse_fraction(fraction)
@@ -473,7 +473,7 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
         parts = run_chunks(sweep_step_chunk, steps, ex, store=checkpoint, weights=weights, bar=bar)
         recs, secs = {}, {}
         for a, sp in enumerate(specs):
-            got = [_unpack(parts[k]) for k in steps if where[k][0] == a]
+            got = [unpack_object(parts[k]) for k in steps if where[k][0] == a]
             recs[sp.name] = _concat([g["record"] for g in got])
             secs[sp.name] = float(sum(g["seconds"] for g in got))
         # stage 2: per method, its critical strain (from the whole path), lambda scan, melting
@@ -489,7 +489,7 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
             ex.close()
     crit, lams, notes, melts = {}, {}, [], {}
     for a, sp in enumerate(specs):
-        d = _unpack(done[finish_keys[a]])
+        d = unpack_object(done[finish_keys[a]])
         crit[sp.name] = d["critical"]
         if "lambda" in d:
             lams[sp.name] = d["lambda"]
@@ -525,16 +525,6 @@ def sweep_checkpoint_params(table: StrainTable, methods, fraction, **settings) -
             "fraction": str(fraction), "settings": settings, "version": __version__}
 
 
-def _pack(obj) -> dict:
-    """A checkpoint chunk holding any picklable result (a :class:`~phasemap.store.ChunkStore`
-    stores arrays: the pickle goes in as bytes; only this package's own checkpoints are read)."""
-    return {"pickle": np.frombuffer(pickle.dumps(obj, protocol=pickle.HIGHEST_PROTOCOL), np.uint8)}
-
-
-def _unpack(part: dict):
-    return pickle.loads(np.asarray(part["pickle"], np.uint8).tobytes())
-
-
 def _concat(parts: list):
     """Join the records of consecutive strain chunks into the record of the whole path: arrays
     and lists (one entry per model, leading axis) are concatenated, dicts and dataclasses
@@ -564,16 +554,19 @@ def sweep_step_chunk(task) -> dict:
     alone, in any process, resumed or not)."""
     from .engine import clear_cache
 
+    from ..store import pack_object
+
     spec, models, lab, mu, kw = task
     clear_cache()
     t0 = time.perf_counter()
     rec = spec.impl.strain_step(spec, models, lab, mu=mu, keep_grid=True, **kw)
-    return _pack({"record": rec, "seconds": time.perf_counter() - t0})
+    return pack_object({"record": rec, "seconds": time.perf_counter() - t0})
 
 
 def sweep_finish_chunk(task: dict) -> dict:
     """Chunk of stage 2 (one method): critical strain from the whole path's record, the lambda
     scan (sharp methods) and the melting temperatures (finite-temperature methods)."""
+    from ..store import pack_object
     from .engine import clear_cache
 
     clear_cache()
@@ -601,4 +594,4 @@ def sweep_finish_chunk(task: dict) -> dict:
             why = ("has no finite-temperature mode" if not sp.capabilities.temperature else
                    getattr(sp.impl, "MELTING_UNAVAILABLE", None) or "does not provide Method.strain_melting yet")
             out["notes"].append(f"no melting temperature for {sp.name}: {sp.impl.title} {why}")
-    return _pack(out)
+    return pack_object(out)
