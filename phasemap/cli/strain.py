@@ -233,6 +233,10 @@ def run_sweep(args) -> int:
     _check_fraction(args.fraction, table)
     if args.scale == "U" and table.hardcore and lam is not None:
         raise ConfigError("--scale U: the table is hard-core (U = inf); scale V or t instead")
+    from ..strain.sweep import check_sweep
+
+    check_sweep(table, specs, n_strain=args.n_strain, fraction=args.fraction, melting=args.melting,
+                T_measure=args.T_measure)  # before the folder, its lock and checkpoint are made
     t0 = time.perf_counter()
     from .run import close_executor, job_executor
 

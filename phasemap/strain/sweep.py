@@ -33,7 +33,7 @@ from .melting import check_T_measure
 from .sensitivity import critical_vs_lambda
 from .table import StrainTable
 
-__all__ = ["StrainSweep", "strain_sweep", "sweep_checkpoint_params", "sweep_step_chunk", "sweep_finish_chunk"]
+__all__ = ["StrainSweep", "strain_sweep", "check_sweep", "sweep_checkpoint_params", "sweep_step_chunk", "sweep_finish_chunk"]
 
 
 @dataclass
@@ -436,17 +436,9 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
     from ..executor import get_executor, run_chunks
     from ..store import unpack_object
 
-    specs = parse_specs(methods)
-    lab, f = parse_fraction(fraction)
-    S = coarse_strains(table, n_strain) if strains is None else np.asarray(strains, float)
-    table.check_range(S)
-    models = table.models(S)
-    T_measure = check_T_measure(T_measure)
-    melting = melting or T_measure is not None
-    for sp in specs:  # refuse before anything is solved (cluster, filling, bonds, memory guard)
-        sp.impl.check_setup(sp, models, lab)
-        if melting and _has_melting(sp):
-            sp.impl.check_melting(sp, models)
+    specs, lab, S, models, melting, T_measure = check_sweep(table, methods, strains, n_strain, fraction, melting,
+                                                            T_measure)
+    f = parse_fraction(lab)[1]
     if mu is None:
         w = np.array([default_window(m, f) for m in models])
         mu = np.linspace(w[:, 0].min(), w[:, 1].max(), int(n_mu))
@@ -509,6 +501,31 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
         band["excluded"] = excluded
     return StrainSweep(table=table, methods=specs, fraction=lab, strains=S, mu=mu, records=recs, critical=crit,
                        band=band, lambdas=lams, seconds=secs, notes=notes, melting=melts, T_measure=T_measure)
+
+
+def check_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int | None = None, fraction="1/3",
+                melting: bool = False, T_measure: float | None = None):
+    """Refuse what a sweep cannot do before anything is solved or written (strains in the table,
+    each method's cluster, filling, bonds, memory guard, melting). Returns ``(specs, fraction
+    label, strains, models, melting, T_measure)``.
+
+    Raises
+    ------
+    ConfigError
+        Naming the option or method and the allowed values.
+    """
+    specs = parse_specs(methods)
+    lab, _ = parse_fraction(fraction)
+    S = coarse_strains(table, n_strain) if strains is None else np.asarray(strains, float)
+    table.check_range(S)
+    models = table.models(S)
+    T_measure = check_T_measure(T_measure)
+    melting = melting or T_measure is not None
+    for sp in specs:
+        sp.impl.check_setup(sp, models, lab)
+        if melting and _has_melting(sp):
+            sp.impl.check_melting(sp, models)
+    return specs, lab, S, models, melting, T_measure
 
 
 def sweep_checkpoint_params(table: StrainTable, methods, fraction, **settings) -> dict:
