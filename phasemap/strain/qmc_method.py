@@ -326,7 +326,7 @@ def to_record(step: QMCStep, spec, fraction, nsigma: float = 2.0):
     for fl in step.flags:
         if fl.startswith("strain #"):
             p = int(fl.split("#")[1].split(",")[0])
-            flags[p].append(fl.split(": ", 1)[1])
+            flags[p].append(fl.split(", ", 1)[1])  # "L=6: lower edge ..." (the strain is the record's index)
     sizes = "+".join(f"{L}x{L}" for L in step.sizes)
     return StepRecord(
         method=spec.name, fraction=fraction, sharp=True, mu_lo=e["mu_lo"], mu_hi=e["mu_hi"], width=e["width"],
@@ -446,7 +446,8 @@ def qmc_critical(spec, table, strains, record, fraction, nboot: int = 400, nsigm
     bc = crossings(S, list(step.sizes), per["binder"].T, per["binder_error"].T, nboot=nboot,
                    seed=int(step.settings["seed"]))
     bcomb = combine_crossings(bc, nsigma)
-    fl = [f for fs in record.flags for f in fs if not f.startswith("not computed")]
+    fl = [f"strain {s:g}, {f}" for s, fs in zip(np.asarray(strains, float), record.flags) for f in fs
+          if not f.startswith("not computed")]
     undetermined = [float(x) for x in S[~finite]]
     status, bracket, fss, reason, interval = "none", None, None, "", None
     if sc is not None:
