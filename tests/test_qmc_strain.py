@@ -261,3 +261,40 @@ def test_refine_measures_the_skipped_strains_at_the_closing(monkeypatch):
     calls.clear()
     step = qm.qmc_plateaus(models, MethodSpec.parse("qmc", refine=False))
     assert calls == [[0, 2, 4, 6, 8]]
+
+
+def test_retry_repeats_undecorrelated_runs_with_more_sweeps(monkeypatch):
+    """A run whose filling did not decorrelate is repeated once with retry x sweeps and replaced;
+    with retry = 1 its edge stays NaN (never reported). Fake sampler: an exact step n(mu) on each
+    torus with edges at mu = 1 and 2, 'not decorrelated' below 6000 sweeps within 0.5 of an edge."""
+    from types import SimpleNamespace
+
+    import phasemap.qmc.scaling as sc
+    import phasemap.strain.qmc_method as qm
+
+    seen = []
+
+    def fake_run_many(jobs, workers=None):
+        out = []
+        for m, kw in jobs:
+            L = kw["size"][0]
+            N = round(L * L / 3)
+            n = (N + (m.mu > 2.0) - (m.mu < 1.0)) / L ** 2
+            ok = kw["sweeps"] >= 6000 or min(abs(m.mu - 1.0), abs(m.mu - 2.0)) > 0.5
+            seen.append((kw["sweeps"], ok))
+            est = SimpleNamespace(value=n, error=1e-4, decorrelated=ok)
+            out.append(SimpleNamespace(filling=est, decorrelated=ok, flags=[] if ok else ["not decorrelated: filling"],
+                                       estimates={"filling": est}))
+        return out
+
+    monkeypatch.setattr(sc, "run_many", fake_run_many)
+    models = [Model(lattice="triangular", t=0.1, V=1.0, U=math.inf)]
+    step = qm.qmc_plateaus(models, MethodSpec.parse("qmc", sweeps=1500))
+    assert step.retried > 0 and step.retried == sum(1 for sw, ok in seen if sw < 6000 and not ok)
+    assert all(ok for sw, ok in seen if sw == 6000)
+    # exact step edges: the bisection converges to mu = 1 and 2 within the bracket resolution
+    assert np.allclose(step.per_size["mu_lo"][0], 1.0, atol=3 * 1.5 / 2 ** 7)
+    assert np.allclose(step.per_size["mu_hi"][0], 2.0, atol=3 * 1.5 / 2 ** 7)
+    seen.clear()
+    step = qm.qmc_plateaus(models, MethodSpec.parse("qmc", sweeps=1500, retry=1))
+    assert step.retried == 0 and np.all(np.isnan(step.per_size["width"][0]))

@@ -40,7 +40,8 @@ MAX_STRAINS, MAX_MU = 1001, 10001
 
 QMC_HELP = ("quantum Monte Carlo setting for qmc methods, repeatable: sizes=6+9+12, T_over_V, T, sweeps, "
             "order_sweeps, bins, rounds, span, every (1: every strain), refine (0: do not measure the skipped "
-            "strains at the closing), seed, workers (defaults: "
+            "strains at the closing), retry (sweeps factor of the one repeat of a run that did not "
+            "decorrelate; 1: none), seed, workers (defaults: "
             "phasemap.strain.qmc_method.QMC_STRAIN_DEFAULTS)")
 
 

@@ -66,7 +66,7 @@ class QuantumMonteCarlo(Method):
         return {"cluster": arg}
 
     #: options used only by the strain workflow (phasemap.strain.qmc_method)
-    STRAIN_ONLY = ("sizes", "T_over_V", "order_sweeps", "rounds", "span", "every", "refine")
+    STRAIN_ONLY = ("sizes", "T_over_V", "order_sweeps", "rounds", "span", "every", "refine", "retry")
 
     def option_names(self):
         return [f.name for f in fields(QMCOptions)] + list(self.STRAIN_ONLY)

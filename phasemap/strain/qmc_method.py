@@ -43,7 +43,7 @@ __all__ = ["QMC_STRAIN_DEFAULTS", "qmc_setup", "qmc_plateaus", "qmc_critical", "
 #: (500 sweeps left most demo edges NaN: tau_int of the filling ~5-6 sweeps next to the edges on 6x6
 #: and 9x9, measured); 7 rounds bisect mu_c -+ 1.5 V to 3 V / 128 ~ 0.023 V.
 QMC_STRAIN_DEFAULTS = {"sizes": (6, 9), "T_over_V": 0.05, "sweeps": 1500, "order_sweeps": 3000, "bins": 12,
-                       "rounds": 7, "span": 1.5, "every": 2, "refine": True, "seed": 0, "workers": None, "T": None,
+                       "rounds": 7, "span": 1.5, "every": 2, "refine": True, "retry": 4, "seed": 0, "workers": None, "T": None,
                        "thermalization": None}
 _KEYS = set(QMC_STRAIN_DEFAULTS) | {"size", "cluster", "chains"}
 
@@ -75,7 +75,7 @@ def strain_settings(spec) -> dict:
         o["sizes"] = _sizes(o.pop("cluster"))
     s.update({k: v for k, v in o.items() if v is not None and k != "chains"})
     s["sizes"] = _sizes(s["sizes"])
-    for k in ("sweeps", "order_sweeps", "bins", "rounds", "every"):
+    for k in ("sweeps", "order_sweeps", "bins", "rounds", "every", "retry"):
         if not (isinstance(s[k], (int, np.integer)) and s[k] >= 1):
             raise ConfigError(f"qmc {k}: expected an integer >= 1, got {s[k]!r}")
     if s["sweeps"] < 2 * s["bins"] or s["order_sweeps"] < 2 * s["bins"]:
@@ -131,6 +131,7 @@ class QMCStep:
     jump_lo: np.ndarray = None
     jump_hi: np.ndarray = None
     runs: int = 0
+    retried: int = 0
 
     def __post_init__(self):
         P = len(self.T)
@@ -177,7 +178,7 @@ def qmc_plateaus(models, spec, fraction="1/3", progress=None) -> QMCStep:
     computed[-1] = True
     T = np.array([float(s["T"]) if s["T"] is not None else float(s["T_over_V"]) * max(m.V) for m in models])
     per = {k: np.full((P, nL), np.nan) for k in _PER_KEYS}
-    counter, flags = [0], []
+    counter, flags = [0, 0], []  # runs, repeated runs
     _measure(models, np.flatnonzero(computed), s, f, T, per, counter, flags)
     ext, extL = _extrapolations(per, sizes)
     if s["refine"] and every > 1:
@@ -189,7 +190,7 @@ def qmc_plateaus(models, spec, fraction="1/3", progress=None) -> QMCStep:
             computed[new] = True
             ext, extL = _extrapolations(per, sizes)
     flags.sort(key=lambda x: int(x.split("#")[1].split(",")[0]) if x.startswith("strain #") else -1)
-    return QMCStep(tuple(sizes), f, T, computed, per, ext, extL, flags, s, runs=counter[0])
+    return QMCStep(tuple(sizes), f, T, computed, per, ext, extL, flags, s, runs=counter[0], retried=counter[1])
 
 
 def _measure(models, pidx, s, f, T, per, counter, flags):
@@ -204,10 +205,20 @@ def _measure(models, pidx, s, f, T, per, counter, flags):
         return {"size": (L, L), "T": float(T[p]), "sweeps": int(sweeps), "bins": int(s["bins"]),
                 "thermalization": s["thermalization"] or max(int(sweeps) // 2, 100), "seed": job_seed(s["seed"], counter[0])}
 
-    def run(points, sweeps):
-        """points: list of (p, a, mu) -> list of QMCResult (one process pool for all)."""
+    def run(points, sweeps, edge=True):
+        """points: list of (p, a, mu) -> list of QMCResult (one process pool for all). A run that did
+        not decorrelate (edge runs: the filling; order runs: any observable) is repeated once with
+        ``retry`` x the sweeps (fresh seed; all repeats in one pool) and replaced by the repeat."""
         jobs = [(models[p].replace(mu=float(mu)), kw(p, sizes[a], sweeps)) for p, a, mu in points]
-        return run_many(jobs, s["workers"])
+        res = run_many(jobs, s["workers"])
+        bad = [i for i, r in enumerate(res) if not (r.filling.decorrelated if edge else r.decorrelated)]
+        if bad and int(s["retry"]) > 1:
+            again = run_many([(jobs[i][0], kw(points[i][0], sizes[points[i][1]], int(s["retry"]) * sweeps))
+                              for i in bad], s["workers"])
+            for i, r in zip(bad, again):
+                res[i] = r
+            counter[1] += len(bad)
+        return res
 
     # -- one bracket [c - span V, c + span V] around the t = 0 plateau centre for both edges
     idx = [(int(p), a) for p in pidx for a in range(nL)]
@@ -268,7 +279,7 @@ def _measure(models, pidx, s, f, T, per, counter, flags):
         if not np.isfinite(mid):
             mid = _centre(models[p])[0]
         pts.append((p, a, float(mid)))
-    for (p, a, mu), r in zip(pts, run(pts, s["order_sweeps"])):
+    for (p, a, mu), r in zip(pts, run(pts, s["order_sweeps"], edge=False)):
         if not r.decorrelated:
             flags.append(f"strain #{p}, L={sizes[a]}: order run at mu = {mu:.4g} not decorrelated "
                          f"({'; '.join(r.flags)}): not reported")
