@@ -81,6 +81,7 @@ def _with_qmc(specs, items):
                   + f", {st['sweeps']} sweeps per edge run, {st['order_sweeps']} per order run, {st['rounds']} "
                   f"bisection rounds, every {st['every']} strain(s)"
                   + (" (+ the skipped strains at the closing)" if st["refine"] and st["every"] > 1 else "")
+                  + (f", runs that do not decorrelate repeated with {st['retry']}x the sweeps" if st["retry"] > 1 else "")
                   + f", seed {st['seed']} (more: --qmc KEY=VALUE)",
                   file=sys.stderr)
         out.append(sp)
