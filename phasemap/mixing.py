@@ -124,18 +124,19 @@ class StallWatch:
     """Per-row stopping rule of the batched fixed-point loops (mean field and cluster mean field).
 
     A row is done when its residual is below ``tol``; it is stalled (stopped, unconverged) when its
-    best residual has not improved by 0.1 % for more than ``patience`` iterations. ``keep`` drops
-    finished rows together with the loop's other compacted arrays.
+    best residual has not fallen below ``drop`` times itself (default 0.999: a 0.1 % gain) for more
+    than ``patience`` iterations. ``keep`` drops finished rows together with the loop's other
+    compacted arrays.
     """
 
-    def __init__(self, rows: int, tol: float, patience: int):
+    def __init__(self, rows: int, tol: float, patience: int, drop: float = 0.999):
         self.best = np.full(rows, np.inf)
         self.last = np.zeros(rows, int)
-        self.tol, self.patience = tol, patience
+        self.tol, self.patience, self.drop = tol, patience, drop
 
     def update(self, r, it: int, live):
         """``(done, stalled)`` masks after iteration ``it`` with residuals ``r`` of the rows."""
-        gain = r < 0.999 * self.best
+        gain = r < self.drop * self.best
         self.best = np.where(gain, r, self.best)
         self.last = np.where(gain, it, self.last)
         done = live & (r < self.tol)

@@ -98,3 +98,27 @@ def test_sweep_equals_independent_root_finding():
     sw = strain_sweep(tab, "mf", n_strain=3, n_mu=41)
     c2 = critical_strain(tab, "mf", n_strain=7)
     assert sw.critical["mf"].strain_c == pytest.approx(c2.strain_c, abs=2 * c2.xtol)
+
+
+def test_hinted_plateau_search_equals_full_grid():
+    # independent computation: the full-grid search. A hint (edges found at a nearby point)
+    # restricts the coarse grid to the full grid's points around it; with a non-decreasing
+    # filling the brackets, hence the edges, must be the full grid's to the last bit. A hint
+    # far from the plateau (or none) must fall back to the full grid, never return its own
+    # sub-grid answer.
+    from phasemap.strain.engine import clear_cache
+
+    models = [Model(t=t, V=1.0) for t in (0.02, 0.08, 0.14, 0.3)]
+    clear_cache()
+    full = locate_plateaus(models, "1/3", n_mu=81)
+    good = np.stack([full.mu_lo, full.mu_hi], axis=1) + np.array([[-0.05, 0.05]])
+    good[3] = np.nan  # no hint for this model: full grid
+    # around the upper edge only: the sub-grid misses the lower edge (and, far above, everything)
+    upper = np.stack([full.mu_hi, full.mu_hi], axis=1)
+    far = np.tile([[8.5, 8.6]], (len(models), 1))
+    assert np.all(full.width[:3] > 0.5)  # plateaus much wider than 3 grid points: the sub-grids are partial
+    for hint in (good, upper, far):
+        clear_cache()
+        r = locate_plateaus(models, "1/3", n_mu=81, hint=hint, hint_pad=3)
+        for k in ("mu_lo", "mu_hi", "width", "exists", "label_center", "n_below", "n_above", "reached"):
+            np.testing.assert_array_equal(getattr(r, k), getattr(full, k), err_msg=k)

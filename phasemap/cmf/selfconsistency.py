@@ -75,6 +75,11 @@ class CMFOptions:
         Anderson acceleration memory (0: plain damped mixing).
     patience : int, default 80
         Give up (unconverged) when the residual has not improved for this many iterations.
+    stall_drop : float, default 0.999
+        What counts as an improvement for ``patience``: the residual falls below ``stall_drop``
+        times the best so far (0.999: any 0.1 % gain; 0.5: the best residual must halve at
+        least every ``patience`` iterations, which stops rows hopping between cluster
+        particle-number sectors much earlier).
     n_random : int, default 1
         Random seeds on the cluster.
     rng : int, default 0
@@ -124,6 +129,7 @@ class CMFOptions:
     mixing: float = 0.6
     anderson: int = 10
     patience: int = 80
+    stall_drop: float = 0.999
     n_random: int = 1
     rng: int = 0
     patterns: tuple | None = None
@@ -147,6 +153,8 @@ class CMFOptions:
         from ..mf import MFOptions
 
         object.__setattr__(self, "T", MFOptions(T=self.T).T)  # same validation as mf
+        if not (0.0 < float(self.stall_drop) < 1.0):
+            raise ConfigError(f"cmf options: stall_drop must be > 0 and < 1, got {self.stall_drop!r}")
 
 
 @dataclass
@@ -328,7 +336,7 @@ def _solve_row(prob: ClusterProblem, x0, v0, opt: CMFOptions, n_max: int, T: flo
                 x = gx
                 conv = True
                 break
-        if r < 0.999 * best_r:
+        if r < opt.stall_drop * best_r:
             best_r, last_gain = r, it
         elif it - last_gain > opt.patience:
             break

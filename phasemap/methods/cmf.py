@@ -21,6 +21,11 @@ class ClusterMeanField(GrandCanonicalMethod):
     default_arg = "tri12"
     caution = ("cluster mean field still overestimates the solid, less so for larger clusters: compare "
                "clusters (phasemap cluster-scaling) before trusting a critical strain")
+    # every row costs (dense eigensolves per iteration): fewer points per search step, brentq
+    # alone on the critical strain, and the plateau search looks first where mf finds it
+    edge_sections = 7
+    root_sections = 0
+    hint_method = "mf"
 
     def option_names(self):
         return ["cluster"] + [f.name for f in fields(CMFOptions)]

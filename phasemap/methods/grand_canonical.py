@@ -8,6 +8,8 @@ the compressibility), and the strain workflow locates plateaus with batched sear
 
 from __future__ import annotations
 
+import numpy as np
+
 from ..classify import Thresholds
 from ..model import ConfigError, Model, check_keys
 from ..params import ParamBatch
@@ -39,11 +41,25 @@ class GrandCanonicalMethod(Method):
     # -- strain workflow ----------------------------------------------------------------------
     _LOCATE = ("mu", "n_mu", "tol", "width_floor", "filling_tol", "jump_tol", "sections", "thresholds", "keep_grid")
 
+    #: search points per bracket and step of the plateau-edge search (``locate_plateaus``
+    #: ``sections``). A batch of many points costs little more than one for site-decoupled mean
+    #: field; methods whose cost grows with the points take fewer per step.
+    edge_sections = 31
+    #: batched multi-section points before brentq on the critical strain (0: brentq only)
+    root_sections = 15
+    #: a cheaper method whose plateau hints where to look (``locate_plateaus`` ``hint``) when
+    #: no full chemical-potential map is kept; None: no hint
+    hint_method: str | None = None
+
     def strain_step(self, spec, models, fraction, **kw):
         from ..strain.engine import locate_plateaus
 
-        return locate_plateaus(models, fraction, spec, **{k: v for k, v in kw.items() if k in self._LOCATE}
-                               ).to_record(spec.name)
+        kw = {k: v for k, v in kw.items() if k in self._LOCATE}
+        if self.hint_method and kw.get("mu") is None and not kw.get("keep_grid"):
+            h = locate_plateaus(models, fraction, self.hint_method,
+                                **{k: v for k, v in kw.items() if k not in ("sections",)})
+            kw["hint"] = np.stack([h.mu_lo, h.mu_hi], axis=1)
+        return locate_plateaus(models, fraction, spec, **kw).to_record(spec.name)
 
     def strain_critical(self, spec, table, strains, record, fraction, xtol=None, width_floor=1e-3, **kw):
         import numpy as np
@@ -56,7 +72,7 @@ class GrandCanonicalMethod(Method):
         H = np.where(r.reached, r.width, 0.0) - floor
         kw = {k: v for k, v in kw.items() if k in self._LOCATE and k not in ("mu", "keep_grid")}
         return critical_strain(table, spec, fraction, "width", coarse=(np.asarray(strains, float), H, r), xtol=xtol,
-                               width_floor=width_floor, **kw)
+                               width_floor=width_floor, sections=self.root_sections, **kw)
 
     def strain_melting(self, spec, models, record, fraction, T_max=None, n_T=10, tol=1e-3, thresholds=None, **kw):
         from ..strain.melting import mean_field_melting

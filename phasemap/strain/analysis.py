@@ -63,12 +63,18 @@ def _scaled_t(model: Model, factor: float) -> Model:
 
 
 def melt_factor(model: Model, spec: MethodSpec = MethodSpec(), fraction="1/3", f_min: float = 0.05,
-                f_max: float = 10.0, rtol: float = 1e-3, width_floor: float = 1e-3, **locate_kw) -> dict:
+                f_max: float = 10.0, rtol: float = 1e-3, width_floor: float = 1e-3, sections: int = 0,
+                **locate_kw) -> dict:
     """Factor by which all hoppings (t/V) must be multiplied for the plateau to close.
 
-    Root of ``w(f) - width_floor * scale`` with :func:`scipy.optimize.brentq`, after a batched
-    bracket search over ``f`` in ``[1, f_max]`` (plateau present) or ``[f_min, 1]`` (absent)
-    and one batched multi-section narrowing of the bracket.
+    Root of ``w(f) - width_floor * scale`` with :func:`scipy.optimize.brentq`. The bracket is
+    found by stepping geometrically from ``f = 1`` towards ``f_max`` (plateau present) or
+    ``f_min`` (absent), six steps at most, stopping at the first sign change; ``sections`` > 0
+    adds one batched multi-section narrowing before brentq (worth it only when a batch of many
+    points costs little more than one). Every plateau search after the first is hinted with
+    the edges found at the nearest factor already evaluated (:func:`locate_plateaus` ``hint``:
+    the coarse chemical-potential grid is evaluated only around them, with a fall-back to the
+    full grid).
 
     Returns
     -------
@@ -85,23 +91,33 @@ def melt_factor(model: Model, spec: MethodSpec = MethodSpec(), fraction="1/3", f
     kw["width_floor"] = width_floor
     flags: list[str] = []
     count = [0]
+    known: dict = {}  # factor -> (mu_lo, mu_hi) where the plateau / crossing was found
+
+    def hint(f):
+        if not known:
+            return (np.nan, np.nan)
+        return known[min(known, key=lambda g: abs(math.log(g / f)))]
 
     def widths(factors):
         count[0] += len(factors)
-        r = locate_plateaus([_scaled_t(model, f) for f in factors], fraction, spec, **kw)
+        h = np.array([hint(f) for f in factors], float)
+        r = locate_plateaus([_scaled_t(model, f) for f in factors], fraction, spec,
+                            hint=h if np.isfinite(h).all(axis=1).any() else None, **kw)
         for p in range(r.size):
             if not r.ok(p):
                 flags.append(f"t x{factors[p]:.4g}: unconverged: " + "; ".join(r.unconverged[p]))
+            if r.reached[p] and np.isfinite(r.mu_lo[p]) and np.isfinite(r.mu_hi[p]):
+                known[float(factors[p])] = (float(r.mu_lo[p]), float(r.mu_hi[p]))
         return np.where(r.reached, r.width, 0.0) - floor
 
     h1 = widths([1.0])[0]
     up = h1 > 0
     grid = np.geomspace(1.0, f_max, 7)[1:] if up else np.geomspace(f_min, 1.0, 7)[:-1][::-1]
-    hs = widths(list(grid))
     prev_f, prev_h = 1.0, h1
     bracket = None
-    h_at = dict(zip(grid, hs))
-    for f, h in zip(grid, hs):
+    h_at = {}
+    for f in grid:
+        h = h_at[f] = widths([f])[0]
         if (h > 0) != (prev_h > 0):
             bracket = (min(prev_f, f), max(prev_f, f))
             break
@@ -117,7 +133,8 @@ def melt_factor(model: Model, spec: MethodSpec = MethodSpec(), fraction="1/3", f
 
     a, b = bracket
     ha, hb = (prev_h, h_at[b]) if prev_f == a else (h_at[a], prev_h)
-    root, _, _ = narrowed_brentq(h, widths, a, b, ha, hb, xtol=rtol * a, sections=15)
+    root, _, _ = narrowed_brentq(h, widths, a, b, ha, hb, xtol=rtol * a, sections=max(int(sections), 1),
+                                 steps=1 if sections > 0 else 0)
     out.update(status="found" if up else "already-melted", factor=float(root), bracket=[a, b],
                evaluations=count[0])
     if flags:

@@ -181,7 +181,9 @@ def critical_strain(table: StrainTable, spec="mf", fraction="1/3", criterion="wi
         Precomputed coarse samples (from a sweep), to avoid solving them again.
     sections : int, default 15
         Batched multi-section points narrowing each coarse bracket before brentq
-        (:func:`phasemap.strain.roots.narrowed_brentq`).
+        (:func:`phasemap.strain.roots.narrowed_brentq`); 0: brentq alone (the sweep passes the
+        method's ``root_sections``). Every root-finding solve is hinted with the plateau edges
+        at the two coarse strains around it (``locate_plateaus`` ``hint``).
     **locate_kw
         Passed to :func:`~phasemap.strain.engine.locate_plateaus` (tol, n_mu, ...).
 
@@ -210,8 +212,19 @@ def critical_strain(table: StrainTable, spec="mf", fraction="1/3", criterion="wi
         flags += [f"strain {S[p]:.4g}: unconverged: {f}" for f in res.unconverged[p]]
     count = [len(S)]
 
+    def hint(x):
+        # the plateau (or crossing) at the two coarse strains around x bounds where to look
+        i = int(np.clip(np.searchsorted(S, x) - 1, 0, len(S) - 2))
+        lo = [v for v in res.mu_lo[i:i + 2] if np.isfinite(v)]
+        hi = [v for v in res.mu_hi[i:i + 2] if np.isfinite(v)]
+        return (min(lo), max(hi)) if lo and hi else (np.nan, np.nan)
+
     def hv(xs):
+        h = np.array([hint(x) for x in xs], float)
+        if np.isfinite(h).all(axis=1).any() and criterion == "width":
+            kw["hint"] = h
         v, r, _ = criterion_values(table, list(xs), spec, lab, criterion, mu, width_floor, **kw)
+        kw.pop("hint", None)
         for p in range(r.size):
             flags.extend(f"strain {xs[p]:.6g}: unconverged: {f}" for f in r.unconverged[p])
         return v
@@ -225,7 +238,8 @@ def critical_strain(table: StrainTable, spec="mf", fraction="1/3", criterion="wi
     for i in range(len(S) - 1):
         if finite[i] and finite[i + 1] and pos[i] != pos[i + 1]:
             a, b = S[i], S[i + 1]
-            r, _, n_ev = narrowed_brentq(h, hv, a, b, H[i], H[i + 1], xtol, sections=sections)
+            r, _, n_ev = narrowed_brentq(h, hv, a, b, H[i], H[i + 1], xtol, sections=max(int(sections), 1),
+                                         steps=1 if sections > 0 else 0)
             count[0] += n_ev
             roots.append(float(r))
             brackets.append((float(a), float(b)))

@@ -271,8 +271,8 @@ def _last_true(cond: np.ndarray, valid: np.ndarray) -> np.ndarray:
 
 def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = MethodSpec(), mu=None, n_mu: int = 121,
                     tol: float = 1e-4, width_floor: float = 1e-3, filling_tol: float = 1e-6,
-                    jump_tol: float = 1e-3, sections: int = 31, thresholds=Thresholds(),
-                    keep_grid: bool = False) -> PlateauResult:
+                    jump_tol: float = 1e-3, sections: int | None = None, thresholds=Thresholds(),
+                    keep_grid: bool = False, hint=None, hint_pad: int = 12) -> PlateauResult:
     """Locate the plateau at ``fraction`` for every model (one batched solve per search step).
 
     Parameters
@@ -293,10 +293,21 @@ def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = Meth
         Filling tolerance epsilon defining "on the plateau".
     jump_tol : float, default 1e-3
         A filling change larger than this across a converged edge bracket is a discontinuity.
-    sections : int, default 31
-        Interior points per bracket and search step.
+    sections : int, optional
+        Interior points per bracket and search step (default: the method's ``edge_sections``,
+        31 for site-decoupled mean field, 7 for cluster mean field).
     keep_grid : bool
         Keep the coarse grid evaluation (for phase maps).
+    hint : array (P, 2), optional
+        Where each model's plateau (or crossing) is expected, e.g. the edges found at a nearby
+        strain or hopping factor (NaN rows: no hint). The coarse grid is then first evaluated
+        only on the points of the full grid between ``hint_pad`` grid points below the hint
+        and ``hint_pad`` above it; a model whose sub-grid does not show the filling passing
+        ``fraction`` strictly inside it (converged points below and above) is redone on the
+        full grid. With a non-decreasing filling the brackets, hence the edges, are those of
+        the full grid; see :func:`_sub_grid`. Not combined with ``keep_grid``.
+    hint_pad : int, default 12
+        Grid points kept on each side of the hint.
 
     Returns
     -------
@@ -311,6 +322,9 @@ def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = Meth
                         ("jump_tol", jump_tol, 0)):
         if not (np.isfinite(v) and v > lo):
             raise ConfigError(f"{name}: must be a finite number > 0, got {v!r}")
+    spec = MethodSpec.parse(spec)
+    if sections is None:
+        sections = getattr(spec.impl, "edge_sections", 31)
     if int(sections) < 1:
         raise ConfigError(f"sections: must be an integer >= 1, got {sections!r}")
     scale = np.array([m.scale for m in models], float)
@@ -326,6 +340,10 @@ def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = Meth
         if grid_mu.shape[0] != P or grid_mu.shape[1] < 3 or np.any(np.diff(grid_mu, axis=1) <= 0) \
                 or not np.all(np.isfinite(grid_mu)):
             raise ConfigError("mu: need at least 3 strictly increasing finite chemical potentials")
+    if hint is not None and not keep_grid:
+        kw = dict(fraction=fraction, spec=spec, n_mu=n_mu, tol=tol, width_floor=width_floor, filling_tol=filling_tol,
+                  jump_tol=jump_tol, sections=sections, thresholds=thresholds)
+        return _locate_hinted(models, grid_mu, np.asarray(hint, float).reshape(P, 2), int(hint_pad), kw)
     g = evaluate_points(models, grid_mu, spec, thresholds)
     n, conv = g["filling"].astype(float), g["converged"]
     flags = [[] for _ in range(P)]
@@ -481,6 +499,76 @@ def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = Meth
         flags=flags, unconverged=unconv, grid=g if keep_grid else None, grid_mu=grid_mu if keep_grid else None,
     )
     return res
+
+
+def _sub_grid(grid_mu: np.ndarray, hint: np.ndarray, pad: int):
+    """Per model, the contiguous run of ``grid_mu`` points covering ``hint`` plus ``pad`` points on each side.
+
+    Returns ``(start (P,), K)``: every model gets ``K`` points (the longest run needed) starting at
+    ``start[p]``; rows without a finite hint get ``start = -1``.
+    """
+    P, M = grid_mu.shape
+    lo = np.array([np.searchsorted(grid_mu[p], hint[p, 0]) for p in range(P)]) - pad
+    hi = np.array([np.searchsorted(grid_mu[p], hint[p, 1]) for p in range(P)]) + pad
+    ok = np.all(np.isfinite(hint), axis=1) & (hint[:, 1] >= hint[:, 0])
+    K = int(min(M, max([h - l for h, l, o in zip(hi, lo, ok) if o], default=M)))
+    start = np.clip(lo, 0, M - K)
+    return np.where(ok, start, -1), K
+
+
+def _locate_hinted(models, grid_mu, hint, pad, kw) -> PlateauResult:
+    """:func:`locate_plateaus` on sub-grids around ``hint``, the full grid where the sub-grid does not bracket."""
+    P, M = grid_mu.shape
+    start, K = _sub_grid(grid_mu, hint, pad)
+    use = start >= 0
+    good = np.zeros(P, bool)
+    parts = {}
+    if use.any() and K < M:
+        idx = np.nonzero(use)[0]
+        sub = np.stack([grid_mu[p, start[p]:start[p] + K] for p in idx])
+        r = locate_plateaus([models[p] for p in idx], mu=sub, **kw)
+        first, last = start[idx] == 0, start[idx] + K == M
+        # the sub-grid answer is the full grid's when the filling passes the target inside it
+        # (a converged point below before it and one above after it, unless the sub-grid
+        # already reaches that end of the full grid)
+        lo_in = np.isfinite(r.mu_lo) | first
+        hi_in = np.isfinite(r.mu_hi) | last
+        ok = r.reached & lo_in & hi_in
+        good[idx[ok]] = True
+        parts["sub"] = (idx[ok], r, np.nonzero(ok)[0])
+    rest = np.nonzero(~good)[0]
+    if len(rest):
+        r = locate_plateaus([models[p] for p in rest], mu=grid_mu[rest], **kw)
+        parts["full"] = (rest, r, np.arange(len(rest)))
+    return _merge_results(P, list(parts.values()))
+
+
+def _merge_results(P, parts) -> PlateauResult:
+    """One PlateauResult of P models from pieces ``(target indices, result, source indices)``."""
+    import dataclasses
+
+    base = parts[0][1]
+    out = {}
+    for f in dataclasses.fields(PlateauResult):
+        v = getattr(base, f.name)
+        if isinstance(v, np.ndarray) and v.shape[:1] == (base.size,):
+            a = np.empty((P,) + v.shape[1:], dtype=v.dtype if v.dtype != object else object)
+            if a.dtype.kind == "U":
+                a = a.astype(object)
+            for dst, r, src in parts:
+                a[dst] = getattr(r, f.name)[src]
+            out[f.name] = a.astype(str) if v.dtype.kind == "U" else a
+        elif isinstance(v, list):
+            lst = [None] * P
+            for dst, r, src in parts:
+                for d, s_ in zip(dst, src):
+                    lst[d] = getattr(r, f.name)[s_]
+            out[f.name] = lst
+        elif f.name in ("grid", "grid_mu"):
+            out[f.name] = None
+        else:
+            out[f.name] = v
+    return PlateauResult(**out)
 
 
 def fixed_filling(res: PlateauResult, p: int, jump_tol: float = 1e-3) -> dict:
