@@ -11,7 +11,14 @@ map   tri3 hard-core 100 x 100 map (demo model, t/V in [0, 0.4], mu/V in [-1, 7]
       agreement of the winning states on the sample.
 cli   wall time of ``phasemap strain-check demo --strain 0.12 --method cmf:tri3`` and
       ``phasemap strain-sweep demo --methods mf,cmf:tri3,cmf:tri6`` (subprocesses, start-up
-      included).
+      included), for this checkout (new path) and, side by side, for the code of ``--old-ref``
+      (default 5e8036e, main before the strain-speed work: full chemical-potential grid for
+      every plateau search, 31 points per edge-search step, batched multi-section before
+      every brentq, full ``eigh``), unpacked with ``git archive`` into a temporary folder.
+      Each command is run once untimed first (numba compiles and caches on first use), then
+      timed; the CPU time of the child (user + sys) is printed next to the wall time because
+      on the shared machine the wall time mostly measures the other jobs. The answers
+      (plateau edges, melt factor, critical strains) of both are printed for comparison.
 line  tri12 hard-core, warm-started along a line in t (per-point path with continuation):
       mean time per point.
 
@@ -67,24 +74,69 @@ def part_map(n: int = 100, sample: int = 100) -> None:
           f"max |dE| = {np.abs(eb - ep)[both].max():.2e} over {both.sum()} points converged in both")
 
 
-def run_cli(args: list[str]) -> float | None:
+def run_cli(args: list[str], path: str | None = None, keep: str | None = None):
+    """Run ``python -m phasemap ARGS`` in a fresh folder; returns (wall s, cpu s, stdout) or None."""
+    env = dict(os.environ)
+    if path:
+        env["PYTHONPATH"] = path
     with tempfile.TemporaryDirectory() as d:
+        r0 = os.times()
         t0 = time.perf_counter()
-        out = subprocess.run([sys.executable, "-m", "phasemap", *args], capture_output=True, text=True, cwd=d)
+        out = subprocess.run([sys.executable, "-m", "phasemap", *args], capture_output=True, text=True, cwd=d, env=env)
         dt = time.perf_counter() - t0
+        r1 = os.times()
+        if keep and out.returncode == 0:
+            import shutil
+
+            shutil.copytree(d, keep, dirs_exist_ok=True)
     if out.returncode != 0:
         print(out.stderr[-2000:], file=sys.stderr)
         return None
-    return dt
+    cpu = (r1.children_user - r0.children_user) + (r1.children_system - r0.children_system)
+    return dt, cpu, out.stdout
 
 
-def part_cli(sweep_only: bool = False) -> None:
-    for args in ([] if sweep_only else [["strain-check", "demo", "--strain", "0.12", "--method", "cmf:tri3"]]) + [
-                 ["strain-sweep", "demo", "--out", "sweep-out", "--methods", "mf,cmf:tri3,cmf:tri6"]]:
-        l0 = load()
-        dt = run_cli(args)
-        took = "FAILED" if dt is None else f"{dt:.1f} s wall"
-        print(f"[cli] phasemap {' '.join(args)}: {took} ({l0} before, {load()} after)")
+def _old_tree(ref: str) -> str:
+    """The package at git ``ref`` unpacked into a temporary folder (the old path)."""
+    root = subprocess.run(["git", "rev-parse", "--show-toplevel"], capture_output=True, text=True,
+                          cwd=os.path.dirname(os.path.abspath(__file__))).stdout.strip()
+    d = tempfile.mkdtemp(prefix="phasemap-old-")
+    arch = subprocess.run(["git", "archive", ref, "phasemap"], capture_output=True, cwd=root, check=True).stdout
+    subprocess.run(["tar", "-x", "-C", d], input=arch, check=True)
+    return d
+
+
+def _answers(args, stdout, folder):
+    import json
+
+    if args[0] == "strain-check":
+        d = json.loads(stdout)
+        p, m = d["plateau"], d.get("melt", {})
+        return (f"mu_lo {p['mu_lo']:.6f} mu_hi {p['mu_hi']:.6f} width {p['width']:.6f} (edge precision "
+                f"{p['edge_precision']:.1e}); melt factor {m.get('factor')} ({m.get('evaluations')} plateau searches)")
+    d = json.load(open(os.path.join(folder, "sweep-out", "summary.json")))
+    return "; ".join(f"{k} strain_c {v['strain_c']} (+-{v['xtol']:.0e}, {v['evaluations']} evaluations)"
+                     for k, v in d["critical"].items())
+
+
+def part_cli(sweep_only: bool = False, old_ref: str | None = "5e8036e") -> None:
+    cmds = ([] if sweep_only else [["strain-check", "demo", "--strain", "0.12", "--method", "cmf:tri3", "--json"]]) + [
+        ["strain-sweep", "demo", "--out", "sweep-out", "--methods", "mf,cmf:tri3,cmf:tri6", "--no-figures"]]
+    trees = [("new", None)] + ([(f"old ({old_ref})", _old_tree(old_ref))] if old_ref else [])
+    for args in cmds:
+        for name, path in trees:
+            for meth in ("mf", "cmf:tri3"):  # numba compiles and caches on first use: not timed
+                run_cli(["strain-check", "demo", "--strain", "0.12", "--method", meth, "--no-melt"], path)
+            l0 = load()
+            keep = tempfile.mkdtemp()
+            r = run_cli(args, path, keep=keep)
+            if r is None:
+                print(f"[cli] {name}: phasemap {' '.join(args)}: FAILED")
+                continue
+            dt, cpu, out = r
+            print(f"[cli] {name}: phasemap {' '.join(args)}: {dt:.1f} s wall, {cpu:.1f} s CPU "
+                  f"({l0} before, {load()} after)")
+            print(f"[cli] {name}:   {_answers(args, out, keep)}")
 
 
 def part_line(points: int = 8, dt: float = 0.002) -> None:
@@ -113,13 +165,14 @@ def part_line(points: int = 8, dt: float = 0.002) -> None:
 def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     p.add_argument("--only", choices=("map", "cli", "line", "sweep"))
+    p.add_argument("--old-ref", default="5e8036e", help="git revision of the old path for 'cli' ('' to skip)")
     a = p.parse_args(argv)
     print(f"{os.cpu_count()} CPUs; {load()}")
-    for name, fn in (("map", part_map), ("line", part_line), ("cli", part_cli)):
+    for name, fn in (("map", part_map), ("line", part_line), ("cli", lambda: part_cli(old_ref=a.old_ref or None))):
         if a.only in (None, name):
             fn()
     if a.only == "sweep":
-        part_cli(sweep_only=True)
+        part_cli(sweep_only=True, old_ref=a.old_ref or None)
     return 0
 
 
