@@ -1,7 +1,8 @@
 """Benchmark: batched cluster mean field against the per-point path, side by side in one run.
 
 Run:  python benchmarks/bench_cmf_batch.py                 (everything, several minutes)
-      python benchmarks/bench_cmf_batch.py --only map      (one part: map, cli, line)
+      python benchmarks/bench_cmf_batch.py --only map      (one part: map, cli, line; or sweep,
+                                                            check: one of the two cli commands)
 
 Parts
 -----
@@ -119,9 +120,10 @@ def _answers(args, stdout, folder):
                      for k, v in d["critical"].items())
 
 
-def part_cli(sweep_only: bool = False, old_ref: str | None = "5e8036e") -> None:
-    cmds = ([] if sweep_only else [["strain-check", "demo", "--strain", "0.12", "--method", "cmf:tri3", "--json"]]) + [
-        ["strain-sweep", "demo", "--out", "sweep-out", "--methods", "mf,cmf:tri3,cmf:tri6", "--no-figures"]]
+def part_cli(sweep_only: bool = False, old_ref: str | None = "5e8036e", check_only: bool = False) -> None:
+    cmds = ([] if sweep_only else [["strain-check", "demo", "--strain", "0.12", "--method", "cmf:tri3", "--json"]]) + (
+        [] if check_only else [["strain-sweep", "demo", "--out", "sweep-out", "--methods", "mf,cmf:tri3,cmf:tri6",
+                                "--no-figures"]])
     trees = [("new", None)] + ([(f"old ({old_ref})", _old_tree(old_ref))] if old_ref else [])
     for args in cmds:
         for name, path in trees:
@@ -164,7 +166,7 @@ def part_line(points: int = 8, dt: float = 0.002) -> None:
 
 def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    p.add_argument("--only", choices=("map", "cli", "line", "sweep"))
+    p.add_argument("--only", choices=("map", "cli", "line", "sweep", "check"))
     p.add_argument("--old-ref", default="5e8036e", help="git revision of the old path for 'cli' ('' to skip)")
     a = p.parse_args(argv)
     print(f"{os.cpu_count()} CPUs; {load()}")
@@ -173,6 +175,8 @@ def main(argv=None) -> int:
             fn()
     if a.only == "sweep":
         part_cli(sweep_only=True, old_ref=a.old_ref or None)
+    if a.only == "check":
+        part_cli(check_only=True, old_ref=a.old_ref or None)
     return 0
 
 
