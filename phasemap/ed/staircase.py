@@ -120,6 +120,7 @@ def staircase(model: Model, cluster="tri12", n_range=None, particle_hole: bool =
         dt = time.perf_counter() - t0
         rec[N] = dict(E0=gs.e0, q=gs.q, q_name=gs.q_name, dim=gs.dims.get(gs.q_name, 0), time_s=dt,
                       ph=False, obs=obs, degenerate=",".join(gs.degenerate))
+        del gs  # free this sector before the next is built (the guard checks one sector at a time)
         if progress:
             progress(N, dt)
     if use_ph:

@@ -226,6 +226,7 @@ def ed_plateaus(models: list[Model], spec=f"ed:{DEFAULT_ED_CLUSTER}", fraction="
                     rec["sk"] = obs.get("S(K)/N", math.nan)
                     rec["sq_max"] = obs.get("sq_max", math.nan)
                     rec["q_max"] = obs.get("q_max", "")
+                del gs  # free this sector before the next is built (the guard checks one sector at a time)
             _CACHE[key] = hit = rec
         Ec[p] = hit["Ec"]
         sk[p], sqm[p] = hit["sk"], hit["sq_max"]
