@@ -261,3 +261,24 @@ def test_qmc_scaling_killed_and_resumed(tmp_path, monkeypatch, capsys):
     for f in ("scaling.json", "scaling.csv"):
         assert (out / f).read_text() == (tmp_path / "ref" / f).read_text()
     assert not ck.exists()
+
+
+@pytest.mark.slow
+def test_qmc_strain_sweep_killed_mid_chain_and_resumed(tmp_path):
+    # a Monte Carlo strain step is one chunk made of many runs: killed inside it, the rerun replays
+    # the finished runs from their chain checkpoints (ChunkStore.inner) and gives the same numbers
+    args = ["strain-sweep", "demo", "--methods", "qmc:6+9", "--qmc", "sweeps=300", "--qmc", "order_sweeps=300",
+            "--qmc", "rounds=2", "--qmc", "every=1", "--n-strain", "3", "--no-figures", "--quiet",
+            "--executor", "serial"]
+    ref = _phasemap(*args, "--out", tmp_path / "ref")
+    assert ref.returncode == 0, ref.stderr
+    out = tmp_path / "out"
+    chains = out / CHECKPOINT_DIR / "sweep" / "inner" / "step0"
+    _cli_kill([*args, "--out", out], out / CHECKPOINT_DIR / "sweep", 0, ready=lambda: len(list(chains.glob("*.npz"))) >= 10)
+    assert len(list(chains.glob("*.npz"))) >= 10 and not (out / "sweep.nc").exists()
+    r = _phasemap(*args, "--out", out, "--resume")
+    assert r.returncode == 0, r.stderr
+    xr.testing.assert_identical(load_netcdf(out / "sweep.nc"), load_netcdf(tmp_path / "ref" / "sweep.nc"))
+    for f in ("plateau.csv", "critical.csv"):
+        assert (out / f).read_text() == (tmp_path / "ref" / f).read_text()
+    assert not (out / CHECKPOINT_DIR).exists()

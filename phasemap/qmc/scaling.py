@@ -21,6 +21,7 @@ crossing: they are listed in ``flags``.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 from dataclasses import dataclass, field
@@ -45,6 +46,25 @@ def _one(job):
 
     model, kw = job
     return run_qmc(model, **kw)
+
+
+#: folder for the chain checkpoints of every run started by :func:`run_many` without a store of
+#: its own (set by :func:`chain_checkpoints`, e.g. inside one chunk of a strain sweep)
+_CHAIN_DIR: list = [None]
+
+
+@contextlib.contextmanager
+def chain_checkpoints(folder):
+    """Inside this block every :func:`run_many` without a ``checkpoint`` keeps its chains'
+    checkpoints in ``folder`` (file names carry lattice, beta, seed and chain; a file of another
+    run is not reused), so a job made of many runs (the qmc strain step) killed at any moment
+    replays its finished runs from their files and continues the interrupted ones mid-chain."""
+    old = _CHAIN_DIR[0]
+    _CHAIN_DIR[0] = None if folder is None else str(folder)
+    try:
+        yield
+    finally:
+        _CHAIN_DIR[0] = old
 
 
 def run_chunk(job) -> dict:
@@ -72,7 +92,9 @@ def run_many(jobs: list, workers: int | None = None, executor=None, checkpoint=N
     from ..store import unpack_object
 
     inner = checkpoint.inner() if checkpoint is not None and hasattr(checkpoint, "inner") else None
-    jobs = [(m, {**kw, "workers": 1, **({"checkpoint": str(inner / str(k))} if inner is not None else {})})
+    chains = {k: str(inner / str(k)) for k in range(len(jobs))} if inner is not None else \
+        {k: _CHAIN_DIR[0] for k in range(len(jobs))} if _CHAIN_DIR[0] is not None else {}
+    jobs = [(m, {**kw, "workers": 1, **({"checkpoint": chains[k]} if k in chains else {})})
             for k, (m, kw) in enumerate(jobs)]
     own = executor is None
     if own:

@@ -449,8 +449,10 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
     for a, sp in enumerate(specs):
         rows = [slice(i, i + 1) for i in range(len(S))] if sp.impl.strain_local else [slice(0, len(S))]
         for sl in rows:
-            where[len(steps)] = (a, sl)
-            steps[len(steps)] = (sp, models[sl], lab, mu, kw)
+            k = len(steps)
+            inner = str(checkpoint.inner() / f"step{k}") if hasattr(checkpoint, "inner") else None
+            where[k] = (a, sl)
+            steps[k] = (sp, models[sl], lab, mu, kw, inner)
     weights = {k: sl.stop - sl.start for k, (a, sl) in where.items()}
     finish_keys = {a: len(steps) + a for a in range(len(specs))}
     weights.update({k: len(S) for k in finish_keys.values()})
@@ -566,17 +568,20 @@ def _concat(parts: list):
 
 
 def sweep_step_chunk(task) -> dict:
-    """Chunk of stage 1: ``(spec, models, fraction, mu, kw)`` -> the packed ``StepRecord``
-    and its seconds (the evaluation cache is cleared first: the result depends on the task
+    """Chunk of stage 1: ``(spec, models, fraction, mu, kw, inner)`` -> the packed ``StepRecord``
+    and its seconds (``inner``: folder for the chain checkpoints of Monte Carlo runs in the step) (the evaluation cache is cleared first: the result depends on the task
     alone, in any process, resumed or not)."""
     from .engine import clear_cache
 
     from ..store import pack_object
 
-    spec, models, lab, mu, kw = task
+    from ..qmc.scaling import chain_checkpoints
+
+    spec, models, lab, mu, kw, inner = task
     clear_cache()
     t0 = time.perf_counter()
-    rec = spec.impl.strain_step(spec, models, lab, mu=mu, keep_grid=True, **kw)
+    with chain_checkpoints(inner):  # Monte Carlo runs inside the step resume from their chains' files
+        rec = spec.impl.strain_step(spec, models, lab, mu=mu, keep_grid=True, **kw)
     return pack_object({"record": rec, "seconds": time.perf_counter() - t0})
 
 
