@@ -140,6 +140,16 @@ CASES = {
     "exact-budget-negative": (EXACT + ["--budget-gib", "-1"], ["--budget-gib", "> 0"]),
     "exact-observable-unknown": (EXACT + ["--observables", "sq,foo"], ["--observables", "foo"]),
     "point-cluster-unknown": (["point", "--method", "cmf", "--cluster", "tri999"], ["tri999"]),
+    # cmf-scaled (cluster mean field extrapolated in λ): refused before any cluster is solved
+    "cmf-scaled-one-cluster": (["strain-check", "inputs/table.csv", "--strain", "0.05", "--method", "cmf-scaled:3"],
+                               ["cmf-scaled:3", "two clusters", "λ"]),
+    "cmf-scaled-same-lambda": (["strain-check", "inputs/table.csv", "--strain", "0.05", "--method",
+                                "cmf-scaled:12+15"], ["two clusters", "different λ"]),
+    "cmf-scaled-site-decoupled": (["strain-check", "inputs/table.csv", "--strain", "0.05", "--method",
+                                   "cmf-scaled:tri3-sd+tri3"], ["tri3-sd", "λ = 0"]),
+    "cmf-scaled-twice": (SWEEP + ["--out", "o", "--methods", "cmf-scaled:3+6+3"], ["cmf-scaled", "twice"]),
+    "cmf-scaled-unknown-cluster": (SWEEP + ["--out", "o", "--methods", "mf,cmf-scaled:3+999"], ["tri999"]),
+    "cmf-scaled-point": (["point", "--method", "cmf-scaled"], ["cmf-scaled", "strain workflow"]),
 }
 
 

@@ -38,7 +38,7 @@ from .clusters import get_cluster
 from .selfconsistency import solve_cmf_batch
 
 __all__ = ["fit_linear", "ScalingResult", "transition_point", "order_value", "cluster_scaling",
-           "plot_scaling", "ORDERS", "QUANTITIES"]
+           "plot_scaling", "scaling_figure", "ORDERS", "QUANTITIES"]
 
 ORDERS = ("contrast", "condensate", "sq_max", "filling")
 QUANTITIES = ("lobe-tip", "transition", "order")
@@ -282,23 +282,23 @@ def scaling_chunk(task) -> dict:
     return {"value": np.array(float(v)), "detail": np.array(json.dumps(jsonable(detail))), "label": np.array(label)}
 
 
-def plot_scaling(result: ScalingResult, path_base: str, width: float = 3.4) -> list[str]:
-    """Figure of value vs λ with the fit and its extrapolation; writes PNG and PDF.
+def scaling_figure(result: ScalingResult, width: float = 3.4):
+    """Figure of value vs λ with the fit and its extrapolation (a matplotlib ``Figure``, Agg canvas).
 
-    ``width`` in inches (3.4 = one journal column). Returns the written paths.
-    """
-    import matplotlib
+    ``width`` in inches (3.4 = one journal column)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
 
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    fig, ax = plt.subplots(figsize=(width, 0.75 * width), constrained_layout=True)
+    fig = Figure(figsize=(width, 0.75 * width), constrained_layout=True)
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
     m = result.fit_mask
     ax.plot(result.lam[m], result.values[m], "o", color="C0", label="CMF (fitted)")
     if (~m).any():
         ax.plot(result.lam[~m], result.values[~m], "o", mfc="none", color="C0", label="CMF (not fitted)")
     for c, l, v in zip(result.clusters, result.lam, result.values):
-        ax.annotate(c, (l, v), textcoords="offset points", xytext=(3, -9), fontsize=6)
+        if np.isfinite(v):
+            ax.annotate(c, (l, v), textcoords="offset points", xytext=(3, -9), fontsize=6)
     f = result.fit
     xs = np.linspace(min(result.lam.min(), 0.0), 1.0, 50)
     ax.plot(xs, f["intercept"] + f["slope"] * xs, "-", color="C0", lw=0.8)
@@ -312,10 +312,14 @@ def plot_scaling(result: ScalingResult, path_base: str, width: float = 3.4) -> l
     ax.set_xlim(-0.03, 1.05)
     ax.legend(fontsize=6, frameon=False)
     ax.tick_params(labelsize=7)
-    paths = []
-    for ext in ("png", "pdf"):
-        p = f"{path_base}.{ext}"
-        fig.savefig(p, dpi=300)
-        paths.append(p)
-    plt.close(fig)
-    return paths
+    return fig
+
+
+def plot_scaling(result: ScalingResult, path_base: str, width: float = 3.4) -> list[str]:
+    """Figure of value vs λ with the fit and its extrapolation; writes PNG and PDF (atomically).
+
+    ``width`` in inches (3.4 = one journal column). Returns the written paths.
+    """
+    from ..plot import save_figure
+
+    return [str(p) for p in save_figure(scaling_figure(result, width), path_base)]

@@ -33,6 +33,7 @@ BUILTIN = (
     "cmf",
     "ed",
     "qmc",
+    "cmf_scaled",
 )
 
 _REGISTRY: dict[str, "Method"] = {}

@@ -119,6 +119,12 @@ def plot_plateau_edges(sweep) -> Figure:
             ax.fill_between(s, lo, hi, where=ok, color=colors[n], alpha=0.18, lw=0)
             ax.plot(s, lo, ls=ls, color=colors[n], marker=".", ms=3, label=_label(sweep, n))
             ax.plot(s, hi, ls=ls, color=colors[n], marker=".", ms=3)
+            for j, (lab, (klo, khi)) in enumerate(r.info.get("components", {}).items()):
+                # a method built from several systems (cmf-scaled: every cluster) draws each one thin
+                ax.plot(s, r.order[klo], ls=_STYLES[(j + 1) % len(_STYLES)], color=colors[n], lw=0.6, alpha=0.55,
+                        marker=".", ms=2, label=lab)
+                ax.plot(s, r.order[khi], ls=_STYLES[(j + 1) % len(_STYLES)], color=colors[n], lw=0.6, alpha=0.55,
+                        marker=".", ms=2)
             if "mu_lo" in r.errors:  # statistical methods: one-sigma error bars, every computed strain
                 for edge in ("mu_lo", "mu_hi"):
                     v = getattr(r, edge)
@@ -334,6 +340,10 @@ def save_all(sweep, outdir, formats=("png", "pdf")) -> list:
     figs = {"plateau_edges": plot_plateau_edges(sweep), "order_parameters": plot_order_parameters(sweep),
             "phase_map": plot_phase_map(sweep), "critical_vs_lambda": plot_critical_vs_lambda(sweep),
             "melting": plot_melting(sweep)}
+    for n in sweep.names:  # a critical result may bring its own figure (cmf-scaled: critical strain versus λ)
+        make = getattr(sweep.critical[n], "figure", None)
+        if callable(make):
+            figs[f"critical_scaling_{''.join(c if c.isalnum() else '_' for c in n)}"] = make()
     for name, fig in figs.items():
         if fig is not None:
             paths += save_figure(fig, out / f"strain_{name}", formats=formats)

@@ -598,14 +598,17 @@ def sweep_finish_chunk(task: dict) -> dict:
     out["critical"] = sp.impl.strain_critical(sp, table, S, rec, lab, xtol=task["xtol"], **kw)
     out["seconds"][sp.name] = time.perf_counter() - t0
     if task["lambdas"] is not None:
-        if rec.sharp:
+        if rec.sharp and sp.capabilities.grand_canonical:
             t1 = time.perf_counter()
             locate = {k: v for k, v in kw.items() if k not in ("width_floor", "thresholds", "ed_thresholds")}
             out["lambda"] = critical_vs_lambda(table, sp, task["lambdas"], task["param"], lab, n_strain=task["n_strain"],
                                                width_floor=kw["width_floor"], thresholds=kw["thresholds"], **locate)
             out["seconds"][f"{sp.name} lambda"] = time.perf_counter() - t1
-        else:
+        elif not rec.sharp:
             out["notes"].append(f"lambda scan not done for {sp.name}: a finite lattice has no sharp critical strain")
+        else:
+            out["notes"].append(f"lambda scan not done for {sp.name}: it needs a grand-canonical batch solver "
+                                "(mf, cmf:<cluster>)")
     if task["melting"]:
         if _has_melting(sp):
             t1 = time.perf_counter()
