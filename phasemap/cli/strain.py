@@ -19,7 +19,8 @@ CHECK_EPILOG = """examples:
   phasemap strain-check demo --strain 0.08
   phasemap strain-check examples/strain_demo.csv --strain 0.08 --mu 8 --json
   phasemap strain-check examples/strain_demo.csv --strain 0.1 --method cmf --cluster tri12
-  phasemap strain-check examples/strain_demo.csv --strain 0.1 --method ed:tri21 --mu 8"""
+  phasemap strain-check examples/strain_demo.csv --strain 0.1 --method ed:tri21 --mu 8
+  phasemap strain-check demo --strain 0.1 --method cmf-scaled:3+6+9 --mu 8"""
 
 SWEEP_EPILOG = """examples:
   phasemap strain-sweep examples/strain_demo.csv --out strain-out
@@ -27,7 +28,8 @@ SWEEP_EPILOG = """examples:
   phasemap strain-sweep examples/strain_demo.csv --out strain-out --methods mf,ed:tri21
   phasemap strain-sweep demo --out strain-out --methods mf,cmf:tri3 --T-measure 2.0
   phasemap strain-sweep demo --out strain-out --methods mf,cmf:tri12,qmc
-  phasemap strain-sweep demo --out strain-out --methods qmc:6+9+12 --qmc sweeps=4000 --qmc every=1"""
+  phasemap strain-sweep demo --out strain-out --methods qmc:6+9+12 --qmc sweeps=4000 --qmc every=1
+  phasemap strain-sweep demo --out strain-out --methods mf,cmf-scaled      (tri3, tri6, tri9 -> lambda = 1)"""
 
 
 #: checkpoint folder inside --out (as for maps and curves)
@@ -100,7 +102,8 @@ def register(sub) -> None:
     c.add_argument("--strain", type=finite_float, required=True, help="strain at which to judge")
     c.add_argument("--mu", type=finite_float, default=None, help="chemical potential (table unit) to report the phase at")
     c.add_argument("--method", default="mf", help="mf, cmf[:<cluster>] or ed[:<cluster>] (exact diagonalization, canonical finite cluster "
-                   "containing K: tri12 (default, no V2), tri21, tri27, tri36) (default mf)")
+                   "containing K: tri12 (default, no V2), tri21, tri27, tri36), qmc[:6+9], cmf-scaled[:3+6+9+12] (cluster "
+                   "mean field extrapolated in lambda) (default mf)")
     c.add_argument("--cluster", default=None, help="cluster for cmf (e.g. tri3, tri6, tri12) or ed (tri12, tri21, tri27, tri36)")
     c.add_argument("--fraction", default="1/3", help="plateau filling (default 1/3)")
     c.add_argument("--no-melt", action="store_true", help="skip the melt-factor root-finding (faster; ED has none)")
@@ -116,7 +119,8 @@ def register(sub) -> None:
     s.add_argument("table", help="strain table (.csv or .toml), or 'demo'")
     s.add_argument("--out", required=True, help="output folder (created; files written atomically)")
     s.add_argument("--methods", default="mf", help="comma list: mf, cmf:<cluster>, ed:<cluster>, qmc[:6+9] (quantum Monte Carlo on "
-                   "L x L tori, extrapolated) (default mf)")
+                   "L x L tori, extrapolated), cmf-scaled[:3+6+9+12] (cluster mean field on several clusters, "
+                   "extrapolated in lambda) (default mf)")
     s.add_argument("--lambda", dest="lambdas", default=None,
                    help="also scan interactions V -> lambda V: start:stop:count or comma list (e.g. 0.7:1.0:4)")
     s.add_argument("--scale", default="V", choices=("V", "t", "U", "V2"),

@@ -30,7 +30,6 @@ from dataclasses import dataclass, field, fields
 import numpy as np
 
 from ..model import ConfigError, check_keys
-from ..strain.critical import CriticalResult
 from . import Capabilities, Method, MethodSpec
 
 __all__ = ["ClusterScaledMeanField", "ScaledStep", "ScaledCritical", "DEFAULT_CLUSTERS", "METHOD"]
@@ -178,6 +177,7 @@ class ScaledStep:
     records: dict               # cluster -> StepRecord of cmf:<cluster> (computed strains only)
     settings: dict
     flags: list = field(default_factory=list)
+    floor: np.ndarray = None    # (P,) width floor in the model unit (width_floor x scale)
 
     @classmethod
     def build(cls, spec, s, models, computed, recs, fraction, width_floor):
@@ -219,7 +219,7 @@ class ScaledStep:
                 ext[k][p], ext[f"{k}_error"][p] = f["extrapolated"], f["extrapolated_err"]
         return cls(tuple(s["clusters"]), lam, [str(c.lam_fraction) for c in cl], [c.n_sites for c in cl], computed, per, ext, fits, recs,
                    {k: v for k, v in s.items() if k != "cmf"} | {"cmf_options": s["cmf"], "width_floor": width_floor},
-                   flags)
+                   flags, np.array([width_floor * m.scale for m in models]))
 
 
 def _record(step: ScaledStep, method: str, fraction: str):
@@ -228,7 +228,7 @@ def _record(step: ScaledStep, method: str, fraction: str):
     P = len(step.computed)
     e = step.ext
     err = np.nan_to_num(e["width_error"], nan=0.0)
-    exists = np.where(np.isfinite(e["width"]), e["width"] - 2 * err > 0, False)
+    exists = np.where(np.isfinite(e["width"]), e["width"] - 2 * err > step.floor, False)
     conv = step.computed & np.isfinite(e["width"]) & step.per["converged"].all(1)
     order, errors = {}, {k: e[f"{k}_error"] for k in ("mu_lo", "mu_hi", "width")}
     comps = {}
@@ -252,69 +252,88 @@ def _record(step: ScaledStep, method: str, fraction: str):
 
 
 # -- critical strain --------------------------------------------------------------------------
-@dataclass
-class ScaledCritical(CriticalResult):
-    """Critical strain extrapolated in λ: every cluster's root, the fit, its standard error."""
+_CRITICAL_TYPE = None
 
-    fit_error: float | None = None
-    per_cluster: list = field(default_factory=list)   # [{"cluster", "lambda", "strain_c", "in_fit"}]
-    fit: dict = field(default_factory=dict)
-    alt_root: float | None = None
-    resolution: float | None = None
 
-    @property
-    def form_difference(self) -> float | None:
-        if self.strain_c is None or self.alt_root is None:
-            return None
-        return abs(self.strain_c - self.alt_root)
+def _critical_type():
+    """:class:`ScaledCritical`, built on first use: its base class lives in phasemap.strain, whose import
+    asks this registry for methods (a module-level import here would be circular)."""
+    global _CRITICAL_TYPE
+    if _CRITICAL_TYPE is None:
+        from ..strain.critical import CriticalResult
 
-    def to_dict(self) -> dict:
-        d = super().to_dict()
-        d.update(fit_error=self.fit_error, per_cluster=self.per_cluster, fit=self.fit, alt_root=self.alt_root,
-                 form_difference=self.form_difference, resolution=self.resolution)
-        return d
+        @dataclass
+        class ScaledCritical(CriticalResult):
+            """Critical strain extrapolated in λ: every cluster's root, the fit, its standard error."""
 
-    def scaling(self):
-        """The per-cluster critical strains and their fit as a :class:`phasemap.cmf.scaling.ScalingResult`."""
-        from ..cmf.scaling import ScalingResult
+            fit_error: float | None = None
+            per_cluster: list = field(default_factory=list)   # [{"cluster", "lambda", "strain_c", "in_fit"}]
+            fit: dict = field(default_factory=dict)
+            alt_root: float | None = None
+            resolution: float | None = None
 
-        pc = self.per_cluster
-        vals = np.array([np.nan if x["strain_c"] is None else x["strain_c"] for x in pc], float)
-        return ScalingResult("critical strain", f"critical strain ({self.method})", [x["cluster"] for x in pc],
-                             np.array([x["lambda"] for x in pc]), vals, self.fit, np.array([x["in_fit"] for x in pc]),
-                             list(pc))
+            @property
+            def form_difference(self) -> float | None:
+                if self.strain_c is None or self.alt_root is None:
+                    return None
+                return abs(self.strain_c - self.alt_root)
 
-    def figure(self):
-        """Critical strain of every cluster versus λ with the fit and its λ → 1 value (strain-sweep figure)."""
-        if not self.fit:
-            return None
-        from ..cmf.scaling import scaling_figure
+            def to_dict(self) -> dict:
+                d = super().to_dict()
+                d.update(fit_error=self.fit_error, per_cluster=self.per_cluster, fit=self.fit, alt_root=self.alt_root,
+                         form_difference=self.form_difference, resolution=self.resolution)
+                return d
 
-        return scaling_figure(self.scaling())
+            def scaling(self):
+                """The per-cluster critical strains and their fit as a :class:`phasemap.cmf.scaling.ScalingResult`."""
+                from ..cmf.scaling import ScalingResult
 
-    def summary(self) -> str:
-        rows = ", ".join(f"{x['cluster']} (λ = {x['lambda_text']}) {x['strain_c']:.4g}" if x["strain_c"] is not None
-                         else f"{x['cluster']} (λ = {x['lambda_text']}) none in the table" for x in self.per_cluster)
-        head = f"{self.method}: cluster mean field per cluster: {rows}"
-        if self.strain_c is None:
-            c = self.closest
-            why = ("fewer than two clusters close their plateau inside the table" if self.status == "none" else self.status)
-            return (f"{head}; no extrapolated critical strain ({why}; smallest λ-extrapolated width "
-                    f"{c['value']:.3g} {self.unit} at strain {c['strain']:.4g})")
-        err = f"{self.fit_error:.2g}" if self.fit_error is not None else "n/a (two clusters: no fit error)"
-        s = f"{head}; extrapolated to λ → 1: critical strain {self.strain_c:.4g} ± {err} (fit)"
-        if self.alt_root is not None:
-            s += f"; root of the λ-extrapolated width {self.alt_root:.4g} (difference {self.form_difference:.2g})"
-        if self.t_over_V_c is not None:
-            s += f" (t/V = {self.t_over_V_c:.4g})"
-        if self.flags:
-            s += f" [{'; '.join(self.flags)}]"
-        return s
+                pc = self.per_cluster
+                vals = np.array([np.nan if x["strain_c"] is None else x["strain_c"] for x in pc], float)
+                return ScalingResult("critical strain", f"critical strain ({self.method})", [x["cluster"] for x in pc],
+                                     np.array([x["lambda"] for x in pc]), vals, self.fit, np.array([x["in_fit"] for x in pc]),
+                                     list(pc))
+
+            def figure(self):
+                """Critical strain of every cluster versus λ with the fit and its λ → 1 value (strain-sweep figure)."""
+                if not self.fit:
+                    return None
+                from ..cmf.scaling import scaling_figure
+
+                return scaling_figure(self.scaling())
+
+            def summary(self) -> str:
+                rows = ", ".join(f"{x['cluster']} (λ = {x['lambda_text']}) {x['strain_c']:.4g}" if x["strain_c"] is not None
+                                 else f"{x['cluster']} (λ = {x['lambda_text']}) none in the table" for x in self.per_cluster)
+                head = f"{self.method}: cluster mean field per cluster: {rows}"
+                if self.strain_c is None:
+                    c = self.closest
+                    why = ("fewer than two clusters close their plateau inside the table" if self.status == "none" else self.status)
+                    return (f"{head}; no extrapolated critical strain ({why}; smallest λ-extrapolated width "
+                            f"{c['value']:.3g} {self.unit} at strain {c['strain']:.4g})")
+                err = f"{self.fit_error:.2g}" if self.fit_error is not None else "n/a (two clusters: no fit error)"
+                s = f"{head}; extrapolated to λ → 1: critical strain {self.strain_c:.4g} ± {err} (fit)"
+                if self.alt_root is not None:
+                    s += f"; root of the λ-extrapolated width {self.alt_root:.4g} (difference {self.form_difference:.2g})"
+                if self.t_over_V_c is not None:
+                    s += f" (t/V = {self.t_over_V_c:.4g})"
+                if self.flags:
+                    s += f" [{'; '.join(self.flags)}]"
+                return s
+
+        _CRITICAL_TYPE = ScaledCritical
+    return _CRITICAL_TYPE
+
+
+def __getattr__(name):
+    if name == "ScaledCritical":
+        return _critical_type()
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
 def _critical(spec, table, strains, record, fraction, width_floor=1e-3) -> ScaledCritical:
     from ..cmf.scaling import fit_linear
-    from ..strain.qmc_method import _root
+    from ..qmc.scaling import first_sign_change
 
     step: ScaledStep = record.detail
     c = step.computed
@@ -324,9 +343,10 @@ def _critical(spec, table, strains, record, fraction, width_floor=1e-3) -> Scale
     roots, pc = [], []
     for j, cl in enumerate(step.clusters):
         w = np.where(np.isfinite(step.per["width"][c, j]), step.per["width"][c, j], 0.0)
-        r, _ = _root(S, w - floor)
-        roots.append(np.nan if r is None else r)
-        pc.append({"cluster": cl, "lambda": float(step.lam[j]), "lambda_text": step.lam_text[j], "strain_c": r})
+        r = first_sign_change(S, w - floor)[0]
+        roots.append(r)
+        pc.append({"cluster": cl, "lambda": float(step.lam[j]), "lambda_text": step.lam_text[j],
+                   "strain_c": None if np.isnan(r) else r})
     roots = np.array(roots)
     mask = np.isfinite(roots)
     flags = []
@@ -341,7 +361,8 @@ def _critical(spec, table, strains, record, fraction, width_floor=1e-3) -> Scale
         sc = fit["extrapolated"]
         err = fit["extrapolated_err"] if np.isfinite(fit["extrapolated_err"]) else None
     H = step.ext["width"][c] - floor
-    alt, i0 = _root(S, H)
+    alt, i0, _ = first_sign_change(S, H)
+    alt = None if np.isnan(alt) else alt
     fin = np.isfinite(H)
     k = int(np.nanargmin(np.where(fin, H, np.inf))) if fin.any() else 0
     closest = {"strain": float(S[k]) if len(S) else math.nan,
@@ -360,7 +381,7 @@ def _critical(spec, table, strains, record, fraction, width_floor=1e-3) -> Scale
         direction = "closes with increasing strain"
     res = float(np.max(np.diff(S))) if len(S) > 1 else None
     fl = flags + sorted({f for fs in record.flags for f in fs if f.startswith("cmf:") and "unconverged" in f})
-    return ScaledCritical(
+    return _critical_type()(
         method=record.method, fraction=fraction, criterion="width (per cluster, λ → 1)",
         status="found" if sc is not None else "none", strain_c=sc, roots=[sc] if sc is not None else [],
         bracket=None, xtol=res if res is not None else math.nan, direction=direction, closest=closest, strains=S,
