@@ -11,11 +11,13 @@ fitted by a straight line in :math:`\lambda = N_B/(N_C z/2)` (library values, do
 extrapolated to :math:`\lambda = 1` with the standard error of the fit
 (:func:`phasemap.cmf.scaling.fit_linear`, the fit of ``phasemap cluster-scaling``).
 
-Critical strain: every cluster's width root along the computed strains (linear between them, the
-cmf critical strain of that cluster at the resolution of the computed strains), then these roots
-extrapolated linearly in λ to λ = 1 with the fit's standard error (residuals; undefined for two
-clusters). Beside it: the root of the λ-extrapolated width along the strain (a second estimate
-from the same data; their difference is reported as ``form_difference``).
+Critical strain: every cluster's plateau-closing strain on the computed strains (the line through
+the last two open strains continued to the width floor, kept inside the bracket of the first closed
+strain; or, with ``polish=True``, that cluster's own cmf critical strain by brentq), then these roots
+extrapolated linearly in λ to λ = 1. Errors: the fit's standard error (residuals; undefined for
+two clusters) and the brackets' error ((s_closed - s_open)/sqrt(12) per cluster, propagated through
+the fit weights at λ = 1). Beside it: the root of the λ-extrapolated width along the strain (a
+second estimate from the same data; their difference is reported as ``form_difference``).
 
 Caution (docs/cmf.md): the linear form in λ is a heuristic; at the half-filling supersolid
 transition the same extrapolation over tri3…tri12 still overshoots quantum Monte Carlo.
@@ -40,7 +42,7 @@ DEFAULT_CLUSTERS = ("tri3", "tri6", "tri9")
 #: Plateau search of each cluster (coarser than a single cmf sweep: the spread between clusters is
 #: 0.1-1 V, so edges to 1e-3 V suffice and the cost of the per-point engine stays bounded).
 SEARCH = {"n_mu": 49, "tol": 1e-3, "sections": 15}
-_OWN = ("clusters", "every", "n_mu", "tol", "sections")
+_OWN = ("clusters", "every", "n_mu", "tol", "sections", "polish")
 _NAME = re.compile(r"^\d+$")
 
 
@@ -103,7 +105,7 @@ class ClusterScaledMeanField(Method):
         """(clusters, every, search settings, cmf options) of a spec, validated."""
         d = self.options(spec.option_dict)
         s = {"clusters": d.pop("clusters", DEFAULT_CLUSTERS), "every": d.pop("every", 2),
-             **{k: d.pop(k, v) for k, v in SEARCH.items()}}
+             "polish": bool(d.pop("polish", False)), **{k: d.pop(k, v) for k, v in SEARCH.items()}}
         for k in ("every", "n_mu", "sections"):
             if not (isinstance(s[k], (int, np.integer)) and s[k] >= (3 if k == "n_mu" else 1)):
                 raise ConfigError(f"cmf-scaled {k}: expected an integer >= {3 if k == 'n_mu' else 1}, got {s[k]!r}")
@@ -155,7 +157,8 @@ class ClusterScaledMeanField(Method):
         return _record(step, spec.name, fraction)
 
     def strain_critical(self, spec, table, strains, record, fraction, width_floor=1e-3, **kw):
-        return _critical(spec, table, strains, record, fraction, width_floor)
+        return _critical(spec, table, strains, record, fraction, width_floor,
+                         self.cluster_specs(spec) if self.settings(spec)["polish"] else None)
 
     def strain_point(self, spec, model, record, mu, fraction, **kw):
         return _report(model, record, mu, fraction)
@@ -178,6 +181,14 @@ class ScaledStep:
     settings: dict
     flags: list = field(default_factory=list)
     floor: np.ndarray = None    # (P,) width floor in the model unit (width_floor x scale)
+
+    @property
+    def jump_lo(self) -> np.ndarray:
+        """Filling jumps at the edges: not defined for λ-extrapolated edges (NaN; each cluster's are in
+        ``records[cluster].detail``)."""
+        return np.full(len(self.computed), np.nan)
+
+    jump_hi = jump_lo
 
     @classmethod
     def build(cls, spec, s, models, computed, recs, fraction, width_floor):
@@ -267,6 +278,7 @@ def _critical_type():
             """Critical strain extrapolated in λ: every cluster's root, the fit, its standard error."""
 
             fit_error: float | None = None
+            resolution_error: float | None = None
             per_cluster: list = field(default_factory=list)   # [{"cluster", "lambda", "strain_c", "in_fit"}]
             fit: dict = field(default_factory=dict)
             alt_root: float | None = None
@@ -280,7 +292,7 @@ def _critical_type():
 
             def to_dict(self) -> dict:
                 d = super().to_dict()
-                d.update(fit_error=self.fit_error, per_cluster=self.per_cluster, fit=self.fit, alt_root=self.alt_root,
+                d.update(fit_error=self.fit_error, resolution_error=self.resolution_error, per_cluster=self.per_cluster, fit=self.fit, alt_root=self.alt_root,
                          form_difference=self.form_difference, resolution=self.resolution)
                 return d
 
@@ -312,7 +324,8 @@ def _critical_type():
                     return (f"{head}; no extrapolated critical strain ({why}; smallest λ-extrapolated width "
                             f"{c['value']:.3g} {self.unit} at strain {c['strain']:.4g})")
                 err = f"{self.fit_error:.2g}" if self.fit_error is not None else "n/a (two clusters: no fit error)"
-                s = f"{head}; extrapolated to λ → 1: critical strain {self.strain_c:.4g} ± {err} (fit)"
+                s = (f"{head}; extrapolated to λ → 1: critical strain {self.strain_c:.4g} ± {err} (fit) ± "
+                     f"{self.resolution_error:.2g} (per-cluster roots known to their strain brackets)")
                 if self.alt_root is not None:
                     s += f"; root of the λ-extrapolated width {self.alt_root:.4g} (difference {self.form_difference:.2g})"
                 if self.t_over_V_c is not None:
@@ -331,7 +344,9 @@ def __getattr__(name):
     raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
-def _critical(spec, table, strains, record, fraction, width_floor=1e-3) -> ScaledCritical:
+def _critical(spec, table, strains, record, fraction, width_floor=1e-3, polish=None):
+    """Critical strain of the cmf-scaled record (module notes). ``polish``: the clusters' cmf specs, to
+    polish every cluster's root with that cluster's own critical strain (brentq; costly on tri9, tri12)."""
     from ..cmf.scaling import fit_linear
     from ..qmc.scaling import first_sign_change
 
@@ -340,13 +355,31 @@ def _critical(spec, table, strains, record, fraction, width_floor=1e-3) -> Scale
     S = np.asarray(strains, float)[c]
     scale = np.array([m.scale for m in table.models(S)])
     floor = width_floor * scale
-    roots, pc = [], []
+    roots, sigs, pc = [], [], []
     for j, cl in enumerate(step.clusters):
         w = np.where(np.isfinite(step.per["width"][c, j]), step.per["width"][c, j], 0.0)
-        r = first_sign_change(S, w - floor)[0]
+        h = w - floor
+        r, i, k = first_sign_change(S, h)
+        # a closed plateau has width 0 (clipped), so the straight line between the last open and the first
+        # closed strain puts the root at the closed end; instead continue the last two open strains' line
+        # (exact for a width closing linearly), kept inside the bracket; the error stays the bracket's,
+        # uniform: (s_k - s_i)/sqrt(12)
+        sig = (S[k] - S[i]) / math.sqrt(12.0) if i is not None else math.nan
+        how = "linear between computed strains"
+        if i is not None and i >= 1 and h[i] > 0 and np.isfinite(h[i - 1]) and h[i - 1] > h[i]:
+            r = float(min(max(S[i] + h[i] * (S[i] - S[i - 1]) / (h[i - 1] - h[i]), S[i]), S[k]))
+            how = "line through the last two open strains, inside the bracket"
+        if polish is not None and i is not None:
+            sp = polish[j]
+            cr = sp.impl.strain_critical(sp, table, S, step.records[cl], fraction, width_floor=width_floor,
+                                         **{q: step.settings[q] for q in SEARCH})
+            if cr.strain_c is not None:
+                r, sig, how = cr.strain_c, cr.xtol, "brentq (cmf critical strain of the cluster)"
         roots.append(r)
+        sigs.append(sig)
         pc.append({"cluster": cl, "lambda": float(step.lam[j]), "lambda_text": step.lam_text[j],
-                   "strain_c": None if np.isnan(r) else r})
+                   "strain_c": None if np.isnan(r) else r, "resolution": None if np.isnan(sig) else sig,
+                   "root": how})
     roots = np.array(roots)
     mask = np.isfinite(roots)
     flags = []
@@ -355,11 +388,15 @@ def _critical(spec, table, strains, record, fraction, width_floor=1e-3) -> Scale
                      "not in the λ fit")
     for x, m in zip(pc, mask):
         x["in_fit"] = bool(m)
-    fit, sc, err = {}, None, None
+    fit, sc, err, rerr = {}, None, None, None
     if len(set(step.lam[mask])) >= 2:
         fit = fit_linear(step.lam[mask], roots[mask])
         sc = fit["extrapolated"]
         err = fit["extrapolated_err"] if np.isfinite(fit["extrapolated_err"]) else None
+        # the λ = 1 value is linear in the roots, sum_c g_c x_c: propagate every root's bracket error
+        X = np.stack([step.lam[mask], np.ones(mask.sum())], 1)
+        g = np.array([1.0, 1.0]) @ np.linalg.pinv(X)
+        rerr = float(np.sqrt(np.sum((g * np.array(sigs)[mask]) ** 2)))
     H = step.ext["width"][c] - floor
     alt, i0, _ = first_sign_change(S, H)
     alt = None if np.isnan(alt) else alt
@@ -386,7 +423,7 @@ def _critical(spec, table, strains, record, fraction, width_floor=1e-3) -> Scale
         status="found" if sc is not None else "none", strain_c=sc, roots=[sc] if sc is not None else [],
         bracket=None, xtol=res if res is not None else math.nan, direction=direction, closest=closest, strains=S,
         values=H, unit=table.unit, t_over_V_c=tv, flags=fl, evaluations=int(c.sum()) * len(step.clusters),
-        fit_error=err, per_cluster=pc, fit=fit, alt_root=alt, resolution=res)
+        fit_error=err, resolution_error=rerr, per_cluster=pc, fit=fit, alt_root=alt, resolution=res)
 
 
 # -- one-strain check -------------------------------------------------------------------------

@@ -119,18 +119,20 @@ def plot_plateau_edges(sweep) -> Figure:
             ax.fill_between(s, lo, hi, where=ok, color=colors[n], alpha=0.18, lw=0)
             ax.plot(s, lo, ls=ls, color=colors[n], marker=".", ms=3, label=_label(sweep, n))
             ax.plot(s, hi, ls=ls, color=colors[n], marker=".", ms=3)
-            for j, (lab, (klo, khi)) in enumerate(r.info.get("components", {}).items()):
+            for j, (lab, keys) in enumerate(r.info.get("components", {}).items()):
                 # a method built from several systems (cmf-scaled: every cluster) draws each one thin
-                ax.plot(s, r.order[klo], ls=_STYLES[(j + 1) % len(_STYLES)], color=colors[n], lw=0.6, alpha=0.55,
-                        marker=".", ms=2, label=lab)
-                ax.plot(s, r.order[khi], ls=_STYLES[(j + 1) % len(_STYLES)], color=colors[n], lw=0.6, alpha=0.55,
-                        marker=".", ms=2)
+                for key in keys:
+                    v = r.order[key]
+                    k = np.isfinite(v)
+                    ax.plot(s[k], v[k], ls=_STYLES[(j + 1) % len(_STYLES)], color=colors[n], lw=0.6, alpha=0.55,
+                            marker=".", ms=2, label=lab if key == keys[0] else None)
             if "mu_lo" in r.errors:  # statistical methods: one-sigma error bars, every computed strain
                 for edge in ("mu_lo", "mu_hi"):
                     v = getattr(r, edge)
                     k = np.isfinite(v)
                     ax.errorbar(s[k], v[k], yerr=r.errors[edge][k], fmt="none", ecolor=colors[n], elinewidth=0.7,
                                 capsize=1.5)
+                    ax.plot(s[k], v[k], ls=ls, color=colors[n], lw=0.9)  # joined across strains not computed
             c = sweep.critical[n]
             if c.in_band:
                 ax.plot([], [], color=colors[n], ls=":", lw=0.9, label=f"{n}: $s_c$ = {c.strain_c:.4g}")
