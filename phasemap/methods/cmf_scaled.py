@@ -64,6 +64,7 @@ class ClusterScaledMeanField(Method):
     title = "cluster mean field extrapolated in the cluster size (λ → 1)"
     capabilities = Capabilities(cluster=True, sharp_edges=True, error_bars=True)
     default_arg = "+".join(DEFAULT_CLUSTERS)
+    strain_local = False  # "every" subsampling along the whole path; the λ fit needs every cluster at a strain
     caution = ("cluster mean field extrapolated linearly in λ = N_B/(N_C z/2) to λ = 1: a heuristic form (no theorem "
                "fixes it); the fit error covers the scatter of the clusters, not the form, and on the triangular "
                "supersolid transition the same extrapolation still overshoots quantum Monte Carlo (docs/cmf.md)")
@@ -334,6 +335,8 @@ def _critical_type():
                     s += f" [{'; '.join(self.flags)}]"
                 return s
 
+        ScaledCritical.__qualname__ = "ScaledCritical"  # picklable as phasemap.methods.cmf_scaled.ScaledCritical
+        ScaledCritical.__module__ = __name__           # (module __getattr__ below), e.g. by the sweep's chunks
         _CRITICAL_TYPE = ScaledCritical
     return _CRITICAL_TYPE
 
