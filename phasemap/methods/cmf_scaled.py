@@ -303,7 +303,7 @@ def _critical_type():
 
                 pc = self.per_cluster
                 vals = np.array([np.nan if x["strain_c"] is None else x["strain_c"] for x in pc], float)
-                return ScalingResult("critical strain", f"critical strain ({self.method})", [x["cluster"] for x in pc],
+                return ScalingResult("critical strain", "critical strain", [x["cluster"] for x in pc],
                                      np.array([x["lambda"] for x in pc]), vals, self.fit, np.array([x["in_fit"] for x in pc]),
                                      list(pc))
 
