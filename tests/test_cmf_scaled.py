@@ -128,8 +128,11 @@ def test_sweep_critical_strain_is_the_fit_at_lambda_one_of_library_lambdas(tmp_p
     from phasemap.strain.sweep import strain_sweep
 
     tab = _closing_table()
-    sw = strain_sweep(tab, [MethodSpec.parse("cmf-scaled:3+6", every=1)], n_mu=41)
-    crit = sw.critical["cmf-scaled:3+6,every=1"]
+    # sqrt3 density-wave seeds only (the 1/3 solid and its competitors; the superfluid seed stays), no random seed
+    opts = {"patterns": ("sqrt3",), "n_random": 0}
+    spec = MethodSpec.parse("cmf-scaled:3+6", every=1, **opts)
+    sw = strain_sweep(tab, [spec], n_mu=41)
+    crit = sw.critical[spec.name]
     pc = {x["cluster"]: x for x in crit.per_cluster}
     assert set(pc) == {"tri3", "tri6"} and all(x["in_fit"] for x in pc.values())
     lam = np.array([float(DOC_LAMBDA[c]) for c in ("tri3", "tri6")])
@@ -142,8 +145,8 @@ def test_sweep_critical_strain_is_the_fit_at_lambda_one_of_library_lambdas(tmp_p
     from phasemap.strain.engine import locate_plateaus
 
     models = tab.models(sw.strains[:2])
-    ref = locate_plateaus(models, "1/3", MethodSpec.parse("cmf:tri6"), n_mu=49, tol=1e-3, sections=15)
-    rec = sw.records["cmf-scaled:3+6,every=1"]
+    ref = locate_plateaus(models, "1/3", MethodSpec.parse("cmf:tri6", **opts), n_mu=49, tol=1e-3, sections=15)
+    rec = sw.records[spec.name]
     np.testing.assert_allclose(rec.order["mu_hi_tri6"][:2], ref.mu_hi, atol=1e-12)
     paths = [p.name for p in sw.save(tmp_path / "out")]
     assert any(p.startswith("strain_critical_scaling_cmf_scaled") and p.endswith(".png") for p in paths)
