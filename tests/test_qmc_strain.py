@@ -298,3 +298,23 @@ def test_retry_repeats_undecorrelated_runs_with_more_sweeps(monkeypatch):
     seen.clear()
     step = qm.qmc_plateaus(models, MethodSpec.parse("qmc", sweeps=1500, retry=1))
     assert step.retried == 0 and np.all(np.isnan(step.per_size["width"][0]))
+
+
+def test_no_root_from_widths_compatible_with_zero():
+    """Regression (demo sweep with retry): the extrapolated width of a compressible state scatters
+    around 0 (-0.02 +- 0.13 at 0.13, +0.013 +- 0.12 at 0.14) and that sign change was reported as a
+    critical strain 0.1365 ('opens'). A sign change counts only when its positive side is a resolved
+    plateau (> 2 sigma); here none is, so the plateau closes below the first determined strain."""
+    from phasemap.strain.qmc_method import qmc_critical
+    from phasemap.strain.record import StepRecord
+
+    table = read_table("demo")
+    S = np.array([0.0, 0.04, 0.08, 0.10, 0.12, 0.13, 0.14, 0.16])
+    w = np.array([np.nan, np.nan, np.nan, -0.064, -0.049, -0.025, 0.013, 0.060])
+    step = _synthetic_step(w, 20.0, err=0.06)
+    err = np.full(len(S), 0.12)
+    rec = StepRecord("qmc", "1/3", True, w * 0, w, w, w > 0, np.isfinite(w), detail=step, flags=[[]] * len(S))
+    step.extrap["width_error"] = step.extrap_L["width_error"] = err
+    c = qmc_critical(None, table, S, rec, "1/3")
+    assert c.status == "none" and c.reason == "closed" and c.strain_c is None
+    assert "closes below strain 0.1" in c.summary()

@@ -165,7 +165,6 @@ def qmc_plateaus(models, spec, fraction="1/3", progress=None) -> QMCStep:
     Every ``every``-th strain (and the last) is measured first; with ``refine`` (default) the
     strains skipped inside the first sign change of the extrapolated width are measured too, so
     the critical strain is interpolated between neighbouring strains of the path."""
-    from ..qmc.scaling import first_sign_change
     from .engine import parse_fraction
 
     s = strain_settings(spec)
@@ -183,7 +182,7 @@ def qmc_plateaus(models, spec, fraction="1/3", progress=None) -> QMCStep:
     ext, extL = _extrapolations(per, sizes)
     if s["refine"] and every > 1:
         pc = np.flatnonzero(computed)
-        _, i, j = first_sign_change(pc, ext["width"][pc])
+        _, i, j = _significant_change(pc, ext["width"][pc], ext["width_error"][pc], 2.0)
         new = [q for q in range(pc[i] + 1, pc[j]) if not computed[q]] if i is not None else []
         if new:
             _measure(models, np.array(new), s, f, T, per, counter, flags)
@@ -354,10 +353,11 @@ def to_record(step: QMCStep, spec, fraction, nsigma: float = 2.0):
 class QMCCritical(CriticalResult):
     """Critical strain of qmc: root of the extrapolated width with statistical and finite-size errors.
 
-    ``reason`` says why there is no root when ``status == "none"``: ``"open"`` (the plateau is open
-    at every strain where its width was determined), ``"closed"`` (closed at every such strain: the
-    closing lies below the first of them), ``"undetermined"`` (fewer than two strains with a
-    width). ``undetermined`` lists the computed strains whose width is NaN (an edge or order
+    ``reason`` says why there is no root when ``status == "none"``: ``"open"`` (the plateau is
+    resolved, width > 2 sigma, at every strain where its width was determined), ``"closed"`` (at
+    none of them: the closing lies below the first), ``"unresolved"`` (resolved, then compatible
+    with zero, without a resolved sign change), ``"undetermined"`` (fewer than two strains with a
+    width). A sign change counts only when its positive side is a resolved plateau. ``undetermined`` lists the computed strains whose width is NaN (an edge or order
     value from a run that did not decorrelate: not measured, *not* "no plateau").
     """
 
@@ -395,15 +395,20 @@ class QMCCritical(CriticalResult):
         elif self.reason == "closed":
             first = float(S[ok][0])
             below = S[~ok & (S < first)]
-            s = (f"{head}: the extrapolated {self.fraction} plateau width is <= 0 at every computed strain where it "
-                 f"was determined (from strain {first:.4g}, width {H[ok][0]:.3g} {self.unit}): the plateau closes "
+            s = (f"{head}: the extrapolated {self.fraction} plateau width is not resolved (<= 2 sigma, compatible "
+                 f"with a closed plateau) at any computed strain where it was determined (from strain {first:.4g}, "
+                 f"width {H[ok][0]:.3g} {self.unit}): the plateau closes "
                  + (f"below strain {first:.4g}, where the width was not determined (strains "
                     f"{', '.join(f'{x:.4g}' for x in below)})" if len(below) else "at or before the start of the table"))
         elif self.reason == "open":
             c = self.closest
-            s = (f"{head}: the extrapolated {self.fraction} plateau width stays > 0 at every computed strain where it "
-                 f"was determined: it does not close inside the table (smallest {c['value']:.3g} {self.unit} at "
-                 f"strain {c['strain']:.4g})")
+            s = (f"{head}: the extrapolated {self.fraction} plateau width is resolved (> 2 sigma) at every computed "
+                 f"strain where it was determined: it does not close inside the table (smallest "
+                 f"{c['value']:.3g} {self.unit} at strain {c['strain']:.4g})")
+        elif self.reason == "unresolved":
+            s = (f"{head}: the extrapolated {self.fraction} plateau width falls from resolved (> 2 sigma) to values "
+                 "compatible with zero without a resolved sign change: no critical strain; run longer or larger "
+                 "(--qmc sweeps=... --qmc sizes=6+9+12)")
         else:
             s = (f"{head}: the {self.fraction} plateau width was determined at fewer than two computed strains "
                  "(runs not decorrelated, see flags): no critical strain; run longer (--qmc sweeps=...)")
@@ -420,6 +425,25 @@ class QMCCritical(CriticalResult):
         return s
 
 
+def _significant_change(S, H, E, nsigma):
+    """First sign change of the width H between defined strains whose positive side is a resolved
+    plateau (H > nsigma x its error): a sign change between values compatible with zero (the
+    extrapolated width of a compressible state scatters around 0) is noise, not a transition."""
+    from ..qmc.scaling import first_sign_change
+
+    H = np.asarray(H, float)
+    E = np.asarray(E, float)
+    while True:
+        r, i, j = first_sign_change(S, H)
+        if i is None:
+            return r, i, j
+        pos = i if H[i] > 0 else j
+        if H[pos] > nsigma * E[pos]:
+            return r, i, j
+        H = H.copy()
+        H[pos] = 0.0  # not a resolved plateau: counts as closed
+
+
 def qmc_critical(spec, table, strains, record, fraction, nboot: int = 400, nsigma: float = 2.0) -> QMCCritical:
     """Critical strain of the qmc record (module notes).
 
@@ -428,7 +452,7 @@ def qmc_critical(spec, table, strains, record, fraction, nboot: int = 400, nsigm
     "not measured", not "no plateau", so it is skipped and the root is interpolated between the
     nearest defined neighbours (the strains skipped are listed in ``undetermined`` and named in
     the summary)."""
-    from ..qmc.scaling import combine_crossings, crossings, extrapolate, first_sign_change
+    from ..qmc.scaling import combine_crossings, crossings, extrapolate
 
     step: QMCStep = record.detail
     c = step.computed
@@ -436,8 +460,9 @@ def qmc_critical(spec, table, strains, record, fraction, nboot: int = 400, nsigm
     per = {k: v[c] for k, v in step.per_size.items()}
     Ns = np.array([L * L for L in step.sizes], float)
     H = np.asarray(record.width, float)[c]
-    sc, i0, j0 = first_sign_change(S, H)
-    scL = first_sign_change(S, step.extrap_L["width"][c])[0]
+    E = np.asarray(step.extrap["width_error"], float)[c]
+    sc, i0, j0 = _significant_change(S, H, E, nsigma)
+    scL = _significant_change(S, step.extrap_L["width"][c], step.extrap_L["width_error"][c], nsigma)[0]
     sc = None if not np.isfinite(sc) else sc
     scL = None if not np.isfinite(scL) else scL
     rng = np.random.default_rng(int(step.settings["seed"]))
@@ -446,7 +471,7 @@ def qmc_critical(spec, table, strains, record, fraction, nboot: int = 400, nsigm
         w = per["width"] + per["width_error"] * rng.standard_normal(per["width"].shape)
         h = np.array([extrapolate(Ns, w[p], np.maximum(per["width_error"][p], 1e-12))["value"]
                       if np.all(np.isfinite(w[p])) else np.nan for p in range(len(S))])
-        r = first_sign_change(S, h)[0]
+        r = _significant_change(S, h, E, nsigma)[0]
         if np.isfinite(r):
             draws.append(r)
     stat = float(np.std(draws)) if len(draws) > 1 else None
@@ -473,7 +498,9 @@ def qmc_critical(spec, table, strains, record, fraction, nboot: int = 400, nsigm
         direction = "closes with increasing strain" if H[i0] > 0 else "opens with increasing strain"
     else:
         direction = ""
-        reason = ("undetermined" if finite.sum() < 2 else "open" if np.all(H[finite] > 0) else "closed")
+        sig = H[finite] > nsigma * E[finite]
+        reason = ("undetermined" if finite.sum() < 2 else "open" if np.all(sig) else "closed" if not np.any(sig)
+                  else "unresolved")
     strain_c = sc if status == "found" else (0.5 * (bracket[0] + bracket[1]) if bracket else None)
     tv = float(table.ratio(strain_c)[0]) if strain_c is not None else None
     return QMCCritical(method=record.method, fraction=fraction, criterion="width (L -> inf)", status=status,
