@@ -13,7 +13,8 @@ extrapolated to :math:`\lambda = 1` with the standard error of the fit
 
 Critical strain: every cluster's plateau-closing strain on the computed strains (the line through
 the last two open strains continued to the width floor, kept inside the bracket of the first closed
-strain; or, with ``polish=True``, that cluster's own cmf critical strain by brentq), then these roots
+strain; by default (``polish=True``) then replaced by that cluster's own cmf critical strain by brentq,
+since a first-order closing pins every cluster to the same bracket end), then these roots
 extrapolated linearly in λ to λ = 1. Errors: the fit's standard error (residuals; undefined for
 two clusters) and the brackets' error ((s_closed - s_open)/sqrt(12) per cluster, propagated through
 the fit weights at λ = 1). Beside it: the root of the λ-extrapolated width along the strain (a
@@ -106,7 +107,7 @@ class ClusterScaledMeanField(Method):
         """(clusters, every, search settings, cmf options) of a spec, validated."""
         d = self.options(spec.option_dict)
         s = {"clusters": d.pop("clusters", DEFAULT_CLUSTERS), "every": d.pop("every", 2),
-             "polish": bool(d.pop("polish", False)), **{k: d.pop(k, v) for k, v in SEARCH.items()}}
+             "polish": bool(d.pop("polish", True)), **{k: d.pop(k, v) for k, v in SEARCH.items()}}
         for k in ("every", "n_mu", "sections"):
             if not (isinstance(s[k], (int, np.integer)) and s[k] >= (3 if k == "n_mu" else 1)):
                 raise ConfigError(f"cmf-scaled {k}: expected an integer >= {3 if k == 'n_mu' else 1}, got {s[k]!r}")
@@ -375,7 +376,7 @@ def _critical(spec, table, strains, record, fraction, width_floor=1e-3, polish=N
         if polish is not None and i is not None:
             sp = polish[j]
             cr = sp.impl.strain_critical(sp, table, S, step.records[cl], fraction, width_floor=width_floor,
-                                         **{q: step.settings[q] for q in SEARCH})
+                                         **{q: step.settings[q] for q in SEARCH if q != "sections"})
             if cr.strain_c is not None:
                 r, sig, how = cr.strain_c, cr.xtol, "brentq (cmf critical strain of the cluster)"
         roots.append(r)
