@@ -157,7 +157,7 @@ def _cli_kill(args, ck, min_chunks=1, while_paused=None, ready=None):
 
 
 def _resume_in_process(args, stamps, monkeypatch, capsys):
-    """Run ``phasemap ARGS --resume`` in this process, recording every chunk it saves: none of the
+    """Run ``phasemap ARGS --resume`` in this process, noting every chunk it saves: none of the
     chunks finished before the kill may be saved again (that would be a recomputation), and those
     files stay untouched until the finished result removes the checkpoint."""
     from phasemap.cli import main
