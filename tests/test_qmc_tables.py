@@ -65,3 +65,24 @@ def test_binning_tau_ar1_and_flag():
     assert not short.decorrelated
     white = estimate([eps[:, None]], bins=40)
     assert abs(white.tau - 0.5) < 0.1 and white.decorrelated
+
+
+def test_chains_frozen_in_different_sectors_are_flagged():
+    # Two chains stuck at different particle numbers (40 and 41 on a 9x9 torus at half filling): every
+    # chain's own series is constant, so binning alone sees error 0 growth-free bins and no autocorrelation;
+    # the chains' disagreement must flag the run (between-chain check, Gelman & Rubin, Statist. Sci. 7,
+    # 457 (1992)). Independent chains of one stationary process must not be flagged.
+    frozen = [np.full((4000, 1), 40.0), np.full((4000, 1), 41.0)]
+    e = estimate(frozen, bins=16)
+    assert e.value == 40.5 and not e.decorrelated
+    # chains frozen at different values of a fluctuating-looking quantity: each chain white noise
+    # around its own mean (shift 10 sigma of a chain mean) -> flagged too
+    rng = np.random.default_rng(3)
+    shifted = [rng.normal(0.0, 1.0, (4000, 1)), rng.normal(0.16, 1.0, (4000, 1))]
+    assert not estimate(shifted, bins=16).decorrelated
+    # 200 runs of 4 independent white-noise chains: agreement expected (tail probability 1e-6 per run)
+    flagged = sum(not estimate([rng.normal(size=(2000, 1)) for _ in range(4)], bins=16).decorrelated
+                  for _ in range(200))
+    assert flagged <= 2
+    same = [np.full((1000, 1), 12.0), np.full((1000, 1), 12.0)]  # one frozen value in every chain: a real gap
+    assert estimate(same, bins=8).decorrelated

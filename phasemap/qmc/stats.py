@@ -11,7 +11,15 @@ For an estimator ``f(<x_1>, ..., <x_k>)`` of per-sweep series ``x`` (all chains 
   uncorrelated sweeps);
 * the run is **not decorrelated** for ``f`` when the error still grows with bin length —
   ``sigma_L / sigma_{L/2} - 1`` exceeds twice the relative statistical uncertainty of
-  ``sigma_L`` (``1/sqrt(2 (n_bins - 1))``) — or when a bin is shorter than 8 ``tau_int``.
+  ``sigma_L`` (``1/sqrt(2 (n_bins - 1))``) — or when a bin is shorter than 8 ``tau_int`` —
+  or, with several chains, when the chains disagree: every chain's own estimate and binning
+  error give ``chi^2 = sum_c (f_c - fbar)^2 / sigma_c^2`` (``fbar`` the error-weighted mean),
+  and a chi-square tail probability below ``CHAIN_P`` = 1e-6 with ``n_chains - 1`` degrees of
+  freedom (or chains that differ while their own errors vanish: each chain frozen at its own
+  value, e.g. stuck in different particle-number sectors) flags the run (a between-chain check
+  in the spirit of A. Gelman and D. B. Rubin, Statist. Sci. 7, 457 (1992)). A single chain whose
+  series never changes has error 0 and is not flagged: a frozen quantity inside a gapped plateau
+  is physics, and one chain cannot tell it from a frozen sampler — run several chains.
 
 References: H. Flyvbjerg and H. G. Petersen, J. Chem. Phys. 91, 461 (1989) (blocking);
 B. Efron, *The Jackknife, the Bootstrap and Other Resampling Plans* (SIAM, 1982);
@@ -95,7 +103,28 @@ def estimate(series: list[np.ndarray], bins: int, f=None) -> Estimate:
         ok = False
     if not np.isfinite(err):
         ok = False
+    if len(series) > 1 and not _chains_agree(series, L, f):
+        ok = False
     return Estimate(float(value), float(err), float(tau), ok)
+
+
+#: Tail probability below which independent chains are taken to disagree (module notes).
+CHAIN_P = 1e-6
+
+
+def _chains_agree(series: list[np.ndarray], L: int, f) -> bool:
+    """Do the chains' own estimates agree within their own binning errors (module notes)?"""
+    from scipy.stats import chi2
+
+    est = np.array([_jackknife(bin_means([x], L), f) for x in series])
+    v, e = est[:, 0], est[:, 1]
+    if not np.all(np.isfinite(v)) or np.ptp(v) <= 1e-12 * max(1.0, float(np.max(np.abs(v)))):
+        return True
+    if np.any(~np.isfinite(e)) or np.any(e <= 0):
+        return False  # chains that differ while (some of) their own errors vanish: frozen at different values
+    w = 1.0 / e**2
+    vbar = np.sum(w * v) / np.sum(w)
+    return bool(chi2.sf(np.sum(w * (v - vbar) ** 2), len(v) - 1) >= CHAIN_P)
 
 
 def vector_estimate(bins_list: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
