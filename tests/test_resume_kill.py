@@ -76,29 +76,15 @@ def _kill_and_resume(tmp_path, text, name, min_chunks=2):
     ref = run(load_config(cfg), out=tmp_path / "ref", progress=False, log=lambda s: None, executor="serial")
     out = tmp_path / "out"
     ck = out / CHECKPOINT_DIR / name
-    cmd = [sys.executable, "-m", "phasemap", "run", str(cfg), "--out", str(out), "--quiet", "--executor", "serial"]
-    proc = subprocess.Popen(cmd, env=_env(), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-    try:
-        t0 = time.monotonic()
-        while len(list(ck.glob("chunk_*.npz"))) < min_chunks:
-            assert proc.poll() is None, f"finished before it could be killed: {proc.stderr.read()}"
-            assert time.monotonic() - t0 < 600
-            time.sleep(0.02)
-        proc.send_signal(signal.SIGKILL)
-        proc.wait(60)
-    finally:
-        if proc.poll() is None:
-            proc.kill()
-            proc.wait(60)
-    finished = sorted(p.name for p in ck.glob("chunk_*.npz"))
-    stamps = {p: (ck / p).stat().st_mtime_ns for p in finished}
+    killed = _cli_kill(["run", cfg, "--out", out, "--quiet", "--executor", "serial"], ck, min_chunks)
+    stamps = {p.name: t for p, t in killed.items()}
+    finished = sorted(stamps)
     assert finished and not (out / f"{name}.nc").exists()
     # a changed configuration is refused, naming what changed
     changed = tmp_path / "changed" / f"{name}.toml"
     changed.parent.mkdir()
     changed.write_text(text.replace("t = 0.1", "t = 0.12"))
-    r = subprocess.run([sys.executable, "-m", "phasemap", "run", str(changed), "--out", str(out), "--resume",
-                        "--quiet"], env=_env(), capture_output=True, text=True, timeout=600)
+    r = _phasemap("run", changed, "--out", out, "--resume", "--quiet", timeout=600)
     assert r.returncode == 2 and "model.t" in r.stderr, r.stderr
     # resume: the finished chunks are taken, not recomputed (files untouched), result identical
     seen = {}
