@@ -74,6 +74,38 @@ class SerialExecutor(Executor):
             yield key, fn(task)
 
 
+def _exit_with_parent(parent: int, interval: float = 0.5) -> None:
+    """Worker initializer: a daemon thread ends this worker as soon as its parent process is gone.
+
+    A pool worker blocks on its task queue; when the parent is killed with SIGKILL the queue's
+    write end stays open in the sibling workers (fork), so the workers would wait for ever
+    (seen: forked Monte Carlo workers of a killed ``strain-sweep`` asleep 20 min later). The
+    parent id changes to the reaper's when the parent dies; then the worker exits at once.
+    """
+    import threading
+    import time
+
+    def watch():
+        while os.getppid() == parent:
+            time.sleep(interval)
+        os._exit(1)
+
+    threading.Thread(target=watch, name="exit-with-parent", daemon=True).start()
+
+
+def process_pool(workers: int, context: str = "spawn"):
+    """A ``concurrent.futures`` process pool whose workers exit when this process dies.
+
+    Every local pool of phasemap is made here (:class:`ProcessExecutor`, the chains of one
+    Monte Carlo run), so no worker outlives a killed job.
+    """
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor
+
+    return ProcessPoolExecutor(workers, mp_context=mp.get_context(context), initializer=_exit_with_parent,
+                               initargs=(os.getpid(),))
+
+
 class ProcessExecutor(Executor):
     """Local worker processes (``concurrent.futures``, spawn start method)."""
 
@@ -86,10 +118,7 @@ class ProcessExecutor(Executor):
 
     def _get(self):
         if self._pool is None:
-            import multiprocessing as mp
-            from concurrent.futures import ProcessPoolExecutor
-
-            self._pool = ProcessPoolExecutor(self.workers, mp_context=mp.get_context(self.context))
+            self._pool = process_pool(self.workers, self.context)
         return self._pool
 
     def imap_unordered(self, fn, tasks):

@@ -5,6 +5,10 @@ Source: common practice, no source (software-behaviour checks; the physics of th
 is checked elsewhere). The serial run is the independent reference.
 """
 
+import os
+import sys
+import time
+
 import numpy as np
 import pytest
 import xarray as xr
@@ -139,3 +143,50 @@ def test_qmc_runs_identical_on_every_executor(tmp_path):
                                 **dict(kw, seed=6)).to_dict()  # taken from the store: seed 6 never ran
     assert again.pop("settings")["seed"] == 6
     assert again == {k: v for k, v in ref.items() if k != "settings"}
+
+
+_ORPHAN_SCRIPT = """
+import sys, time
+from phasemap.executor import process_pool
+pool = process_pool(2, sys.argv[1])
+futs = [pool.submit(time.sleep, 120) for _ in range(2)]
+while len(pool._processes) < 2:
+    time.sleep(0.05)
+time.sleep(1.0)  # the workers have run their initializer
+print(" ".join(str(p) for p in pool._processes), flush=True)
+time.sleep(120)
+"""
+
+
+def _alive(pid: int) -> bool:
+    try:
+        with open(f"/proc/{pid}/stat") as fh:
+            return fh.read().rsplit(")", 1)[1].split()[0] != "Z"  # a zombie has exited
+    except FileNotFoundError:
+        return False
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
+@pytest.mark.parametrize("context", ["fork", "spawn"])
+def test_pool_workers_exit_when_the_parent_is_killed(context):
+    # a job killed with SIGKILL must not leave its worker processes behind (they used to wait for
+    # ever on their task queue); planted: no initializer -> the workers are still alive after 10 s
+    import signal
+    import subprocess
+
+    proc = subprocess.Popen([sys.executable, "-c", _ORPHAN_SCRIPT, context], stdout=subprocess.PIPE, text=True)
+    try:
+        workers = [int(p) for p in proc.stdout.readline().split()]
+        assert len(workers) == 2 and all(_alive(p) for p in workers)
+        proc.send_signal(signal.SIGKILL)
+        proc.wait(30)
+        t0 = time.monotonic()
+        while any(_alive(p) for p in workers) and time.monotonic() - t0 < 10:
+            time.sleep(0.1)
+        left = [p for p in workers if _alive(p)]
+        for p in left:
+            os.kill(p, signal.SIGKILL)
+        assert not left, f"workers {left} outlived their killed parent"
+    finally:
+        if proc.poll() is None:
+            proc.kill()

@@ -179,11 +179,9 @@ def _chain_entry(job):
 def _run_chains(jobs: list[dict], workers: int) -> list[dict]:
     if workers <= 1 or len(jobs) == 1:
         return [_chain(j) for j in jobs]
-    import multiprocessing as mp
-    from concurrent.futures import ProcessPoolExecutor
+    from ..executor import process_pool
 
-    ctx = mp.get_context("spawn" if os.name == "nt" else "fork")
-    with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as ex:
+    with process_pool(workers, "spawn" if os.name == "nt" else "fork") as ex:
         return list(ex.map(_chain_entry, jobs))
 
 
