@@ -4,24 +4,18 @@ import tomllib
 from pathlib import Path
 
 import pytest
+from _toml_configs import config
 
 from phasemap import ConfigError
 from phasemap.config import dumps_toml, load_config, parse_config
 
 ROOT = Path(__file__).resolve().parents[1]
 
-GOOD = """
-[model]
-lattice = "triangular"
-t = 0.1
-V = 1.0
-U = "hardcore"
-
-[scan]
+GOOD = config("""
 kind = "map"
 x = {name = "t", start = 0.0, stop = 0.3, num = 4}
 y = {name = "mu", start = -1.0, stop = 7.0, num = 5}
-"""
+""", figures=None)
 
 
 def _parse(text):

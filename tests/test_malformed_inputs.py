@@ -9,24 +9,11 @@ import stat
 from pathlib import Path
 
 import pytest
+from _toml_configs import CURVE5
 
 from phasemap.cli import main
 
-GOOD_CFG = """
-[model]
-lattice = "triangular"
-t = 0.1
-V = 1.0
-U = "hardcore"
-
-[scan]
-kind = "curve"
-x = {name = "mu", start = 0.0, stop = 4.0, num = 5}
-refine = false
-
-[output]
-figures = false
-"""
+GOOD_CFG = CURVE5
 
 SOFT_CFG = GOOD_CFG.replace('U = "hardcore"', "U = 1.0\nn_max = NMAX").replace('lattice = "triangular"',
                                                                                 'lattice = "square"')
@@ -209,11 +196,11 @@ def test_byte_order_mark_is_accepted_in_configs(tmp_path):
 
 
 def test_resume_refusal_names_the_changed_field(tmp_path, capsys):
+    import tomllib
+
     from phasemap.config import parse_config
     from phasemap.runner import checkpoint_params
     from phasemap.store import ChunkStore
-
-    import tomllib
 
     doc = tomllib.loads(GOOD_CFG.replace('kind = "curve"', 'kind = "map"').replace(
         "refine = false", 'y = {name = "t", start = 0.0, stop = 0.2, num = 3}\nrefine = false'))

@@ -14,27 +14,14 @@ import time
 from pathlib import Path
 
 import pytest
+from _toml_configs import CURVE5
 
 from phasemap.model import ConfigError
 from phasemap.store import LOCK_NAME, output_lock
 
 ROOT = Path(__file__).resolve().parents[1]
 
-CFG = """
-[model]
-lattice = "triangular"
-t = 0.1
-V = 1.0
-U = "hardcore"
-
-[scan]
-kind = "curve"
-x = {name = "mu", start = 0.0, stop = 4.0, num = 5}
-refine = false
-
-[output]
-figures = false
-"""
+CFG = CURVE5
 
 HOLDER = """
 import sys, time

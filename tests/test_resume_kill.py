@@ -15,6 +15,7 @@ from pathlib import Path
 
 import pytest
 import xarray as xr
+from _toml_configs import config
 
 from phasemap.config import load_config
 from phasemap.runner import CHECKPOINT_DIR, run
@@ -22,40 +23,20 @@ from phasemap.store import load_netcdf
 
 ROOT = Path(__file__).resolve().parents[1]
 
-MAP = """
-[model]
-lattice = "triangular"
-t = 0.1
-V = 1.0
-U = "hardcore"
-
-[scan]
+MAP = config("""
 kind = "map"
 x = {name = "t", start = 0.0, stop = 0.5, num = 121}
 y = {name = "mu", start = -1.0, stop = 7.0, num = 161}
 refine = false
 chunk = 600
+""")
 
-[output]
-figures = false
-"""
-
-CURVE = """
-[model]
-lattice = "triangular"
-t = 0.1
-V = 1.0
-U = "hardcore"
-
-[scan]
+CURVE = config("""
 kind = "curve"
 method = "cmf:tri3"
 x = {name = "mu", start = -1.0, stop = 7.0, num = 256}
 refine = false
-
-[output]
-figures = false
-"""
+""")
 
 
 def _env():
