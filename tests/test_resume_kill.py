@@ -155,6 +155,32 @@ def _second_writer_refused(args):
     return check
 
 
+def _job_killed_and_resumed(tmp_path, monkeypatch, capsys, args, ck_name, min_chunks, changed, field, unit, result,
+                            files, ready=None):
+    """The whole kill-and-resume story of one CLI job writing ``files``: reference run; the job killed
+    after ``min_chunks`` chunks (a second writer refused meanwhile); rerun without ``--resume``
+    refused; rerun with ``changed`` arguments refused naming ``field``; resume in this process
+    recomputes no finished chunk ("resuming, K finished <unit>"), writes ``result`` (absent before),
+    gives the reference text ``files`` and removes the checkpoint. Returns (out, ref, stamps)."""
+    ref, out = tmp_path / "ref", tmp_path / "out"
+    r = _phasemap(*args, "--out", ref)
+    assert r.returncode == 0, r.stderr
+    ck = out / CHECKPOINT_DIR / ck_name
+    stamps = _cli_kill([*args, "--out", out], ck, min_chunks, _second_writer_refused([*args, "--out", out, "--resume"]),
+                       ready=ready)
+    assert stamps and not (out / result).exists()
+    r = _phasemap(*args, "--out", out)
+    assert r.returncode == 2 and "--resume" in r.stderr, r.stderr  # an unfinished run is not silently reused
+    r = _phasemap(*changed, "--out", out, "--resume")
+    assert r.returncode == 2 and field in r.stderr, r.stderr
+    err = _resume_in_process([*args, "--out", out], stamps, monkeypatch, capsys)
+    assert f"resuming, {len(stamps)} finished {unit}" in err
+    for f in files:
+        assert (out / f).read_text() == (ref / f).read_text(), f
+    assert (out / result).exists() and not ck.exists()
+    return out, ref, stamps
+
+
 @pytest.mark.slow
 def test_strain_sweep_killed_and_resumed(tmp_path, monkeypatch, capsys):
     demo = (ROOT / "phasemap" / "data" / "strain_demo.csv").read_text()
@@ -162,46 +188,23 @@ def test_strain_sweep_killed_and_resumed(tmp_path, monkeypatch, capsys):
     table.write_text(demo)
     args = ["strain-sweep", table, "--methods", "mf", "--n-strain", "9", "--n-mu", "61", "--no-figures", "--quiet",
             "--executor", "serial"]
-    ref = _phasemap(*args, "--out", tmp_path / "ref")
-    assert ref.returncode == 0, ref.stderr
-    out = tmp_path / "out"
-    ck = out / CHECKPOINT_DIR / "sweep"
-    stamps = _cli_kill([*args, "--out", out], ck, 2, _second_writer_refused([*args, "--out", out, "--resume"]))
-    assert stamps and not (out / "sweep.nc").exists()
-    r = _phasemap(*args, "--out", out)
-    assert r.returncode == 2 and "--resume" in r.stderr, r.stderr  # an unfinished run is not silently reused
     changed = tmp_path / "changed" / "table.csv"
     changed.parent.mkdir()
     changed.write_text(demo.replace("0.04,0.8272,0.7084,0.7084,5.6472", "0.04,0.8272,0.7084,0.7084,5.6400"))
-    r = _phasemap(*[changed if a == table else a for a in args], "--out", out, "--resume")
-    assert r.returncode == 2 and "table.rows.strain=0.04.V_d1" in r.stderr, r.stderr
-    err = _resume_in_process([*args, "--out", out], stamps, monkeypatch, capsys)
-    assert f"resuming, {len(stamps)} finished chunk(s)" in err
-    assert not ck.exists()
-    xr.testing.assert_identical(load_netcdf(out / "sweep.nc"), load_netcdf(tmp_path / "ref" / "sweep.nc"))
-    for f in ("plateau.csv", "critical.csv"):
-        assert (out / f).read_text() == (tmp_path / "ref" / f).read_text()
+    out, ref, stamps = _job_killed_and_resumed(
+        tmp_path, monkeypatch, capsys, args, "sweep", 2, [changed if a == table else a for a in args],
+        "table.rows.strain=0.04.V_d1", "chunk(s)", "sweep.nc", ["plateau.csv", "critical.csv"])
+    assert len(stamps) >= 2
+    xr.testing.assert_identical(load_netcdf(out / "sweep.nc"), load_netcdf(ref / "sweep.nc"))
 
 
 @pytest.mark.slow
 def test_cluster_scaling_killed_and_resumed(tmp_path, monkeypatch, capsys):
     args = ["cluster-scaling", "--lattice", "square", "--U", "1", "--n-max", "3", "--t", "0.01",
             "--quantity", "lobe-tip", "--clusters", "sq1,sq2-sd,sq2x1", "--quiet", "--executor", "serial"]
-    ref = _phasemap(*args, "--out", tmp_path / "ref")
-    assert ref.returncode == 0, ref.stderr
-    out = tmp_path / "out"
-    ck = out / CHECKPOINT_DIR / "scaling"
-    stamps = _cli_kill([*args, "--out", out], ck, 1, _second_writer_refused([*args, "--out", out, "--resume"]))
-    assert stamps and not (out / "scaling.json").exists()
-    r = _phasemap(*args, "--out", out)
-    assert r.returncode == 2 and "--resume" in r.stderr, r.stderr  # an unfinished run is not silently reused
-    r = _phasemap(*[a if a != "0.01" else "0.02" for a in args], "--out", out, "--resume")
-    assert r.returncode == 2 and "model.t" in r.stderr, r.stderr
-    err = _resume_in_process([*args, "--out", out], stamps, monkeypatch, capsys)
-    assert f"resuming, {len(stamps)} finished cluster(s)" in err
-    assert (out / "scaling.json").read_text() == (tmp_path / "ref" / "scaling.json").read_text()
-    assert (out / "scaling.csv").read_text() == (tmp_path / "ref" / "scaling.csv").read_text()
-    assert not ck.exists()
+    _job_killed_and_resumed(tmp_path, monkeypatch, capsys, args, "scaling", 1,
+                            [a if a != "0.01" else "0.02" for a in args], "model.t", "cluster(s)",
+                            "scaling.json", ["scaling.json", "scaling.csv"])
 
 
 @pytest.mark.slow
@@ -211,23 +214,11 @@ def test_qmc_scaling_killed_and_resumed(tmp_path, monkeypatch, capsys):
     # run, continues the chain from its checkpoint, and gives the uninterrupted numbers
     args = ["qmc-scaling", "--t", "0.1", "--V", "1", "--mu", "3", "--sizes", "3,6", "--T", "0.3", "--sweeps",
             "100000", "--quiet", "--executor", "serial"]
-    ref = _phasemap(*args, "--out", tmp_path / "ref")
-    assert ref.returncode == 0, ref.stderr
-    out = tmp_path / "out"
-    ck = out / CHECKPOINT_DIR / "qmc"
-    chain = ck / "inner" / "1"
-    stamps = _cli_kill([*args, "--out", out], ck, 1, _second_writer_refused([*args, "--out", out, "--resume"]),
-                       ready=lambda: any(chain.glob("*.npz")))
-    assert list(stamps) == [ck / "chunk_00000.npz"] and not (out / "scaling.json").exists()
-    r = _phasemap(*args, "--out", out)
-    assert r.returncode == 2 and "--resume" in r.stderr, r.stderr
-    r = _phasemap(*[a if a != "0.3" else "0.31" for a in args], "--out", out, "--resume")
-    assert r.returncode == 2 and "runs.T" in r.stderr, r.stderr
-    err = _resume_in_process([*args, "--out", out], stamps, monkeypatch, capsys)
-    assert "resuming, 1 finished run(s)" in err
-    for f in ("scaling.json", "scaling.csv"):
-        assert (out / f).read_text() == (tmp_path / "ref" / f).read_text()
-    assert not ck.exists()
+    chain = tmp_path / "out" / CHECKPOINT_DIR / "qmc" / "inner" / "1"
+    _, _, stamps = _job_killed_and_resumed(tmp_path, monkeypatch, capsys, args, "qmc", 1,
+                                           [a if a != "0.3" else "0.31" for a in args], "runs.T", "run(s)",
+                                           "scaling.json", ["scaling.json", "scaling.csv"], ready=lambda: any(chain.glob("*.npz")))
+    assert [p.name for p in stamps] == ["chunk_00000.npz"]
 
 
 @pytest.mark.slow
