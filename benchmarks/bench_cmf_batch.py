@@ -43,7 +43,30 @@ def load() -> str:
     return "load %.2f %.2f %.2f" % os.getloadavg()
 
 
-def part_map(n: int = 100, sample: int = 100) -> None:
+_MAP_SAMPLE = """
+import os, sys, time
+import numpy as np
+import phasemap
+from phasemap import Model
+from phasemap.cmf import solve_cmf_batch
+from phasemap.params import grid
+n, sample = int(sys.argv[1]), int(sys.argv[2])
+m = Model("triangular", t=0.6, V=(10.0, 10.0, 8.5), mu=0.0, unit="K")
+batch, _ = grid(m, {"t": np.linspace(0, 0.4, n), "mu": np.linspace(-1, 7, n)}, relative=True)
+solve_cmf_batch(batch.take(np.arange(4)), cluster="tri3")  # operators, imports
+sub = batch.take(np.sort(np.random.default_rng(0).choice(batch.size, sample, replace=False)))
+t0 = time.perf_counter()
+r = solve_cmf_batch(sub, cluster="tri3")
+assert phasemap.__file__.startswith(os.environ["PYTHONPATH"]), phasemap.__file__  # the old tree, not this checkout
+print(time.perf_counter() - t0)
+"""
+
+
+def part_map(n: int = 100, sample: int = 100, old_ref: str | None = "e2c8c8a^") -> None:
+    """The batched map against the per-point path of today (``engine="point"``) and, side by side,
+    against the per-point path of ``old_ref`` (default: the parent of the commit that added the
+    batched engine, i.e. the per-point path the issue measured), run in a subprocess on the same
+    sample of points."""
     from phasemap import Model
     from phasemap.api import select_winners
     from phasemap.cmf import solve_cmf_batch
@@ -64,15 +87,30 @@ def part_map(n: int = 100, sample: int = 100) -> None:
     rp = solve_cmf_batch(sub, cluster="tri3", engine="point")
     tp = time.perf_counter() - t0
     print(f"[map] per-point path: {sample} sampled points in {tp:.2f} s = {1e3 * tp / sample:.1f} ms/point; {load()}")
-    print(f"[map] speed-up per point: {tp / sample / (tb / batch.size):.0f}x; "
+    print(f"[map] speed-up per point: {tp / sample / (tb / batch.size):.0f}x over today's per-point path; "
           f"estimated per-point path for the whole map: {tp / sample * batch.size:.0f} s")
+    if old_ref:
+        tree = _old_tree(old_ref)  # run from that folder: "python -c" puts the working directory first
+        out = subprocess.run([sys.executable, "-c", _MAP_SAMPLE, str(n), str(sample)], capture_output=True, text=True,
+                             env=dict(os.environ, PYTHONPATH=tree), cwd=tree)
+        if out.returncode:
+            print(f"[map] per-point path of {old_ref}: FAILED\n{out.stderr[-2000:]}")
+        else:
+            to = float(out.stdout.split()[-1])
+            print(f"[map] per-point path of {old_ref} (before the batched engine): {sample} sampled points in "
+                  f"{to:.2f} s = {1e3 * to / sample:.1f} ms/point; speed-up per point "
+                  f"{to / sample / (tb / batch.size):.0f}x; {load()}")
     kb, okb, _, phb, _, _ = select_winners(rb)
     kp, okp, _, php, _, _ = select_winners(rp)
     eb = rb.energy[idx, kb[idx]]
     ep = rp.energy[np.arange(sample), kp]
     both = okb[idx] & okp
-    print(f"[map] sample: same phase at {np.mean(phb[idx] == php):.3f} of the points; winning energies "
-          f"max |dE| = {np.abs(eb - ep)[both].max():.2e} over {both.sum()} points converged in both")
+    d = (eb - ep)[both]
+    print(f"[map] sample: same phase at {np.mean(phb[idx] == php):.3f} of the points; winning energies equal "
+          f"(1e-9) at {np.sum(np.abs(d) <= 1e-9)} of {both.sum()} points converged in both, batched lower at "
+          f"{np.sum(d < -1e-9)} (max {max(0.0, -d.min()):.2e}), per-point lower at {np.sum(d > 1e-9)} (max "
+          f"{max(0.0, d.max()):.2e}); the per-point path continues from the previous sampled point, far away "
+          f"in a random sample, so it can reach other fixed points")
 
 
 def run_cli(args: list[str], path: str | None = None, keep: str | None = None):
@@ -168,9 +206,11 @@ def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     p.add_argument("--only", choices=("map", "cli", "line", "sweep", "check"))
     p.add_argument("--old-ref", default="5e8036e", help="git revision of the old path for 'cli' ('' to skip)")
+    p.add_argument("--old-map-ref", default="e2c8c8a^",
+                   help="git revision of the old per-point path for 'map' ('' to skip)")
     a = p.parse_args(argv)
     print(f"{os.cpu_count()} CPUs; {load()}")
-    for name, fn in (("map", part_map), ("line", part_line), ("cli", lambda: part_cli(old_ref=a.old_ref or None))):
+    for name, fn in (("map", lambda: part_map(old_ref=a.old_map_ref or None)), ("line", part_line), ("cli", lambda: part_cli(old_ref=a.old_ref or None))):
         if a.only in (None, name):
             fn()
     if a.only == "sweep":
