@@ -75,10 +75,10 @@ _SCRIPT = textwrap.dedent("""
     import json, sys
     from phasemap import Model
     from phasemap.qmc import run_qmc
-    m = Model("triangular", t=0.2, V=1.0, mu=2.0)
+    m = Model("triangular", t=0.2, V=1.0, mu=2.7)
     r = run_qmc(m, cluster="tri9", T=0.3, sweeps=int(sys.argv[2]), bins=20, seed=9, checkpoint=sys.argv[1],
                 checkpoint_interval=0.05)
-    print(json.dumps(r.to_dict()["estimates"]))
+    print(json.dumps([r.to_dict()["estimates"], r.info["flip_acceptance"]]))
 """)
 
 
@@ -117,9 +117,10 @@ def test_checkpoint_sigkill_restart_identical(tmp_path):
                          text=True, timeout=600)
     assert out.returncode == 0, out.stderr
     restarted = json.loads(out.stdout.strip().splitlines()[-1])
-    m = Model("triangular", t=0.2, V=1.0, mu=2.0)
+    m = Model("triangular", t=0.2, V=1.0, mu=2.7)  # near half filling: particle-hole flips are accepted too
     ref = run_qmc(m, cluster="tri9", T=0.3, sweeps=sweeps, bins=20, seed=9)
-    assert restarted == ref.to_dict()["estimates"]
+    assert 0.01 < ref.info["flip_acceptance"][0] < 0.99
+    assert restarted == [ref.to_dict()["estimates"], ref.info["flip_acceptance"]]
 
 
 # exact (full diagonalization in the test, T -> 0): the beta-doubling ground-state search

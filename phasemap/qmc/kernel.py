@@ -15,6 +15,14 @@ Configuration
 Random numbers: xoshiro256** (Blackman & Vigna 2018) on a ``uint64[4]`` state array owned by
 the caller, so that a checkpoint can store and restore it exactly.
 
+Particle-hole flip (last step of a sweep, ``do_flip``): every occupation of the configuration is
+inverted, ``n_i -> 1 - n_i`` at every imaginary time (the state at position 0 flipped; every
+operator keeps its bond and its diagonal/off-diagonal type, a hop of a particle becomes the hop
+of a hole on the same bond with the same weight t). The map is an involution and keeps n and M,
+so accepting it with min(1, W'/W), ``ln(W'/W) = sum over vertices of lflip[type, code]`` with
+``lflip[type, c] = ln(wtab[type, c ^ 15] / wtab[type, c])`` (``-inf`` if the flipped weight
+vanishes), satisfies detailed balance. ``flipc[0]`` counts attempts, ``flipc[1]`` acceptances.
+
 Per-sweep record (``rec[s, :]``): ``n_ops, N_particles, D_i, D_j, |rho_K|^2, |rho_K|^4`` where
 ``D`` is the total particle displacement (lattice coordinates) accumulated by the hopping
 operators around imaginary time, and ``rho_K`` the order parameter averaged over the
@@ -26,7 +34,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-__all__ = ["seed_state", "sweep", "block", "NREC"]
+__all__ = ["seed_state", "sweep", "block", "flip_table", "NREC"]
 
 NREC = 6  # columns of the per-sweep record
 
@@ -44,6 +52,19 @@ def seed_state(seed: int, stream: int = 0) -> np.ndarray:
         z = ((z ^ (z >> 27)) * 0x94D049BB133111EB) & _M64
         out.append(z ^ (z >> 31))
     return np.array(out, dtype=np.uint64)
+
+
+def flip_table(wtab: np.ndarray) -> np.ndarray:
+    """``lflip[type, c] = ln(wtab[type, c ^ 15] / wtab[type, c])`` (module notes): the log weight
+    ratio of a vertex under the particle-hole flip; ``-inf`` if the flipped vertex is forbidden,
+    0 for vertices that cannot occur (weight 0)."""
+    w = np.asarray(wtab, float)
+    wf = w[:, np.arange(16) ^ 15]
+    out = np.zeros_like(w)
+    ok = w > 0
+    with np.errstate(divide="ignore"):
+        out[ok] = np.log(wf[ok]) - np.log(w[ok])
+    return out
 
 
 @njit(inline="always")
@@ -77,8 +98,10 @@ def _randint(s, n):
 
 @njit(cache=True)
 def sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
-          X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, srow, do_measure):
-    """One Monte Carlo step: diagonal update, linked vertex list, ``nloops`` directed loops.
+          X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, srow, do_measure,
+          lflip, do_flip, flipc):
+    """One Monte Carlo step: diagonal update, linked vertex list, ``nloops`` directed loops and,
+    if ``do_flip``, one particle-hole flip attempt (module notes).
 
     Measurements (when ``do_measure``) are taken on the configuration after the diagonal
     update: the per-sweep record goes to ``rec[srow]``, slice-averaged ``|rho_Q|^2`` is added
@@ -249,6 +272,19 @@ def sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
             state[i] = (vtx[leg >> 2] >> (leg & 3)) & 1
         elif _uniform(rng) < 0.5:
             state[i] = 1 - state[i]
+    # ---------------- particle-hole flip of the whole configuration ----------------
+    if do_flip:
+        lr = 0.0
+        for kk in range(n):  # vtx holds the vertex codes after the loops
+            lr += lflip[vty[kk], vtx[kk]]
+        flipc[0] += 1
+        accept = lr >= 0.0
+        if not accept and lr > -np.inf:
+            accept = _uniform(rng) < np.exp(lr)
+        if accept:
+            flipc[1] += 1
+            for i in range(N):
+                state[i] = 1 - state[i]
     return n, visits
 
 
@@ -268,11 +304,12 @@ def _measure_slice(state, cosq, sinq, kidx, sq_acc, nsl, N):
 
 @njit(cache=True)
 def block(nsw, ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
-          X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0):
+          X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0, lflip, do_flip, flipc):
     """``nsw`` measured sweeps; records go to ``rec[row0 : row0 + nsw]``. Returns vertex visits."""
     tot = 0
     for s in range(nsw):
         n, v = sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
-                     X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0 + s, True)
+                     X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0 + s, True,
+                     lflip, do_flip, flipc)
         tot += v
     return tot

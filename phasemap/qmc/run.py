@@ -100,8 +100,12 @@ def _chain(job: dict) -> dict:
             "tune_visits": np.array(0.0), "tune_loops": np.array(0.0), "meas_done": np.array(0),
             "rec": np.zeros((sweeps, kernel.NREC)), "sq_bins": np.zeros((bins, Nq)), "sq_acc": np.zeros(Nq),
             "visits": np.array(0), "elapsed": np.array(0.0), "meas_seconds": np.array(0.0),
+            "flip_therm": np.zeros(2, np.int64), "flip_meas": np.zeros(2, np.int64),
         }
     ops, state, rng = st["ops"], st["state"], st["rng"]
+    flip_therm, flip_meas = st["flip_therm"], st["flip_meas"]  # particle-hole flips: attempts, accepted
+    do_flip = bool(job.get("ph_flip", True))
+    lflip = kernel.flip_table(g.wtab)
     nloops = int(st["nloops"])
     t_start, last_save = time.perf_counter(), time.perf_counter()
     elapsed0 = float(st["elapsed"])
@@ -126,7 +130,8 @@ def _chain(job: dict) -> dict:
     while int(st["therm_done"]) < therm:
         b_eff = anneal_beta(beta, _beta_hot(g), int(st["therm_done"]), therm)
         n, v = kernel.sweep(ops, state, g.bonds, g.bond_type, g.bond_vec, g.wtab, g.cum, b_eff, nloops, rng,
-                            X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, dummy_sq, dummy_rec, 0, False)
+                            X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, dummy_sq, dummy_rec, 0, False,
+                            lflip, do_flip, flip_therm)
         M = len(ops)
         if n + n // 3 + 4 > M:
             Mn = n + n // 3 + 4
@@ -152,7 +157,8 @@ def _chain(job: dict) -> dict:
         k = min(chunk, bin_end - done)
         t0, c0 = time.perf_counter(), time.process_time()
         v = kernel.block(k, ops, state, g.bonds, g.bond_type, g.bond_vec, g.wtab, g.cum, beta, nloops, rng,
-                         X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, done)
+                         X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, done,
+                         lflip, do_flip, flip_meas)
         dt = time.perf_counter() - t0
         st["meas_cpu"] = st.get("meas_cpu", np.array(0.0)) + (time.process_time() - c0)
         chunk = max(1, min(chunk * 2, 1 << 20)) if dt < 0.25 else max(1, chunk // 2)
@@ -168,6 +174,7 @@ def _chain(job: dict) -> dict:
     return {"rec": rec.copy(), "sq_bins": sq_bins.copy(), "M": len(ops), "nloops": nloops,
             "visits": int(st["visits"]), "elapsed": float(st["elapsed"]), "thermalization": therm,
             "meas_seconds": float(st["meas_seconds"]),
+            "flip_attempts": int(flip_meas[0]), "flip_accepted": int(flip_meas[1]),
             "meas_cpu": float(st.get("meas_cpu", 0.0)), "mean_ops": float(rec[:, 0].mean()) if sweeps else 0.0,
             "max_ops": int(rec[:, 0].max()) if sweeps else 0}
 
@@ -334,9 +341,10 @@ def _check_int(name, v, lo):
 
 def run_graph(g: Graph, beta: float, sweeps: int = 10000, thermalization: int | None = None, bins: int = 32,
               seed: int = 0, chains: int = 1, checkpoint: str | None = None, workers: int | None = None,
-              slices: int = 4, checkpoint_interval: float = 5.0):
+              slices: int = 4, checkpoint_interval: float = 5.0, ph_flip: bool = True):
     """Run ``chains`` chains on a prepared :class:`~phasemap.qmc.geometry.Graph` at inverse
-    temperature ``beta``. Returns ``(estimates, sq, sq_err, outs)``."""
+    temperature ``beta`` (``ph_flip``: attempt one particle-hole flip per sweep, see
+    ``kernel``). Returns ``(estimates, sq, sq_err, outs)``."""
     sweeps = _check_int("sweeps", sweeps, 1)
     bins = _check_int("bins", bins, 2)
     chains = _check_int("chains", chains, 1)
@@ -350,6 +358,7 @@ def run_graph(g: Graph, beta: float, sweeps: int = 10000, thermalization: int | 
     for c in range(chains):
         jobs.append({"graph": g, "beta": float(beta), "sweeps": sweeps, "thermalization": thermalization,
                      "bins": bins, "seed": int(seed), "chain": c, "slices": slices, "interval": checkpoint_interval,
+                     "ph_flip": bool(ph_flip),
                      "checkpoint": None if checkpoint is None else os.path.join(
                          checkpoint, f"{g.name}_beta{beta:.6g}_seed{seed}_chain{c}.npz")})
     workers = min(chains, os.cpu_count() or 1) if workers is None else max(1, int(workers))
@@ -362,7 +371,7 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
             thermalization: int | None = None, bins: int = 32, seed: int = 0, chains: int = 1,
             checkpoint: str | None = None, *, workers: int | None = None, slices: int = 4,
             epsilon: float | None = None, checkpoint_interval: float = 5.0,
-            beta0: float | None = None, beta_max: float | None = None) -> QMCResult:
+            beta0: float | None = None, beta_max: float | None = None, ph_flip: bool = True) -> QMCResult:
     r"""Stochastic series expansion QMC of hard-core bosons on a periodic torus.
 
     Parameters
@@ -396,6 +405,11 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
         Time slices per sweep at which S(Q) and the K-point moments are measured.
     epsilon : float, optional
         Constant added to every bond shift (default 0.25 t per bond type, see docs/qmc.md).
+    ph_flip : bool
+        Attempt one global particle-hole flip ``n_i -> 1 - n_i`` of the configuration per sweep
+        (Metropolis; always accepted at the particle-hole-symmetric point, e.g. mu = 3V on the
+        triangular lattice, where it connects the sectors N and N_sites - N). Default True; the
+        acceptance rate is in ``info["flip_acceptance"]``.
 
     Returns
     -------
@@ -410,7 +424,8 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
         raise ConfigError(f"model: expected a phasemap.Model, got {type(model).__name__}")
     g = torus(model, cluster, size, epsilon)
     kw = dict(sweeps=sweeps, thermalization=thermalization, bins=bins, seed=seed, chains=chains,
-              checkpoint=checkpoint, workers=workers, slices=slices, checkpoint_interval=checkpoint_interval)
+              checkpoint=checkpoint, workers=workers, slices=slices, checkpoint_interval=checkpoint_interval,
+              ph_flip=ph_flip)
     flags = []
     if g.k_index < 0 and model.lattice == "triangular":
         flags.append("no-K-point (torus not sqrt3 x sqrt3 compatible: no S(K)/N, no Binder ratio)")
@@ -457,7 +472,9 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
                  "chain_seconds": [o["elapsed"] for o in outs], "wall_seconds": time.perf_counter() - t0,
                  "measure_seconds": [o["meas_seconds"] for o in outs],
                  "measure_cpu_seconds": [o["meas_cpu"] for o in outs],
-                 "ground_state_search": gs_record})
+                 "ground_state_search": gs_record,
+                 "flip_acceptance": [o["flip_accepted"] / o["flip_attempts"] if o["flip_attempts"] else None
+                                     for o in outs]})
     if any(o["max_ops"] >= o["M"] for o in outs):
         flags.append("operator-string cut-off reached during measurement (thermalization too short; run longer)")
     bad = [k for k in _KEY_ESTIMATES if k in est and not est[k].decorrelated]
