@@ -17,7 +17,8 @@ from _qmc_exact import thermal, torus_bonds
 from phasemap import Model
 from phasemap.qmc import run_graph, run_qmc
 from phasemap.qmc.geometry import torus
-from phasemap.qmc.kernel import flip_table
+from phasemap.qmc.kernel import NREC, flip_table
+from phasemap.qmc.run import analyze, not_decorrelated
 
 TRI9 = ((3, 0), (0, 3))
 TRI13 = ((-4, 1), (-1, -3))  # smallest triangular torus that accepts V2 (docs/qmc.md)
@@ -105,3 +106,26 @@ def test_half_filling_chain_visits_both_sectors():
                 assert 0.45 < odd < 0.55, odd  # N and 9 - N have opposite parity
                 assert o["flip_accepted"] == o["flip_attempts"] > 0
     assert abs(est["filling"].value - 0.5) < 1e-12 and est["filling"].decorrelated
+
+
+# the flip makes the filling blind to chains frozen in different |N - N_sites/2| sectors (measured on
+# 12x12, t/V = 0.08, beta V = 120: one chain at 71/73, one at 72 particles for 64000 sweeps); the
+# compressibility must still flag it (between-chain check, Gelman & Rubin, Statist. Sci. 7, 457 (1992))
+def test_chains_in_different_particle_hole_sectors_are_flagged():
+    g = torus(Model("triangular", t=0.08, V=1.0, mu=3.0), size=(12, 12))
+    rng = np.random.default_rng(1)
+
+    def chain(numbers):
+        rec = np.zeros((4000, NREC))
+        rec[:, 0] = 30000 + rng.normal(0, 50, 4000)  # operators
+        rec[:, 1] = numbers
+        rec[:, 4] = 0.039 + rng.normal(0, 0.002, 4000)  # |rho_K|^2
+        rec[:, 5] = rec[:, 4] ** 2
+        return {"rec": rec, "sq_bins": np.zeros((8, len(g.momenta)))}
+
+    mirrored = np.where(np.arange(4000) % 2 == 0, 71, 73)  # 71 <-> 73 by the flip
+    est, _, _ = analyze(g, [chain(mirrored), chain(np.full(4000, 72))], beta=120.0, bins=8)
+    assert est["filling"].value == 0.5 and est["filling"].decorrelated  # blind
+    assert not_decorrelated(est) == ["compressibility"]
+    est, _, _ = analyze(g, [chain(mirrored), chain(mirrored[::-1])], beta=120.0, bins=8)
+    assert not_decorrelated(est) == []  # the same sector in both chains: nothing to see
