@@ -4,15 +4,17 @@ supersolid at t/V = 0.08: S(K)/N and the stiffness both extrapolate to non-zero 
 Reference: supersolid for t/V below ≈ 0.112 at half filling (S. Wessel and M. Troyer, PRL 95,
 127205 (2005); D. Heidarian and K. Damle, PRL 95, 127206 (2005); from memory).
 
-Too long for the slow test suite: in the supersolid the integrated autocorrelation times of
-S(K)/N and of the particle number are 100-650 sweeps on 9x9 and 12x12 (measured), and a run is
+Too long for the slow test suite: in the supersolid the integrated autocorrelation time of S(K)/N
+is ~160 sweeps on 6x6, ~430 on 9x9 and 1000-1500 on 12x12 (measured, docs/qmc.md), and a run is
 decorrelated only if every bin holds more than 8 tau_int (docs/qmc.md, Errors), so each size
-needs tens of thousands of sweeps. Temperature: beta V = BETA_L * L (z = 1, fixed aspect
+needs tens of thousands of sweeps. The particle-hole flip joins the sectors N and N_sites - N, but
+the loops do not move the particle number between |N - N_sites/2| sectors at these temperatures:
+two 12x12 chains in different sectors are flagged (compressibility), see docs/qmc.md. Temperature: beta V = BETA_L * L (z = 1, fixed aspect
 ratio; BETA_L = 10 gives beta t = 0.8 L at t/V = 0.08), so the fits a + b/L approach T = 0 and
 L = infinity together.
 
     nice -n 10 python benchmarks/validate_qmc_supersolid.py --sizes 6,9,12 --beta-L 10 \\
-        --sweeps 64000 --bins 16 --chains 2 --out validate-ss   # ~6 min CPU idle per 12x12 chain
+        --sweeps 64000 --bins 8 --chains 2 --workers 2 --out validate-ss   # wall 17 min at load 7-9 (docs/qmc.md)
 
 Every chain checkpoints into OUT/chains: killed and restarted with the same arguments, the script
 resumes where it stopped. Exit code 0 if the phase is "supersolid", 1 otherwise.
@@ -39,7 +41,7 @@ def main(argv=None) -> int:
     p.add_argument("--beta-L", type=float, default=10.0, dest="beta_L", help="beta = BETA_L * L (1/V)")
     p.add_argument("--sweeps", type=int, default=64000, help="measured sweeps per chain")
     p.add_argument("--thermalization", type=int, default=None, help="warm-up sweeps (default sweeps // 5)")
-    p.add_argument("--bins", type=int, default=16, help="bins per chain")
+    p.add_argument("--bins", type=int, default=8, help="bins per chain")
     p.add_argument("--chains", type=int, default=2)
     p.add_argument("--seed", type=int, default=1)
     p.add_argument("--workers", type=int, default=None)
