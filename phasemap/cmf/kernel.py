@@ -103,6 +103,54 @@ def lowest_eigenpairs(H, thr_rel=1e-10):
 
 
 @njit(cache=True)
+def boundary_fields(x, t, V, V2, M, M2, Phi, eps):
+    """Boundary fields of the iterate ``x = (n, phi)``: ``Phi_a = sum_f t_f (M_f phi)_a`` and
+    ``eps_a = sum_f V_f (M_f n)_a + V2 (M2 n)_a`` (decoupled bonds, ``Cluster.inter_matrices``)."""
+    S = Phi.shape[0]
+    F = t.shape[0]
+    for a in range(S):
+        p = 0.0
+        e = 0.0
+        for f in range(F):
+            sp = 0.0
+            sn = 0.0
+            for b in range(S):
+                sp += M[f, a, b] * x[S + b]
+                sn += M[f, a, b] * x[b]
+            p += t[f] * sp
+            e += V[f] * sn
+        s2 = 0.0
+        for b in range(S):
+            s2 += M2[a, b] * x[b]
+        Phi[a] = p
+        eps[a] = e + V2 * s2
+
+
+@njit(cache=True)
+def anderson_workspace(D, m):
+    """Per-row state of :func:`mix_and_clip`: ``(px, pf, hx, hf, G, A, bb, step)``."""
+    mm = max(m, 1)
+    return (np.zeros(D), np.zeros(D), np.zeros((mm, D)), np.zeros((mm, D)), np.zeros((mm, mm)), np.zeros((mm, mm)),
+            np.zeros(mm), np.empty(D))
+
+
+@njit(cache=True)
+def mix_and_clip(x, f, ws, it, m, mixing, nmax):
+    """Anderson step of iteration ``it`` (:func:`phasemap.mf_kernel.anderson_step`) written into
+    ``x = (n, phi)``, densities clipped to [0, nmax] and condensates to >= 0."""
+    px, pf, hx, hf, G, A, bb, step = ws
+    anderson_step(x, f, px, pf, hx, hf, G, A, bb, it, m, mixing, step)
+    S = x.shape[0] // 2
+    for d in range(x.shape[0]):
+        st = step[d]
+        if d < S:
+            st = min(max(st, 0.0), float(nmax))
+        elif st < 0.0:
+            st = 0.0
+        x[d] = st
+
+
+@njit(cache=True)
 def _ground(x, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H, g, out, ws):
     """Map one iterate ``x`` (2S) to the ground state's (n, phi) in ``out``; ``g`` receives the state."""
     dim = B.shape[1]
@@ -110,18 +158,11 @@ def _ground(x, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H
     for i in range(dim):
         for j in range(dim):
             H[i, j] = 0.0
+    Phi = np.empty(S)
+    eps = np.empty(S)
+    boundary_fields(x, t, V, V2, M, M2, Phi, eps)
     for k in range(K):
-        if k < F:
-            c = -t[k]
-        else:
-            a = k - F
-            Phi = 0.0
-            for f in range(F):
-                s = 0.0
-                for b in range(S):
-                    s += M[f, a, b] * x[S + b]
-                Phi += t[f] * s
-            c = -Phi
+        c = -t[k] if k < F else -Phi[k - F]
         if c != 0.0:
             for i in range(dim):
                 for j in range(dim):
@@ -134,18 +175,8 @@ def _ground(x, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H
             d += U * dU[i]
         H[i, i] += d
     for a in range(S):
-        e = 0.0
-        for f in range(F):
-            s = 0.0
-            for b in range(S):
-                s += M[f, a, b] * x[b]
-            e += V[f] * s
-        s2 = 0.0
-        for b in range(S):
-            s2 += M2[a, b] * x[b]
-        e += V2 * s2
         for i in range(dim):
-            H[i, i] += e * occ[a, i]
+            H[i, i] += eps[a] * occ[a, i]
     k, w, v = _lowest(H, 1e-10, ws)
     thr = 1e-10 * max(1.0, abs(w[0]))
     for i in range(dim):
@@ -196,18 +227,10 @@ def _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, m
     S = D // 2
     F = t.shape[1]
     dim = B.shape[1]
-    mm = max(m, 1)
     x = x0[r].copy()
     gx = np.empty(D)
     f = np.empty(D)
-    px = np.zeros(D)
-    pf = np.zeros(D)
-    hx = np.zeros((mm, D))
-    hf = np.zeros((mm, D))
-    A = np.zeros((mm, mm))
-    G = np.zeros((mm, mm))
-    bb = np.zeros(mm)
-    step = np.empty(D)
+    mws = anderson_workspace(D, m)
     H = np.empty((dim, dim))
     g = np.empty(dim)
     ws = _workspace(dim)
@@ -238,14 +261,7 @@ def _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, m
                 xout[r, d] = x[d]
             done = True
             break
-        anderson_step(x, f, px, pf, hx, hf, G, A, bb, it, m, mixing, step)
-        for d in range(D):
-            st = step[d]
-            if d < S:
-                st = min(max(st, 0.0), float(nmax))
-            elif st < 0.0:
-                st = 0.0
-            x[d] = st
+        mix_and_clip(x, f, mws, it, m, mixing, nmax)
     if not done:
         for d in range(D):
             xout[r, d] = x[d]

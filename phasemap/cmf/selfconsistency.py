@@ -121,7 +121,10 @@ class CMFOptions:
         Batched engine: rows are processed in chunks whose Lanczos workspace stays below this.
     compiled : bool, default True
         Batched engine, dense clusters: compiled per-row loop (:mod:`phasemap.cmf.kernel`);
-        False: the NumPy loop over all rows in lock-step (same iteration).
+        False: the NumPy loop over all rows in lock-step (same iteration). Per-point engine
+        above ``dense_max`` (Lanczos clusters, T = 0): the seeds of a point run in parallel in
+        the compiled loop of :mod:`phasemap.cmf.lanczos_kernel` (all rows at once without
+        continuation); False: the Python per-row loop (same iteration, the reference).
     """
 
     tol: float = 1e-9
@@ -475,41 +478,84 @@ def _solve_points(batch, cl, ops, seeds, init, opt, T):
     out = dict(energy=np.empty((P, K)), converged=np.zeros((P, K), bool), iterations=np.zeros((P, K), int),
                residual=np.empty((P, K)), n=np.empty((P, K, S)), phi=np.empty((P, K, S)),
                top_weight=np.zeros((P, K)), entropy=np.zeros((P, K)))
+    compiled = opt.compiled and ops.dim > opt.dense_max
+    probs = [ClusterProblem(cl, ops, batch.t[p], batch.V[p], batch.U[p], batch.V2[p], batch.mu[p], batch.hardcore)
+             for p in range(P)]
+
+    def store(p, k, row):
+        out["energy"][p, k] = row["energy"]
+        out["converged"][p, k] = row["converged"]
+        out["iterations"][p, k] = row["iterations"]
+        out["residual"][p, k] = row["residual"]
+        out["n"][p, k] = row["n"]
+        out["phi"][p, k] = row["phi"]
+        out["top_weight"][p, k] = row["top"]
+        out["entropy"][p, k] = row.get("entropy", 0.0)
+
+    if compiled and (init is not None or not opt.continuation) and not np.any(T > 0):
+        # every row independent: all points x seeds in one parallel call
+        jobs = [(p, k, *_row_start(batch, sd, p, None, None, init, k, opt)) for p in range(P) for k, sd in enumerate(seeds)]
+        chunk = max(16, int(opt.batch_memory_mb * 2**20 / (16.0 * ops.dim)))  # start and end vectors
+        for c0 in range(0, len(jobs), chunk):
+            part = jobs[c0: c0 + chunk]
+            for (p, k, _, _), row in zip(part, _solve_rows_compiled(probs, part, opt, batch.n_max)):
+                store(p, k, row)
+        return out
     last = [None] * K  # previous point's end state per seed
     last2 = [None] * K  # and the one before (linear predictor along a scan)
     for p in range(P):
-        prob = ClusterProblem(cl, ops, batch.t[p], batch.V[p], batch.U[p], batch.V2[p], batch.mu[p], batch.hardcore)
-        for k, sd in enumerate(seeds):
-            x0 = np.concatenate([sd.n0, sd.phi0])
-            v0 = None
-            if init is not None:
-                x0 = np.concatenate([init.n[p, k], init.phi[p, k]])
-            elif opt.continuation and last[k] is not None:
-                prev = last[k]
-                if prev["converged"] and _keeps_character(sd, prev["n"], prev["phi"]):
-                    x0 = np.concatenate([prev["n"], prev["phi"]])
-                    v0 = prev["v"]
-                    pp = last2[k]
-                    if pp is not None and pp["converged"] and p >= 2 and _keeps_character(sd, pp["n"], pp["phi"]):
-                        # secant predictor from the two previous points (equally weighted in the
-                        # distance of the parameters), kept only if it moves little
-                        s1, s2 = _param_step(batch, p, p - 1), _param_step(batch, p - 1, p - 2)
-                        d1, d2 = np.linalg.norm(s1), np.linalg.norm(s2)
-                        if d2 > 0 and d1 <= 2 * d2 and s1 @ s2 > 0.999 * d1 * d2:  # same direction
-                            x_pp = np.concatenate([pp["n"], pp["phi"]])
-                            pred = x0 + (d1 / d2) * (x0 - x_pp)
-                            if np.abs(pred - x0).max() < 0.1:
-                                x0 = np.concatenate([np.clip(pred[:S], 0, batch.n_max), np.clip(pred[S:], 0, None)])
-                elif prev["v"] is not None:
-                    v0 = None
-            row = _solve_row(prob, x0, v0, opt, batch.n_max, float(T[p]))
+        jobs = [(p, k, *_row_start(batch, sd, p, last[k], last2[k], init, k, opt)) for k, sd in enumerate(seeds)]
+        if compiled and T[p] == 0:  # the seeds of this point in parallel, each continuing its own branch
+            rows = _solve_rows_compiled(probs, jobs, opt, batch.n_max)
+        else:
+            rows = [_solve_row(probs[p], x0, v0, opt, batch.n_max, float(T[p])) for _, _, x0, v0 in jobs]
+        for k, row in enumerate(rows):
             last2[k], last[k] = last[k], row
-            out["energy"][p, k] = row["energy"]
-            out["converged"][p, k] = row["converged"]
-            out["iterations"][p, k] = row["iterations"]
-            out["residual"][p, k] = row["residual"]
-            out["n"][p, k] = row["n"]
-            out["phi"][p, k] = row["phi"]
-            out["top_weight"][p, k] = row["top"]
-            out["entropy"][p, k] = row.get("entropy", 0.0)
+            store(p, k, row)
     return out
+
+
+def _row_start(batch, sd, p, prev, pp, init, k, opt):
+    """Start ``(x0, v0)`` of seed ``sd`` at point ``p``: the seed, ``init``, or (continuation) the
+    seed's converged state at the previous point (``prev``; secant predictor with ``pp``)."""
+    S = len(sd.n0)
+    x0 = np.concatenate([sd.n0, sd.phi0])
+    v0 = None
+    if init is not None:
+        x0 = np.concatenate([init.n[p, k], init.phi[p, k]])
+    elif opt.continuation and prev is not None and prev["converged"] and _keeps_character(sd, prev["n"], prev["phi"]):
+        x0 = np.concatenate([prev["n"], prev["phi"]])
+        v0 = prev["v"]
+        if pp is not None and pp["converged"] and p >= 2 and _keeps_character(sd, pp["n"], pp["phi"]):
+            # secant predictor from the two previous points (equally weighted in the
+            # distance of the parameters), kept only if it moves little
+            s1, s2 = _param_step(batch, p, p - 1), _param_step(batch, p - 1, p - 2)
+            d1, d2 = np.linalg.norm(s1), np.linalg.norm(s2)
+            if d2 > 0 and d1 <= 2 * d2 and s1 @ s2 > 0.999 * d1 * d2:  # same direction
+                x_pp = np.concatenate([pp["n"], pp["phi"]])
+                pred = x0 + (d1 / d2) * (x0 - x_pp)
+                if np.abs(pred - x0).max() < 0.1:
+                    x0 = np.concatenate([np.clip(pred[:S], 0, batch.n_max), np.clip(pred[S:], 0, None)])
+    return x0, v0
+
+
+def _solve_rows_compiled(probs, jobs, opt, n_max):
+    """Rows ``(p, k, x0, v0)`` by the compiled Lanczos loop (:mod:`phasemap.cmf.lanczos_kernel`),
+    in parallel; the end states in the per-point path's format (energy from the final state)."""
+    from .lanczos_kernel import solve_point_rows
+
+    pr = [probs[p] for p, _, _, _ in jobs]
+    ops, cl = pr[0].ops, pr[0].cluster
+    M, M2 = cl.inter_matrices()
+    d0 = np.stack([q.ops.diagonal(q.U, q.V, q.V2, q.mu, np.zeros(cl.n_sites)) for q in pr])
+    v_rand = np.random.default_rng(0).standard_normal(ops.dim)  # lanczos_ground_state's start without v0
+    V0 = np.stack([v_rand if v0 is None else v0 for _, _, _, v0 in jobs])
+    X0 = np.stack([x0 for _, _, x0, _ in jobs])
+    _, ve, it, res, conv, _ = solve_point_rows(ops, M, M2, np.stack([q.t for q in pr]), np.stack([q.V for q in pr]),
+                                             np.array([q.V2 for q in pr]), d0, X0, V0, opt, n_max)
+    rows = []
+    for j, q in enumerate(pr):
+        ex = ops.expectations(ve[j])
+        rows.append({"energy": q.energy(ex), "converged": bool(conv[j]), "iterations": int(it[j]),
+                     "residual": float(res[j]), "n": ex["n"], "phi": ex["phi"], "top": float(ex["top"].max()), "v": ve[j]})
+    return rows
