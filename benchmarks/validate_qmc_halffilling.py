@@ -10,8 +10,8 @@ The script prints the crossings of each pair of sizes with bootstrap errors and 
 answer (a bracket when the pairs disagree), and writes the data and a figure with provenance.
 
     nice -n 10 python benchmarks/validate_qmc_halffilling.py --sizes 6,9,12 \\
-        --t 0.09,0.10,0.105,0.11,0.115,0.12,0.13,0.14 --beta-L 10 --sweeps 32000 --workers 1 \\
-        --out validate-hf        # ~30-60 min of one core; numbers go in docs/qmc.md
+        --t 0.10,0.105,0.11,0.115,0.12 --beta-L 10 --sweeps 24000 --bins 8 --chains 2 --workers 2 \\
+        --out validate-hf        # ~800 s CPU at load 9-13; numbers, flags: docs/qmc.md
 
 Temperature: beta V = BETA_L * L. The supersolid orders by quantum fluctuations (the t = 0
 model at mu = 3V is the frustrated triangular Ising antiferromagnet, disordered at every T > 0),
