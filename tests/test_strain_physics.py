@@ -122,3 +122,78 @@ def test_hinted_plateau_search_equals_full_grid():
         r = locate_plateaus(models, "1/3", n_mu=81, hint=hint, hint_pad=3)
         for k in ("mu_lo", "mu_hi", "width", "exists", "label_center", "n_below", "n_above", "reached"):
             np.testing.assert_array_equal(getattr(r, k), getattr(full, k), err_msg=k)
+
+
+def test_bisection_edges_bracket_the_exact_edges_like_the_multisection():
+    # exact (t = 0 classical limit, test_t0_plateau_edges_exact): the 1/3 plateau runs from mu/V = 0
+    # to 3. Bisection (one point per step, the cmf default) and the former 7- and 31-point steps
+    # must each end on a bracket no wider than tol that contains the exact edge, so their edges
+    # agree within the sum of their brackets; at t > 0 (no closed form) the same agreement holds
+    # between bisection and the 31-point search, and plateau/label/fillings are the same.
+    from phasemap.strain.engine import clear_cache
+
+    models = [Model(t=t, V=1.0) for t in (0.0, 0.05, 0.12, 0.3)]
+    out = {}
+    for k in (1, 7, 31):
+        clear_cache()
+        out[k] = locate_plateaus(models, "1/3", n_mu=41, tol=1e-4, sections=k)
+    for k, r in out.items():
+        assert r.tol[0] <= 1e-4 + 1e-15, k  # (a stalled bracket near a continuous edge may stay wider)
+        assert abs(r.mu_lo[0] - 0.0) <= r.tol[0] / 2 + 1e-12 and abs(r.mu_hi[0] - 3.0) <= r.tol[0] / 2 + 1e-12, k
+    a, b = out[1], out[31]
+    for key in ("mu_lo", "mu_hi"):
+        np.testing.assert_array_less(np.abs(getattr(a, key) - getattr(b, key)), (a.tol + b.tol) / 2 + 1e-12)
+    for key in ("exists", "label_center", "reached"):
+        np.testing.assert_array_equal(getattr(a, key), getattr(b, key), err_msg=key)
+    np.testing.assert_allclose(a.n_below, b.n_below, atol=5e-3)
+
+
+def test_bisection_retries_a_step_whose_point_failed(monkeypatch):
+    # a bisection step whose only point does not converge is retried once on two other points
+    # (before, with one point per step, such a bracket was given up and the answer flagged
+    # unconverged); the edges are then those of a search where nothing failed
+    import phasemap.strain.engine as eng
+
+    m = [Model(t=0.05, V=1.0)]
+    eng.clear_cache()
+    ref = locate_plateaus(m, "1/3", n_mu=41, sections=1)
+    orig, calls = eng.evaluate_points, []
+
+    def flaky(models, mu, *a, **k):
+        r = orig(models, mu, *a, **k)
+        calls.append(np.asarray(mu).shape)
+        if np.asarray(mu).shape[1] == 1 and len(calls) == 2:  # the first bisection step fails
+            r = dict(r, converged=np.zeros_like(r["converged"]))
+        return r
+
+    monkeypatch.setattr(eng, "evaluate_points", flaky)
+    eng.clear_cache()
+    r = locate_plateaus(m, "1/3", n_mu=41, sections=1)
+    assert any(c[1] == 2 for c in calls)  # the retry: two points for the brackets whose point failed
+    assert r.ok(0) and not any("could not be refined" in f for f in r.flags[0])
+    assert abs(r.mu_lo[0] - ref.mu_lo[0]) <= (r.tol[0] + ref.tol[0]) / 2 + 1e-12
+    assert abs(r.mu_hi[0] - ref.mu_hi[0]) <= (r.tol[0] + ref.tol[0]) / 2 + 1e-12
+
+
+@pytest.mark.parametrize("method", ["mf", "cmf:tri3"])
+def test_critical_strain_equals_brentq_on_full_grid_searches(method):
+    # independent computation: brentq on the width of full-grid plateau searches (no hint, the
+    # former 7/31-point edge steps), the former path. The critical strain with hints from the
+    # nearest solved strains (and cmf's narrow sub-grids, bisection edges) must agree within
+    # the two xtols.
+    from scipy.optimize import brentq
+
+    from phasemap.strain.engine import clear_cache
+
+    s = np.linspace(0.0, 0.1, 3)
+    tab = StrainTable.from_columns({"strain": s, "t": 0.15 + 1.5 * s, "V": np.ones(3)}, unit="V")
+    xtol = 2e-4
+    clear_cache()
+    c = critical_strain(tab, method, n_strain=3, n_mu=41, xtol=xtol, sections=0)
+
+    def h(x):
+        return locate_plateaus(tab.models([x]), "1/3", method, n_mu=41, sections=7).width[0] - 1e-3
+
+    clear_cache()
+    old = brentq(h, c.bracket[0], c.bracket[1], xtol=xtol)
+    assert c.status == "found" and c.strain_c == pytest.approx(old, abs=2 * xtol)

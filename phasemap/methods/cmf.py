@@ -21,10 +21,12 @@ class ClusterMeanField(GrandCanonicalMethod):
     default_arg = "tri12"
     caution = ("cluster mean field still overestimates the solid, less so for larger clusters: compare "
                "clusters (phasemap cluster-scaling) before trusting a critical strain")
-    # every row costs (dense eigensolves per iteration): fewer points per search step, brentq
-    # alone on the critical strain, and the plateau search looks first where mf finds it
-    edge_sections = 7
+    # every row costs (dense eigensolves per iteration): bisection on the plateau edges, brentq
+    # alone on the critical strain with its plateau searches looking only next to the edges of
+    # the nearest solved strains, and a one-strain search looks first where mf finds the plateau
+    edge_sections = 1
     root_sections = 0
+    root_hint_pad = 2
     hint_method = "mf"
 
     def option_names(self):

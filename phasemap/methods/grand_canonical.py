@@ -50,6 +50,10 @@ class GrandCanonicalMethod(Method):
     #: a cheaper method whose plateau hints where to look (``locate_plateaus`` ``hint``) when
     #: no full chemical-potential map is kept; None: no hint
     hint_method: str | None = None
+    #: grid points kept on either side of the hint in the critical strain's plateau searches (the
+    #: hint there is the method's own edges at the nearest solved strains; a search whose
+    #: sub-grid does not bracket falls back to the full grid, so the pad changes cost, not answers)
+    root_hint_pad = 12
 
     def strain_step(self, spec, models, fraction, **kw):
         from ..strain.engine import locate_plateaus

@@ -183,7 +183,8 @@ def critical_strain(table: StrainTable, spec="mf", fraction="1/3", criterion="wi
         Batched multi-section points narrowing each coarse bracket before brentq
         (:func:`phasemap.strain.roots.narrowed_brentq`); 0: brentq alone (the sweep passes the
         method's ``root_sections``). Every root-finding solve is hinted with the plateau edges
-        at the two coarse strains around it (``locate_plateaus`` ``hint``).
+        at the nearest strains already solved on either side of it (``locate_plateaus`` ``hint``,
+        ``hint_pad`` = the method's ``root_hint_pad`` grid points around it, 12 by default).
     **locate_kw
         Passed to :func:`~phasemap.strain.engine.locate_plateaus` (tol, n_mu, ...).
 
@@ -212,21 +213,28 @@ def critical_strain(table: StrainTable, spec="mf", fraction="1/3", criterion="wi
         flags += [f"strain {S[p]:.4g}: unconverged: {f}" for f in res.unconverged[p]]
     count = [len(S)]
 
+    # every strain solved so far (coarse path, then the root finder's) with its edges
+    seen = {float(x): (lo_, hi_) for x, lo_, hi_ in zip(S, res.mu_lo, res.mu_hi)}
+
     def hint(x):
-        # the plateau (or crossing) at the two coarse strains around x bounds where to look
-        i = int(np.clip(np.searchsorted(S, x) - 1, 0, len(S) - 2))
-        lo = [v for v in res.mu_lo[i:i + 2] if np.isfinite(v)]
-        hi = [v for v in res.mu_hi[i:i + 2] if np.isfinite(v)]
+        # the plateau (or crossing) at the nearest solved strains on either side of x bounds where to look
+        xs_ = np.array(sorted(seen))
+        i = int(np.clip(np.searchsorted(xs_, x) - 1, 0, len(xs_) - 2))
+        near = [seen[float(v)] for v in xs_[i:i + 2]]
+        lo = [v[0] for v in near if np.isfinite(v[0])]
+        hi = [v[1] for v in near if np.isfinite(v[1])]
         return (min(lo), max(hi)) if lo and hi else (np.nan, np.nan)
 
     def hv(xs):
         h = np.array([hint(x) for x in xs], float)
         if np.isfinite(h).all(axis=1).any() and criterion == "width":
             kw["hint"] = h
+            kw.setdefault("hint_pad", getattr(spec.impl, "root_hint_pad", 12))
         v, r, _ = criterion_values(table, list(xs), spec, lab, criterion, mu, width_floor, **kw)
         kw.pop("hint", None)
         for p in range(r.size):
             flags.extend(f"strain {xs[p]:.6g}: unconverged: {f}" for f in r.unconverged[p])
+            seen[float(xs[p])] = (r.mu_lo[p], r.mu_hi[p])
         return v
 
     def h(s):

@@ -40,6 +40,9 @@ __all__ = ["PlateauResult", "locate_plateaus", "evaluate_points",
            "default_window", "parse_fraction", "INCOMPRESSIBLE", "clear_cache"]
 
 INCOMPRESSIBLE = ("empty", "full", "mott", "solid")
+#: edge searches with fewer points per step than this retry a step whose every point failed to
+#: converge once (on one point more) before giving the bracket up
+RETRY_BELOW = 4
 
 
 def parse_fraction(fraction) -> tuple[str, float]:
@@ -400,44 +403,52 @@ def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = Meth
     K = int(sections)
     skipped = np.zeros(P, int)
     stalled = np.zeros((P, 2), bool)
+    # few points per step (bisection for K = 1): a step whose every interior point failed is
+    # retried once on K + 1 other points before the bracket is given up
+    retry = np.zeros((P, 2), bool)
     for _ in range(200):
         need_lo = live_lo & ((lo_b - lo_a) > tol_abs)
         need_hi = live_hi & ((hi_b - hi_a) > tol_abs)
         if not (need_lo.any() or need_hi.any()):
             break
-        sel_models, sel_mu, which = [], [], []
-        frac = np.arange(1, K + 1) / (K + 1)
-        for p in np.nonzero(need_lo)[0]:
-            sel_models.append(models[p]), sel_mu.append(lo_a[p] + (lo_b[p] - lo_a[p]) * frac), which.append((p, 0))
-        for p in np.nonzero(need_hi)[0]:
-            sel_models.append(models[p]), sel_mu.append(hi_a[p] + (hi_b[p] - hi_a[p]) * frac), which.append((p, 1))
-        r = evaluate_points(sel_models, np.array(sel_mu), spec, thresholds)
-        for i, (p, side) in enumerate(which):
-            nn, cc, mm = r["filling"][i].astype(float), r["converged"][i], np.array(sel_mu[i])
-            skipped[p] += int((~cc).sum())
-            cond = (nn >= f - filling_tol) if side == 0 else (nn > f + filling_tol)
-            # first converged point satisfying cond; bracket = (last converged not-cond before it, it)
-            okc = cc & cond
-            first = int(np.argmax(okc)) if okc.any() else K
-            prev = [j for j in range(first) if cc[j] and not cond[j]]
-            a_key, b_key = ("lo_a", "lo_b") if side == 0 else ("hi_a", "hi_b")
-            if prev:
-                j = prev[-1]
-                for k in _END:
-                    ends[a_key][k][p] = r[k][i, j]
-                ends[a_key]["mu"][p] = mm[j]
-            if first < K:
-                for k in _END:
-                    ends[b_key][k][p] = r[k][i, first]
-                ends[b_key]["mu"][p] = mm[first]
-            if not prev and first == K and not cc.any():
-                # every interior point failed: cannot shrink this bracket
-                (live_lo if side == 0 else live_hi)[p] = False
-                stalled[p, side] = True
-            if side == 0:
-                lo_a[p], lo_b[p] = ends["lo_a"]["mu"][p], ends["lo_b"]["mu"][p]
-            else:
-                hi_a[p], hi_b[p] = ends["hi_a"]["mu"][p], ends["hi_b"]["mu"][p]
+        items = []  # (p, side, points)
+        for side, need, a, b in ((0, need_lo, lo_a, lo_b), (1, need_hi, hi_a, hi_b)):
+            for p in np.nonzero(need)[0]:
+                k = K + int(retry[p, side])
+                items.append((p, side, a[p] + (b[p] - a[p]) * np.arange(1, k + 1) / (k + 1)))
+        for k in sorted({len(x[2]) for x in items}):
+            group = [x for x in items if len(x[2]) == k]
+            r = evaluate_points([models[p] for p, _, _ in group], np.array([x[2] for x in group]), spec, thresholds)
+            for i, (p, side, mm) in enumerate(group):
+                nn, cc = r["filling"][i].astype(float), r["converged"][i]
+                skipped[p] += int((~cc).sum())
+                cond = (nn >= f - filling_tol) if side == 0 else (nn > f + filling_tol)
+                # first converged point satisfying cond; bracket = (last converged not-cond before it, it)
+                okc = cc & cond
+                first = int(np.argmax(okc)) if okc.any() else k
+                prev = [j for j in range(first) if cc[j] and not cond[j]]
+                a_key, b_key = ("lo_a", "lo_b") if side == 0 else ("hi_a", "hi_b")
+                if prev:
+                    j = prev[-1]
+                    for q in _END:
+                        ends[a_key][q][p] = r[q][i, j]
+                    ends[a_key]["mu"][p] = mm[j]
+                if first < k:
+                    for q in _END:
+                        ends[b_key][q][p] = r[q][i, first]
+                    ends[b_key]["mu"][p] = mm[first]
+                if not prev and first == k and not cc.any():
+                    if K < RETRY_BELOW and not retry[p, side]:
+                        retry[p, side] = True
+                    else:  # every interior point failed: cannot shrink this bracket
+                        (live_lo if side == 0 else live_hi)[p] = False
+                        stalled[p, side] = True
+                else:
+                    retry[p, side] = False
+                if side == 0:
+                    lo_a[p], lo_b[p] = ends["lo_a"]["mu"][p], ends["lo_b"]["mu"][p]
+                else:
+                    hi_a[p], hi_b[p] = ends["hi_a"]["mu"][p], ends["hi_b"]["mu"][p]
     for p in range(P):
         for side, (a, b) in enumerate(((lo_a, lo_b), (hi_a, hi_b))):
             if not stalled[p, side]:
