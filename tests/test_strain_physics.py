@@ -197,3 +197,30 @@ def test_critical_strain_equals_brentq_on_full_grid_searches(method):
     clear_cache()
     old = brentq(h, c.bracket[0], c.bracket[1], xtol=xtol)
     assert c.status == "found" and c.strain_c == pytest.approx(old, abs=2 * xtol)
+
+
+def test_map_on_every_other_mu_keeps_the_edges():
+    # the cmf sweep solves its (strain, mu) map on every other mu of the common grid: the solved
+    # columns must equal the full map's exactly (same points, same solver), the others be marked
+    # not computed, and the edges (refined from the wider brackets to the same tol) agree with
+    # the full-grid search within the two edge brackets; exact t = 0 edges 0 and 3V as above
+    from phasemap.strain.engine import clear_cache
+
+    models = [Model(t=t, V=1.0) for t in (0.0, 0.05, 0.3)]
+    mu = np.linspace(-1.0, 8.0, 41)
+    clear_cache()
+    full = locate_plateaus(models, "1/3", mu=mu, keep_grid=True, sections=1)
+    clear_cache()
+    half = locate_plateaus(models, "1/3", mu=mu, keep_grid=True, sections=1, grid_every=2)
+    cols = np.arange(0, 41, 2)
+    assert half.grid["computed"][:, cols].all() and not half.grid["computed"][:, 1::2].any()
+    for k in ("filling", "energy"):
+        np.testing.assert_array_equal(half.grid[k][:, cols], full.grid[k][:, cols])
+        assert np.isnan(half.grid[k][:, 1::2]).all()
+    assert (half.grid["label"][:, 1::2] == "").all() and not half.grid["converged"][:, 1::2].any()
+    assert not any("did not converge" in f for fs in half.flags for f in fs)
+    for key in ("mu_lo", "mu_hi"):
+        np.testing.assert_array_less(np.abs(getattr(half, key) - getattr(full, key)), (half.tol + full.tol) / 2 + 1e-12)
+    assert abs(half.mu_lo[0]) <= half.tol[0] / 2 + 1e-12 and abs(half.mu_hi[0] - 3.0) <= half.tol[0] / 2 + 1e-12
+    np.testing.assert_array_equal(half.exists, full.exists)
+    np.testing.assert_array_equal(half.label_center, full.label_center)

@@ -27,6 +27,7 @@ class ClusterMeanField(GrandCanonicalMethod):
     edge_sections = 1
     root_sections = 0
     root_hint_pad = 2
+    map_every = 2  # the sweep's (strain, mu) map on every other mu of the common grid (docs/strain.md)
     hint_method = "mf"
 
     def option_names(self):

@@ -39,7 +39,8 @@ class GrandCanonicalMethod(Method):
         return None
 
     # -- strain workflow ----------------------------------------------------------------------
-    _LOCATE = ("mu", "n_mu", "tol", "width_floor", "filling_tol", "jump_tol", "sections", "thresholds", "keep_grid")
+    _LOCATE = ("mu", "n_mu", "tol", "width_floor", "filling_tol", "jump_tol", "sections", "thresholds", "keep_grid",
+               "grid_every")
 
     #: search points per bracket and step of the plateau-edge search (``locate_plateaus``
     #: ``sections``). A batch of many points costs little more than one for site-decoupled mean
@@ -54,6 +55,10 @@ class GrandCanonicalMethod(Method):
     #: hint there is the method's own edges at the nearest solved strains; a search whose
     #: sub-grid does not bracket falls back to the full grid, so the pad changes cost, not answers)
     root_hint_pad = 12
+    #: the sweep's (strain, mu) map solves every ``map_every``-th chemical potential of the common
+    #: grid (and the last); the plateau edges are then refined from the wider brackets to the same
+    #: tolerance, only the kept map is coarser
+    map_every = 1
 
     def strain_step(self, spec, models, fraction, **kw):
         from ..strain.engine import locate_plateaus
@@ -63,6 +68,8 @@ class GrandCanonicalMethod(Method):
             h = locate_plateaus(models, fraction, self.hint_method,
                                 **{k: v for k, v in kw.items() if k not in ("sections",)})
             kw["hint"] = np.stack([h.mu_lo, h.mu_hi], axis=1)
+        if kw.get("keep_grid"):
+            kw.setdefault("grid_every", self.map_every)
         return locate_plateaus(models, fraction, spec, **kw).to_record(spec.name)
 
     def strain_critical(self, spec, table, strains, record, fraction, xtol=None, width_floor=1e-3, **kw):
@@ -74,7 +81,7 @@ class GrandCanonicalMethod(Method):
         floor = np.array([width_floor * m.scale for m in models])
         r = record.detail
         H = np.where(r.reached, r.width, 0.0) - floor
-        kw = {k: v for k, v in kw.items() if k in self._LOCATE and k not in ("mu", "keep_grid")}
+        kw = {k: v for k, v in kw.items() if k in self._LOCATE and k not in ("mu", "keep_grid", "grid_every")}
         return critical_strain(table, spec, fraction, "width", coarse=(np.asarray(strains, float), H, r), xtol=xtol,
                                width_floor=width_floor, sections=self.root_sections, **kw)
 

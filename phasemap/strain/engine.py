@@ -275,7 +275,7 @@ def _last_true(cond: np.ndarray, valid: np.ndarray) -> np.ndarray:
 def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = MethodSpec(), mu=None, n_mu: int = 121,
                     tol: float = 1e-4, width_floor: float = 1e-3, filling_tol: float = 1e-6,
                     jump_tol: float = 1e-3, sections: int | None = None, thresholds=Thresholds(),
-                    keep_grid: bool = False, hint=None, hint_pad: int = 12) -> PlateauResult:
+                    keep_grid: bool = False, hint=None, hint_pad: int = 12, grid_every: int = 1) -> PlateauResult:
     """Locate the plateau at ``fraction`` for every model (one batched solve per search step).
 
     Parameters
@@ -311,6 +311,13 @@ def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = Meth
         the full grid; see :func:`_sub_grid`. Not combined with ``keep_grid``.
     hint_pad : int, default 12
         Grid points kept on each side of the hint.
+    grid_every : int, default 1
+        Solve only every ``grid_every``-th point of the coarse grid (and its last point); the
+        others are kept in the grid arrays as not computed (``grid["computed"]`` False, NaN,
+        empty labels) and skipped by the brackets like non-converged points. The brackets are
+        then up to ``grid_every`` times wider and the edge search refines them to the same
+        ``tol`` (the edges agree with a full-grid search within the edge brackets); only the
+        kept (strain, mu) map is coarser.
 
     Returns
     -------
@@ -347,8 +354,11 @@ def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = Meth
         kw = dict(fraction=fraction, spec=spec, n_mu=n_mu, tol=tol, width_floor=width_floor, filling_tol=filling_tol,
                   jump_tol=jump_tol, sections=sections, thresholds=thresholds)
         return _locate_hinted(models, grid_mu, np.asarray(hint, float).reshape(P, 2), int(hint_pad), kw)
-    g = evaluate_points(models, grid_mu, spec, thresholds)
+    if int(grid_every) < 1:
+        raise ConfigError(f"grid_every: must be an integer >= 1, got {grid_every!r}")
+    g = _evaluate_every(models, grid_mu, spec, thresholds, int(grid_every))
     n, conv = g["filling"].astype(float), g["converged"]
+    computed = g["computed"]
     flags = [[] for _ in range(P)]
     unconv = [[] for _ in range(P)]  # what did not converge (a field, not flag text; also shown in flags)
 
@@ -356,10 +366,10 @@ def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = Meth
         unconv[p].append(msg)
         flags[p].append(f"unconverged: {msg}")
 
-    bad = (~conv).sum(1)
+    bad = (computed & ~conv).sum(1)
     for p in range(P):
         if bad[p]:
-            flags[p].append(f"note: {int(bad[p])} of {grid_mu.shape[1]} grid points did not converge (skipped)")
+            flags[p].append(f"note: {int(bad[p])} of {int(computed[p].sum())} grid points did not converge (skipped)")
         nc = n[p][conv[p]]
         if len(nc) > 1 and np.any(np.diff(nc) < -jump_tol):
             flags[p].append("non-monotonic filling on the grid (a seed may have missed the ground state)")
@@ -475,7 +485,7 @@ def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = Meth
     cen = {k: np.where(lo_open, ends["hi_a"][k], ends["lo_b"][k]) for k in _END}
     both = lo_open & hi_open
     if both.any():
-        mid = M // 2
+        mid = int(np.argmin(np.where(computed[0], np.abs(np.arange(M) - M // 2), M)))
         for k in _END:
             cen[k] = np.where(both, g[k][:, mid], cen[k])
     c = {k: cen[k][:, None] for k in _END}
@@ -510,6 +520,28 @@ def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = Meth
         flags=flags, unconverged=unconv, grid=g if keep_grid else None, grid_mu=grid_mu if keep_grid else None,
     )
     return res
+
+
+def _evaluate_every(models, grid_mu, spec, thresholds, every: int) -> dict:
+    """:func:`evaluate_points` on every ``every``-th column of the grid and its last one; the other
+    columns are marked not computed (``computed`` False, ``converged`` False, NaN, empty labels),
+    so the bracket logic, which skips non-converged points, passes over them."""
+    P, M = grid_mu.shape
+    cols = np.unique(np.r_[np.arange(0, M, every), M - 1])
+    if len(cols) == M:
+        g = evaluate_points(models, grid_mu, spec, thresholds)
+        g["computed"] = np.ones((P, M), bool)
+        return g
+    sub = evaluate_points(models, grid_mu[:, cols], spec, thresholds)
+    g = {}
+    for k, v in sub.items():
+        fill = "" if v.dtype.kind in "UO" else (False if v.dtype == bool else np.nan)
+        a = np.full((P, M), fill, dtype=v.dtype if v.dtype.kind not in "UO" else object)
+        a[:, cols] = v
+        g[k] = a.astype(str) if v.dtype.kind in "UO" else a
+    g["computed"] = np.zeros((P, M), bool)
+    g["computed"][:, cols] = True
+    return g
 
 
 def _sub_grid(grid_mu: np.ndarray, hint: np.ndarray, pad: int):

@@ -162,6 +162,18 @@ def _mu_index(sweep, mu):
     return int(np.argmin(np.abs(sweep.mu - mu))), mu
 
 
+def _computed_columns(g) -> np.ndarray:
+    """Chemical-potential columns of a method's map that were solved (cmf solves every other one)."""
+    c = g.get("computed")
+    return np.arange(g["label"].shape[1]) if c is None else np.nonzero(np.asarray(c).all(0))[0]
+
+
+def _computed_index(g, k: int) -> int:
+    """The solved column of the map nearest to column ``k``."""
+    cols = _computed_columns(g)
+    return int(cols[np.argmin(np.abs(cols - k))])
+
+
 def plot_order_parameters(sweep, mu=None) -> Figure:
     """S(Q) and condensate at a fixed mu (grid point nearest to ``mu``), and width/V, versus strain."""
     k, mu = _mu_index(sweep, mu)
@@ -175,9 +187,10 @@ def plot_order_parameters(sweep, mu=None) -> Figure:
         for i, n in enumerate(sweep.grid_names):
             g = sweep.records[n].grid
             ls = _STYLES[i % len(_STYLES)]
-            conv = g["converged"][:, k]
-            sq = np.where(conv, g["sq_max"][:, k], np.nan)
-            cd = np.where(conv, g["condensate_max"][:, k], np.nan)
+            kn = _computed_index(g, k)
+            conv = g["converged"][:, kn]
+            sq = np.where(conv, g["sq_max"][:, kn], np.nan)
+            cd = np.where(conv, g["condensate_max"][:, kn], np.nan)
             axes[0].plot(sweep.strains, sq, ls=ls, color=colors[n], marker=".", ms=3, label=n)
             axes[1].plot(sweep.strains, cd, ls=ls, color=colors[n], marker=".", ms=3, label=n)
             r = sweep.records[n]
@@ -226,7 +239,8 @@ def plot_phase_map(sweep) -> Figure:
     names = sweep.grid_names
     if not names:
         return None  # finite-lattice methods only: no (strain, mu) map
-    labels = sort_labels(np.unique(np.concatenate([sweep.records[n].grid["label"].ravel() for n in names])))
+    grids = {n: sweep.records[n].grid for n in names}
+    labels = sort_labels(np.unique(np.concatenate([g["label"][:, _computed_columns(g)].ravel() for g in grids.values()])))
     colors = phase_colors(labels)
     idx = {lab: i for i, lab in enumerate(labels)}
     cmap = ListedColormap([colors[lab] for lab in labels])
@@ -237,9 +251,9 @@ def plot_phase_map(sweep) -> Figure:
         axes = np.atleast_1d(fig.subplots(1, len(names), sharey=True))
         s, mu = sweep.strains, sweep.mu
         for ax, n in zip(axes, names):
-            lab = sweep.records[n].grid["label"]
-            codes = np.vectorize(idx.get)(lab)
-            ax.pcolormesh(_edges(s), _edges(mu), codes.T, cmap=cmap, norm=norm, shading="flat", rasterized=True)
+            cols = _computed_columns(grids[n])  # a coarser map (cmf) is drawn on its own mu points
+            codes = np.vectorize(idx.get)(grids[n]["label"][:, cols])
+            ax.pcolormesh(_edges(s), _edges(mu[cols]), codes.T, cmap=cmap, norm=norm, shading="flat", rasterized=True)
             r = sweep.records[n]
             ok = r.exists
             ax.plot(s[ok], r.mu_lo[ok], "k-", lw=0.7)

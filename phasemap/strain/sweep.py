@@ -141,6 +141,7 @@ class StrainSweep:
         nanmap = lambda: np.full((A, S_, M), np.nan)  # noqa: E731
         fill, sq, cond = nanmap(), nanmap(), nanmap()
         conv = np.zeros((A, S_, M), bool)
+        comp = np.zeros((A, S_, M), bool)
         code = np.full((A, S_, M), -1, np.int8)
         label = np.full((A, S_, M), "", dtype=object)
         per = {k: np.full((A, S_), np.nan) for k in ("mu_lo", "mu_hi", "width", "jump_lo", "jump_hi")}
@@ -157,6 +158,7 @@ class StrainSweep:
                 g = r.grid
                 fill[a], sq[a], cond[a] = g["filling"], g["sq_max"], g["condensate_max"]
                 conv[a] = g["converged"]
+                comp[a] = g.get("computed", True)
                 code[a] = np.vectorize(lambda x: codes.get(x, -1))(g["phase"])
                 label[a] = g["label"]
             per["mu_lo"][a], per["mu_hi"][a], per["width"][a] = r.mu_lo, r.mu_hi, r.width
@@ -176,6 +178,8 @@ class StrainSweep:
             "sq_max": (m3, sq, {"long_name": "largest S(Q) at nonzero Q (solid order)"}),
             "condensate_max": (m3, cond, {"long_name": "max |<b>| (condensate)"}),
             "converged": (m3, conv),
+            "computed": (m3, comp, {"long_name": "map point solved (cmf maps solve every other mu of the grid; "
+                                    "the plateau edges are searched to the same tolerance regardless)"}),
             "phase_code": (m3, code, {"flag_values": list(codes.values()), "flag_meanings": " ".join(codes)}),
             "label": (m3, label.astype(str)),
             "mu_lo": (m2, per["mu_lo"], {"units": u, "long_name": f"{self.fraction} plateau lower edge "
