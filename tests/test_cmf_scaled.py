@@ -180,3 +180,22 @@ def test_critical_strain_of_linearly_closing_widths_is_exact():
     X = np.stack([lam, np.ones(3)], 1)
     g = np.array([1.0, 1.0]) @ np.linalg.pinv(X)
     assert c.resolution_error == pytest.approx(0.02 / np.sqrt(12) * np.sqrt(np.sum(g ** 2)), rel=1e-12)
+
+
+def test_cluster_hint_leaves_every_clusters_edges_unchanged():
+    # independent computation: each cluster's own full-grid plateau search (no hint, same grid, same
+    # bisection). cmf-scaled hints every cluster after the first with the previous cluster's edges;
+    # a sub-grid that does not bracket falls back to the full grid, so with a non-decreasing filling
+    # the edges must be the full grid's to the last bit (deep in the solid, t = 0.05 .. 0.08 V)
+    from phasemap.strain.engine import clear_cache, locate_plateaus
+
+    s = np.array([0.0, 0.1])
+    tab = StrainTable.from_columns({"strain": s, "t": 0.05 + 0.3 * s, "V": np.ones(2)}, unit="V")
+    spec = MethodSpec.parse("cmf-scaled:3+6")
+    clear_cache()
+    step = spec.impl.strain_step(spec, tab.models(s), "1/3", width_floor=1e-3).detail
+    for c in ("tri3", "tri6"):
+        clear_cache()
+        ref = locate_plateaus(tab.models(s), "1/3", f"cmf:{c}", n_mu=49, tol=1e-3, sections=1)
+        np.testing.assert_array_equal(step.records[c].mu_lo, ref.mu_lo, err_msg=c)
+        np.testing.assert_array_equal(step.records[c].mu_hi, ref.mu_hi, err_msg=c)

@@ -42,7 +42,9 @@ __all__ = ["ClusterScaledMeanField", "ScaledStep", "ScaledCritical", "DEFAULT_CL
 DEFAULT_CLUSTERS = ("tri3", "tri6", "tri9")
 #: Plateau search of each cluster (coarser than a single cmf sweep: the spread between clusters is
 #: 0.1-1 V, so edges to 1e-3 V suffice and the cost of the per-point engine stays bounded).
-SEARCH = {"n_mu": 49, "tol": 1e-3, "sections": 15}
+SEARCH = {"n_mu": 49, "tol": 1e-3, "sections": 1}
+#: grid points kept on either side of the previous cluster's edges (the hint of the next cluster's search)
+HINT_PAD = 2
 _OWN = ("clusters", "every", "n_mu", "tol", "sections", "polish")
 _NAME = re.compile(r"^\d+$")
 
@@ -152,9 +154,12 @@ class ClusterScaledMeanField(Method):
         sub = [m for m, c in zip(models, computed) if c]
         search = {k: kw[k] for k in ("width_floor", "filling_tol", "jump_tol", "thresholds") if k in kw}
         search.update({k: s[k] for k in SEARCH})
-        recs = {}
+        recs, prev = {}, None
         for sp, c in zip(self.cluster_specs(spec), s["clusters"]):
-            recs[c] = sp.impl.strain_step(sp, sub, fraction, **search)
+            # the previous cluster's edges at the same strains tell where to look (much nearer than mf's);
+            # a sub-grid that does not bracket falls back to the full grid (locate_plateaus ``hint``)
+            hint = {} if prev is None else {"hint": np.stack([prev.mu_lo, prev.mu_hi], axis=1), "hint_pad": HINT_PAD}
+            recs[c] = prev = sp.impl.strain_step(sp, sub, fraction, **search, **hint)
         step = ScaledStep.build(spec, s, models, computed, recs, fraction, kw.get("width_floor", 1e-3))
         return _record(step, spec.name, fraction)
 

@@ -63,8 +63,8 @@ class GrandCanonicalMethod(Method):
     def strain_step(self, spec, models, fraction, **kw):
         from ..strain.engine import locate_plateaus
 
-        kw = {k: v for k, v in kw.items() if k in self._LOCATE}
-        if self.hint_method and kw.get("mu") is None and not kw.get("keep_grid"):
+        kw = {k: v for k, v in kw.items() if k in self._LOCATE or k in ("hint", "hint_pad")}
+        if self.hint_method and kw.get("mu") is None and not kw.get("keep_grid") and kw.get("hint") is None:
             h = locate_plateaus(models, fraction, self.hint_method,
                                 **{k: v for k, v in kw.items() if k not in ("sections",)})
             kw["hint"] = np.stack([h.mu_lo, h.mu_hi], axis=1)
