@@ -45,7 +45,7 @@ def test_exact_bad_input_exit_2(capsys):
     assert "cluster" in capsys.readouterr().err
     assert main(["exact", "--t", "0.1", "--V", "1", "--cluster", "tri12", "--particles", "20"]) == 2
     assert "particles" in capsys.readouterr().err
-    assert main(["exact", "--t", "0.1", "--V", "1", "--cluster", "tri36", "--particles", "18"]) == 2
+    assert main(["exact", "--t", "0.1", "--V", "1", "--cluster", "tri36", "--particles", "18", "--budget-gib", "2"]) == 2
     assert "GiB" in capsys.readouterr().err
 
 

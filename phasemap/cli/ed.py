@@ -41,6 +41,10 @@ def register(sub) -> None:
     p.add_argument("--all-momenta", action="store_true", help="diagonalise every momentum class (lists "
                    "ground-state momenta/degeneracies; default: Q=0 only, exact for t>=0 by Perron-Frobenius)")
     p.add_argument("--no-particle-hole", action="store_true", help="diagonalise every N (no hard-core mapping)")
+    p.add_argument("--rep-lookup", default="auto", choices=("auto", "table", "search"), dest="rep_lookup",
+                   help="hard-core space-group sectors: find a state's representative in a dense table (4 bytes "
+                        "per Fock state, fastest), by a table-free search (16 bytes per sector state), or auto "
+                        "(default: the table when its estimate fits --budget-gib)")
     p.add_argument("--no-figure", action="store_true", help="do not draw the staircase figure")
     p.add_argument("--mf-methods", default="mf", help="filling curves to overlay: comma list of mf,cmf "
                    "(default mf; cmf is slow; '' for none)")
@@ -111,7 +115,8 @@ def _run(args, model, cluster, N, rng, overlay, out) -> int:
 
     if N is not None:
         t0 = time.perf_counter()
-        sol = solve_ed(model, cluster=cluster, particles=N, budget_gib=args.budget_gib, all_momenta=args.all_momenta)
+        sol = solve_ed(model, cluster=cluster, particles=N, budget_gib=args.budget_gib, all_momenta=args.all_momenta,
+                       rep_lookup=args.rep_lookup)
         d = sol.to_dict()
         d["wall_time_s"] = time.perf_counter() - t0
         if out:
@@ -124,7 +129,7 @@ def _run(args, model, cluster, N, rng, overlay, out) -> int:
     t0 = time.perf_counter()
     log = (lambda n, dt: None) if args.json else (lambda n, dt: print(f"  N={n:3d} solved in {dt:7.2f} s", flush=True))
     ds = staircase(model, cluster, n_range=rng, particle_hole=not args.no_particle_hole, observables=obs,
-                   budget_gib=args.budget_gib, all_momenta=args.all_momenta, progress=log)
+                   budget_gib=args.budget_gib, all_momenta=args.all_momenta, progress=log, rep_lookup=args.rep_lookup)
     wall = time.perf_counter() - t0
     files, notes = [], []
     if out:

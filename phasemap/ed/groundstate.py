@@ -15,7 +15,7 @@ import numpy as np
 from ..lattice import Supercell
 from ..model import ConfigError, Model
 from .clusters import check_bonds, get_cluster, momentum_classes, point_group
-from .guard import DEFAULT_BUDGET_GIB, check_budget, estimate, estimate_space_group
+from .guard import DEFAULT_BUDGET_GIB, check_budget, choose_lookup, estimate
 from .sector import Sector
 from .spacegroup import MAX_SITES, SymSector, group_permutations, sector_dimension
 
@@ -90,28 +90,52 @@ SECTOR_CACHE_BYTES = 2 * 2**30
 _SECTORS: dict = {}
 
 
-def sector_estimate(model: Model, cell, N: int, **kw):
+def _search_ok(cell) -> bool:
+    from .replookup import row_layout
+
+    key = (cell.lattice.name, cell.vectors.tobytes())
+    if key not in _LAYOUT_OK:
+        _LAYOUT_OK[key] = row_layout(cell) is not None
+    return _LAYOUT_OK[key]
+
+
+_LAYOUT_OK: dict = {}
+
+
+def space_group_plan(model: Model, cell, N: int, budget_gib=DEFAULT_BUDGET_GIB, rep_lookup: str = "auto",
+                     ops=None):
+    """(lookup, estimate) of the trivial space-group sector at N (:func:`phasemap.ed.guard.choose_lookup`)."""
+    ops = point_group(cell, model) if ops is None else ops
+    perms, _ = group_permutations(cell, ops)
+    dim = sector_dimension(perms, np.ones(len(perms), np.int64), N)
+    return choose_lookup(cell.n_sites, N, dim, n_hop_dirs(model), budget_gib, rep_lookup,
+                         search_ok=_search_ok(cell))
+
+
+def sector_estimate(model: Model, cell, N: int, budget_gib=DEFAULT_BUDGET_GIB, rep_lookup: str = "auto", **kw):
     """The memory estimate :func:`ground_state` checks for this sector (same options)."""
     if uses_space_group(model, cell, **kw):
-        perms, _ = group_permutations(cell, point_group(cell, model))
-        dim = sector_dimension(perms, np.ones(len(perms), np.int64), N)
-        return estimate_space_group(cell.n_sites, N, dim, n_hop_dirs(model))
+        return space_group_plan(model, cell, N, budget_gib, rep_lookup)[1]
     sym = kw.get("symmetric", True)
     return estimate(cell.n_sites, N, model.n_max, n_hop_dirs(model), cell.n_sites if sym else 1)
 
 
-def space_group_sector(model: Model, cell, N: int, budget_gib=DEFAULT_BUDGET_GIB) -> SymSector:
-    """The trivial sector of the kept space group at N (cached per cluster, N and symmetry)."""
+def space_group_sector(model: Model, cell, N: int, budget_gib=DEFAULT_BUDGET_GIB, rep_lookup: str = "auto") -> SymSector:
+    """The trivial sector of the kept space group at N (cached per cluster, N and symmetry).
+
+    ``rep_lookup``: "table" (dense rank table, fastest), "search" (table-free,
+    :mod:`phasemap.ed.replookup`) or "auto" (the table when its estimate fits ``budget_gib``).
+    """
     ops = point_group(cell, model)
+    lookup, est = space_group_plan(model, cell, N, budget_gib, rep_lookup, ops=ops)
     key = (cell.lattice.name, cell.vectors.tobytes(), N, tuple(np.asarray(ops).ravel().tolist()),
-           tuple(bool(t) for t in model.t), bool(model.V2))
+           tuple(bool(t) for t in model.t), bool(model.V2), lookup)
     sec = _SECTORS.get(key)
     if sec is not None and sec.compatible(model):
         sec.set_model(model)
         return sec
-    est = sector_estimate(model, cell, N)
     check_budget(est, budget_gib, what=f"ED sector N={N} on {cell!r}")
-    sec = SymSector(cell, model, N, ops=ops)
+    sec = SymSector(cell, model, N, ops=ops, lookup=lookup)
     sec.estimate = est
     if 4.0 * sec.fock <= SECTOR_CACHE_BYTES:
         while _SECTORS and sum(4.0 * s.fock for s in _SECTORS.values()) + 4.0 * sec.fock > SECTOR_CACHE_BYTES:
@@ -122,7 +146,8 @@ def space_group_sector(model: Model, cell, N: int, budget_gib=DEFAULT_BUDGET_GIB
 
 def ground_state(model: Model, cluster, N: int, *, symmetric: bool = True, point_group_reduce: bool = True,
                  budget_gib: float | None = DEFAULT_BUDGET_GIB, tol: float = 1e-10, lookup: str = "auto",
-                 momenta=None, all_momenta: bool = False, space_group: bool = True) -> GroundState:
+                 momenta=None, all_momenta: bool = False, space_group: bool = True,
+                 rep_lookup: str = "auto") -> GroundState:
     """Exact ground state with N bosons on a periodic cluster.
 
     Parameters
@@ -146,6 +171,10 @@ def ground_state(model: Model, cluster, N: int, *, symmetric: bool = True, point
         the trivial sector of the space group that the couplings keep (translations x kept
         point group, :mod:`phasemap.ed.spacegroup`), where a ground state lies by the
         Perron-Frobenius argument below. ``False`` uses the translation-only Q = 0 sector.
+    rep_lookup : {"auto", "table", "search"}
+        Space-group path: the dense rank table (4 bytes per Fock state, fastest), the
+        table-free search (:mod:`phasemap.ed.replookup`), or "auto" (the table when the
+        guard's estimate fits ``budget_gib``, else the search).
     all_momenta : bool, default False
         Diagonalise every momentum class. By default only Q = 0 is diagonalised: with
         t >= 0 every off-diagonal element is <= 0 in the occupation basis, so by the
@@ -171,7 +200,7 @@ def ground_state(model: Model, cluster, N: int, *, symmetric: bool = True, point
         import time
 
         t0 = time.perf_counter()
-        sec = space_group_sector(model, cell, N, budget_gib)
+        sec = space_group_sector(model, cell, N, budget_gib, rep_lookup)
         build = time.perf_counter() - t0
         t1 = time.perf_counter()
         w, v = sec.solve(tol=tol)

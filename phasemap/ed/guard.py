@@ -18,7 +18,8 @@ from functools import lru_cache
 
 from ..model import ConfigError
 
-__all__ = ["fock_dimension", "Estimate", "estimate", "estimate_space_group", "check_budget", "DEFAULT_BUDGET_GIB"]
+__all__ = ["fock_dimension", "Estimate", "estimate", "estimate_space_group", "choose_lookup", "check_budget",
+           "DEFAULT_BUDGET_GIB"]
 
 def _default_budget() -> float:
     """60 % of the physical memory, at most 16 GiB (8 GiB if the memory size is unknown)."""
@@ -118,24 +119,59 @@ TABLE_KEEP_BYTES = 2 * 2**30
 
 
 def estimate_space_group(L: int, N: int, dim: int, n_hop_dirs: int, ncv: int = 20,
-                         keep_table_bytes: float = TABLE_KEEP_BYTES) -> Estimate:
+                         keep_table_bytes: float = TABLE_KEEP_BYTES, lookup: str = "table") -> Estimate:
     """Peak memory of a hard-core space-group sector (:class:`phasemap.ed.spacegroup.SymSector`).
 
     ``dim`` is the exact sector dimension (Burnside count). Bytes: the Hamiltonian entries
     (one packed int32 per hop, values made in the product; entries = ``dim * n_hop_dirs * L * p``
     with the hard-core hop probability ``p``), about 60 bytes per state (representatives,
-    stabilisers, diagonal, row pointers, bond counts), and the larger of two phases: the build
-    (rank table, 4 bytes per Fock state ``C(L, N)``, plus ~16 bytes per state of enumeration
-    temporaries) and Lanczos (``ncv + 6`` vectors, plus the rank table only if it is kept,
-    i.e. at most ``keep_table_bytes``; a larger table is freed before Lanczos and rebuilt
-    after it by the observables that need it).
+    stabilisers, diagonal, row pointers, bond counts), and the larger of two phases:
+
+    * ``lookup="table"``: the build (rank table, 4 bytes per Fock state ``C(L, N)``, one flag
+      bit per Fock state, ~16 bytes per state of enumeration temporaries) and Lanczos (``ncv + 6`` vectors, plus the
+      rank table only if it is kept, i.e. at most ``keep_table_bytes``; a larger table is freed
+      before Lanczos and rebuilt after it by the observables that need it);
+    * ``lookup="search"`` (:mod:`phasemap.ed.replookup`, no table): 16 more bytes per state
+      kept (sorted keys and their cell-order states), the enumeration (one bit per walked state,
+      ``C(L-1, N-1)``, plus ~32 bytes per state of temporaries) and Lanczos (``ncv + 6`` vectors).
     """
     fock = fock_dimension(L, N, 1)
     hops = int(dim * n_hop_dirs * L * _hop_probability(L, N))
-    table = 4.0 * fock
-    lanczos = 8.0 * (ncv + 6) * dim + (table if table <= keep_table_bytes else 0.0)
-    b = 4.0 * hops + 60.0 * dim + max(table + 16.0 * dim, lanczos)
-    return Estimate(L, N, 1, fock, int(dim), hops, float(b), kind="in the space-group sector (exact)")
+    lanczos = 8.0 * (ncv + 6) * dim
+    if lookup == "search":
+        walked = fock_dimension(L - 1, N - 1, 1) if N > 0 else 1
+        b = 4.0 * hops + 76.0 * dim + max(walked / 8.0 + 32.0 * dim, lanczos)
+        kind = "in the space-group sector (exact; table-free lookup)"
+    else:
+        table = 4.0 * fock
+        lanczos += table if table <= keep_table_bytes else 0.0
+        b = 4.0 * hops + 60.0 * dim + max(table + fock / 8.0 + 16.0 * dim, lanczos)
+        kind = "in the space-group sector (exact; rank table)"
+    return Estimate(L, N, 1, fock, int(dim), hops, float(b), kind=kind)
+
+
+#: Lookups of the space-group path: ``auto`` takes the table-free search wherever the torus
+#: splits into rows (measured as fast or faster to build, same Lanczos; docs/ed.md), else the table.
+REP_LOOKUPS = ("auto", "table", "search")
+
+
+def choose_lookup(L: int, N: int, dim: int, n_hop_dirs: int, budget_gib=None, rep_lookup: str = "auto",
+                  search_ok: bool = True) -> tuple[str, Estimate]:
+    """The lookup the space-group sector will use and its memory estimate.
+
+    ``auto``: the table-free search if the torus allows it (``search_ok``, every library
+    torus), else the rank table; ``table``/``search`` force one. The caller checks the
+    returned estimate against ``budget_gib`` (:func:`check_budget`); ``budget_gib`` is accepted
+    here only to keep one signature for both estimates.
+    """
+    if rep_lookup not in REP_LOOKUPS:
+        raise ConfigError(f"rep_lookup: must be one of {', '.join(REP_LOOKUPS)}, got {rep_lookup!r}")
+    if rep_lookup == "search" and not search_ok:
+        raise ConfigError("rep_lookup: 'search' needs a torus that splits into rows of at most 12 sites; "
+                          "use 'table' or 'auto'")
+    if rep_lookup == "table" or not search_ok:
+        return "table", estimate_space_group(L, N, dim, n_hop_dirs, lookup="table")
+    return "search", estimate_space_group(L, N, dim, n_hop_dirs, lookup="search")
 
 
 def check_budget(est: Estimate, budget_gib: float | None = DEFAULT_BUDGET_GIB, what: str = "sector") -> None:

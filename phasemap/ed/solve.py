@@ -102,7 +102,7 @@ def indicator(model: Model, cell, N: int, obs: dict, gap: float | None, th: EDTh
 RESIDUAL_TOL = 1e-6
 
 ED_OPTIONS = {"symmetric", "point_group_reduce", "budget_gib", "tol", "lookup", "observables", "phi",
-            "neighbors", "thresholds", "all_momenta", "space_group"}
+            "neighbors", "thresholds", "all_momenta", "space_group", "rep_lookup"}
 
 
 def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Solution:
@@ -116,7 +116,7 @@ def solve_ed(model: Model, cluster="tri12", particles=None, **options) -> Soluti
     particles : int, optional
         Number of bosons N. Default: the grand-canonical ground state of the cluster at
         ``model.mu`` (the N minimising E0(N); this diagonalises every N).
-    symmetric, point_group_reduce, budget_gib, tol, lookup, all_momenta, space_group
+    symmetric, point_group_reduce, budget_gib, tol, lookup, all_momenta, space_group, rep_lookup
         See :func:`phasemap.ed.groundstate.ground_state` (``all_momenta=True`` lists every
         momentum sector's energy and the degenerate ground-state momenta).
     observables : tuple, default ("sq", "condensate", "stiffness")

@@ -50,22 +50,32 @@ import math
 import time
 
 import numpy as np
-from numba import njit, prange
 
 from ..lattice import Supercell
 from ..model import Model
 from .clusters import point_group
 from .guard import TABLE_KEEP_BYTES
+from .replookup import SearchLookup, empty_pack, flagged_states
+from .sgkernels import (
+    _COL_BITS,
+    _COL_MASK,
+    _SENT,
+    _apply_bonds,
+    _bond_counts,
+    _compact,
+    _count_hops,
+    _fill_hops,
+    _mark_orbits,
+    _packed_matvec,
+    _pair_correlation,
+    _stabilisers,
+    _values,
+)
 
 __all__ = ["SymSector", "group_permutations", "sector_dimension", "MAX_SITES"]
 
 MAX_SITES = 62
-_SENT = np.int32(-(2**31))
 _DENSE_MAX = 600
-#: Hamiltonian entries are one int32 each: column in the low _COL_BITS bits, above it
-#: 2 (family) + (1 if the character sign is -1); values are made on the fly in the product.
-_COL_BITS = 27
-_COL_MASK = (1 << _COL_BITS) - 1
 
 
 # -- byte tables -----------------------------------------------------------------------------
@@ -111,258 +121,21 @@ def _rank_tables_cached(L):
     return _RANK_CACHE[L]
 
 
-# -- compiled kernels ------------------------------------------------------------------------
-@njit(cache=True, inline="always")
-def _permute(ptab, g, s):
-    out = np.int64(0)
-    for c in range(ptab.shape[1]):
-        out |= ptab[g, c, (s >> (8 * c)) & 255]
-    return out
-
-
-@njit(cache=True, inline="always")
-def _rank(rtab, pc, s):
-    r = np.int64(0)
-    m = 0
-    for c in range(rtab.shape[0]):
-        b = (s >> (8 * c)) & 255
-        r += rtab[c, m, b]
-        m += pc[b]
-    return r
-
-
-@njit(cache=True, inline="always")
-def _next_comb(s):
-    """Next integer with the same number of set bits (Gosper)."""
-    c = s & -s
-    r = s + c
-    return (((r ^ s) >> 2) // c) | r
-
-
-@njit(cache=True, parallel=True)
-def _flag_minimal(starts, chunk, total, ptab, table):
-    """table[rank] = 1 where the state is the smallest of its orbit; returns counts per chunk."""
-    G = ptab.shape[0]
-    nch = starts.shape[0]
-    counts = np.zeros(nch, np.int64)
-    for c in prange(nch):
-        s = starts[c]
-        r1 = min(total, (c + 1) * chunk)
-        k = 0
-        for rank in range(c * chunk, r1):
-            ok = True
-            for g in range(1, G):
-                if _permute(ptab, g, s) < s:
-                    ok = False
-                    break
-            if ok:
-                table[rank] = 1
-                k += 1
-            if rank + 1 < r1:
-                s = _next_comb(s)
-        counts[c] = k
-    return counts
-
-
-@njit(cache=True, parallel=True)
-def _collect(starts, chunk, total, table, offsets, out):
-    for c in prange(starts.shape[0]):
-        s = starts[c]
-        r1 = min(total, (c + 1) * chunk)
-        k = offsets[c]
-        for rank in range(c * chunk, r1):
-            if table[rank] == 1:
-                out[k] = s
-                k += 1
-            if rank + 1 < r1:
-                s = _next_comb(s)
-
-
-@njit(cache=True, parallel=True)
-def _stabilisers(orbits, ptab, chi, stab, ok):
-    G = ptab.shape[0]
-    for o in prange(orbits.shape[0]):
-        s = orbits[o]
-        st = 0
-        good = True
-        for g in range(G):
-            if _permute(ptab, g, s) == s:
-                st += 1
-                if chi[g] != 1:
-                    good = False
-        stab[o] = st
-        ok[o] = good
-
-
-@njit(cache=True, parallel=True)
-def _mark_orbits(orbits, index, ptab, rtab, pc, chi, table):
-    """table[rank(g r)] = chi(g) (index(r) + 1), or the sentinel for orbits outside the sector."""
-    G = ptab.shape[0]
-    sent = np.int32(-(2**31))
-    for o in prange(orbits.shape[0]):
-        s = orbits[o]
-        i = index[o]
-        for g in range(G):
-            rk = _rank(rtab, pc, _permute(ptab, g, s))
-            table[rk] = sent if i < 0 else np.int32((i + 1) * chi[g])
-
-
-def _unrank(rank: int, N: int) -> int:
-    """Integer with N set bits of colexicographic rank ``rank``."""
-    s = 0
-    for k in range(N, 0, -1):
-        c = k - 1
-        while math.comb(c + 1, k) <= rank:
-            c += 1
-        s |= 1 << c
-        rank -= math.comb(c, k)
-    return s
-
-
 def _enumerate(N, total, ptab, rtab, pc, chi, table, n_chunks=512):
     """Representatives (smallest state of each orbit in the sector), stabilisers; fills ``table``.
 
-    Parallel: flag orbit minima (early exit at the first smaller image), collect them in
-    rank order, count stabilisers, then mark every Fock state with its representative.
+    Parallel: flag orbit minima (early exit at the first smaller image; one bit per Fock
+    state), collect them in rank order, count stabilisers, then mark every Fock state with its
+    representative.
     """
-    chunk = max(1, -(-total // n_chunks))
-    starts = np.array([_unrank(c * chunk, N) for c in range(-(-total // chunk))], np.int64)
-    counts = _flag_minimal(starts, chunk, total, ptab, table)
-    offsets = np.concatenate([[0], np.cumsum(counts)[:-1]]).astype(np.int64)
-    orbits = np.empty(int(counts.sum()), np.int64)
-    _collect(starts, chunk, total, table, offsets, orbits)
+    z = empty_pack()
+    orbits = flagged_states(N, total, 0, ptab, z[1], z[2], z[3], z[4], z[5], z[6], False, n_chunks)
     stab = np.empty(len(orbits), np.int64)
     ok = np.empty(len(orbits), np.bool_)
     _stabilisers(orbits, ptab, chi, stab, ok)
     index = np.where(ok, np.cumsum(ok) - 1, -1).astype(np.int64)
     _mark_orbits(orbits, index, ptab, rtab, pc, chi, table)
     return orbits[ok], stab[ok]
-
-
-@njit(cache=True, parallel=True)
-def _count_hops(reps, table, rtab, pc, ba, bb):
-    n = reps.shape[0]
-    counts = np.zeros(n + 1, np.int64)
-    sent = np.int32(-(2**31))
-    for r in prange(n):
-        s = reps[r]
-        k = 0
-        for q in range(ba.shape[0]):
-            a = ba[q]
-            b = bb[q]
-            if (s >> b) & 1 and not (s >> a) & 1:
-                t = s ^ ((np.int64(1) << a) | (np.int64(1) << b))
-                if table[_rank(rtab, pc, t)] != sent:
-                    k += 1
-        counts[r + 1] = k
-    return counts
-
-
-@njit(cache=True, parallel=True)
-def _fill_hops(reps, table, rtab, pc, ba, bb, bcode, indptr, packed):
-    """Column and matrix-element kind of every hop, packed in one int32 (``_COL_BITS``)."""
-    n = reps.shape[0]
-    sent = np.int32(-(2**31))
-    for r in prange(n):
-        s = reps[r]
-        p = indptr[r]
-        for q in range(ba.shape[0]):
-            a = ba[q]
-            b = bb[q]
-            if (s >> b) & 1 and not (s >> a) & 1:
-                t = s ^ ((np.int64(1) << a) | (np.int64(1) << b))
-                v = table[_rank(rtab, pc, t)]
-                if v != sent:
-                    kind = 2 * (np.int64(bcode[q]) - 1)
-                    if v > 0:
-                        col = np.int64(v) - 1
-                    else:
-                        col = -np.int64(v) - 1
-                        kind += 1
-                    packed[p] = np.int32(col | (kind << _COL_BITS))
-                    p += 1
-
-
-@njit(cache=True, parallel=True)
-def _values(indptr, packed, stab, amps, out):
-    """out[p] = +-amps[family] * sqrt(stab[col] / stab[row]) (explicit values, tests and small sectors)."""
-    n = indptr.shape[0] - 1
-    for r in prange(n):
-        sr = stab[r]
-        for p in range(indptr[r], indptr[r + 1]):
-            e = packed[p]
-            c = e & _COL_MASK
-            k = e >> _COL_BITS
-            a = amps[k >> 1] * np.sqrt(stab[c] / sr)
-            out[p] = -a if k & 1 else a
-
-
-@njit(cache=True, parallel=True)
-def _packed_matvec(indptr, packed, amp2, sq, isq, diag, x, z, y):
-    r"""y = H x with values made on the fly: y_r = d_r x_r + (1/sqrt S_r) sum_p a_p sqrt(S_c) x_c."""
-    n = indptr.shape[0] - 1
-    for r in prange(n):
-        z[r] = sq[r] * x[r]
-    for r in prange(n):
-        acc = 0.0
-        for p in range(indptr[r], indptr[r + 1]):
-            e = packed[p]
-            acc += amp2[e >> _COL_BITS] * z[e & _COL_MASK]
-        y[r] = diag[r] * x[r] + isq[r] * acc
-
-
-@njit(cache=True, parallel=True)
-def _apply_bonds(reps, table, rtab, pc, stab, ba, bb, amp, x, y):
-    """Matrix-free y = O x for a G-invariant hopping operator O = sum_q amp_q b_a^+ b_b."""
-    n = reps.shape[0]
-    sent = np.int32(-(2**31))
-    for r in prange(n):
-        s = reps[r]
-        acc = 0.0
-        for q in range(ba.shape[0]):
-            a = ba[q]
-            b = bb[q]
-            if (s >> b) & 1 and not (s >> a) & 1:
-                t = s ^ ((np.int64(1) << a) | (np.int64(1) << b))
-                v = table[_rank(rtab, pc, t)]
-                if v != sent:
-                    col = v - 1 if v > 0 else -v - 1
-                    w = amp[q] * np.sqrt(stab[col] / stab[r]) * x[col]
-                    acc += w if v > 0 else -w
-        y[r] = acc
-
-
-@njit(cache=True)
-def _bond_counts(reps, nb):
-    """counts[r, f] = number of bonds (i, nb[f, i]) with both ends occupied."""
-    n = reps.shape[0]
-    F, L = nb.shape
-    out = np.zeros((n, F), np.int16)
-    for r in range(n):
-        s = reps[r]
-        for f in range(F):
-            k = 0
-            for i in range(L):
-                k += ((s >> i) & 1) & ((s >> nb[f, i]) & 1)
-            out[r, f] = k
-    return out
-
-
-@njit(cache=True, parallel=True)
-def _pair_correlation(reps, w, tgt, nchunk):
-    """sum_r w_r sum_i n_i n_tgt[d, i] for every displacement d."""
-    D, L = tgt.shape
-    n = reps.shape[0]
-    out = np.zeros((nchunk, D))
-    for c in prange(nchunk):
-        for r in range(c * n // nchunk, (c + 1) * n // nchunk):
-            s = reps[r]
-            for d in range(D):
-                k = 0
-                for i in range(L):
-                    k += ((s >> i) & 1) & ((s >> tgt[d, i]) & 1)
-                out[c, d] += w[r] * k
-    return out.sum(0)
 
 
 # -- group -----------------------------------------------------------------------------------
@@ -441,7 +214,8 @@ class SymSector:
         One-dimensional character of the point group (default trivial).
     """
 
-    def __init__(self, cell: Supercell, model: Model, N: int, ops=None, chi=None, keep_table=None):
+    def __init__(self, cell: Supercell, model: Model, N: int, ops=None, chi=None, keep_table=None,
+                 lookup: str = "table"):
         t0 = time.perf_counter()
         if not model.hardcore:
             raise ValueError("SymSector: hard-core bosons only")
@@ -462,11 +236,24 @@ class SymSector:
         if self.dim > _COL_MASK + 1:
             raise ValueError(f"SymSector: sector dimension {self.dim} above the packed-column limit 2**{_COL_BITS}")
         self.fock = math.comb(L, self.N)
-        self.keep_table = 4.0 * self.fock <= TABLE_KEEP_BYTES if keep_table is None else bool(keep_table)
+        if lookup not in ("table", "search"):
+            raise ValueError(f"SymSector: lookup must be 'table' or 'search', got {lookup!r}")
+        self.lookup = lookup
         self._rtab, self._pc = _rank_tables_cached(L)
         self._ptab = _perm_tables(self.perms)
-        self.table = np.zeros(self.fock, np.int32)
-        self.states, self.stab = _enumerate(self.N, self.fock, self._ptab, self._rtab, self._pc, self.chi, self.table)
+        if lookup == "search":
+            self.keep_table = False
+            lk = self._search = SearchLookup(cell, self.perms[::L], self.chi_op, self.N)
+            self.states, self.stab = lk.states, lk.stab
+            self.table = np.zeros(0, np.int32)  # empty: the kernels search instead
+            self._sx = lk.pack
+        else:
+            self.keep_table = 4.0 * self.fock <= TABLE_KEEP_BYTES if keep_table is None else bool(keep_table)
+            self._search = None
+            self._sx = empty_pack()
+            self.table = np.zeros(self.fock, np.int32)
+            self.states, self.stab = _enumerate(self.N, self.fock, self._ptab, self._rtab, self._pc, self.chi,
+                                                self.table)
         n = len(self.states)
         if n != self.dim:  # pragma: no cover - guards the Burnside count and the enumeration
             raise RuntimeError(f"SymSector: enumeration found {n} states, Burnside predicts {self.dim}")
@@ -478,12 +265,15 @@ class SymSector:
         self.counts = _bond_counts(self.states, nb)
         self.nnn_counts = (_bond_counts(self.states, np.asarray(cell.nnn_neighbors, np.int64)).sum(1)
                            if model.V2 else None)
-        self.indptr = np.cumsum(_count_hops(self.states, self.table, self._rtab, self._pc, self._ba, self._bb))
+        self.indptr = np.cumsum(_count_hops(self.states, self._ba, self._bb))
         self.packed = np.empty(int(self.indptr[-1]), np.int32)
-        _fill_hops(self.states, self.table, self._rtab, self._pc, self._ba, self._bb, self._bcode,
+        _fill_hops(self.states, self.table, self._rtab, self._pc, self._sx, self._ba, self._bb, self._bcode,
                    self.indptr, self.packed)
+        nnz = _compact(self.indptr, self.packed)
+        if nnz < len(self.packed):
+            self.packed = self.packed[:nnz].copy()
         if not self.keep_table:
-            self.table = None
+            self.table = None if lookup == "table" else self.table
         stab = self.stab.astype(np.float64)
         self._sq, self._isq = np.sqrt(stab), 1.0 / np.sqrt(stab)
         self._z = None
@@ -565,7 +355,8 @@ class SymSector:
 
     def drop_table(self) -> None:
         """Free the rank table (4 bytes per Fock state); :meth:`ensure_table` rebuilds it."""
-        self.table = None
+        if self.lookup == "table":
+            self.table = None
 
     def ensure_table(self) -> np.ndarray:
         """The rank table (Fock rank -> +-(representative index + 1)), rebuilt if it was freed."""
@@ -608,7 +399,7 @@ class SymSector:
         """Matrix-free product with a G-invariant hopping operator sum_q amp_q b_{a_q}^+ b_{b_q}."""
         table = self.ensure_table()
         y = np.empty(self.dim)
-        _apply_bonds(self.states, table, self._rtab, self._pc, self.stab.astype(np.float64),
+        _apply_bonds(self.states, table, self._rtab, self._pc, self._sx, self.stab.astype(np.float64),
                      np.asarray(ba, np.int64), np.asarray(bb, np.int64), np.asarray(amp, np.float64),
                      np.ascontiguousarray(x, np.float64), y)
         return y
@@ -705,7 +496,8 @@ def stiffness_linear_response(sec: SymSector, tol: float = 1e-10, cg_rtol: float
     """
     from scipy.sparse.linalg import LinearOperator, cg
 
-    from .guard import check_budget, estimate_space_group
+    from .guard import check_budget, choose_lookup
+    from .replookup import row_layout
 
     cell, model = sec.cell, sec.model
     lat = cell.lattice
@@ -717,12 +509,14 @@ def stiffness_linear_response(sec: SymSector, tol: float = 1e-10, cg_rtol: float
         f = cls[0]
         unit = D[f] / np.linalg.norm(D[f])
         sub = [M for M in sec.ops if np.array_equal(np.array(lat.nn[f]) @ M, np.array(lat.nn[f]))]
+        lookup = "table"
         if budget is not None:
             ps, _ = group_permutations(cell, sub)
             dim = sector_dimension(ps, np.ones(len(ps), np.int64), sec.N)
-            check_budget(estimate_space_group(sec.L, sec.N, dim, 2 * len(sec._hop_families)), budget,
-                         what=f"stiffness sector (twist along {lat.families[f]}) N={sec.N} on {cell!r}")
-        S = SymSector(cell, model, sec.N, ops=sub)
+            lookup, est = choose_lookup(sec.L, sec.N, dim, 2 * len(sec._hop_families), budget,
+                                        search_ok=row_layout(cell) is not None)
+            check_budget(est, budget, what=f"stiffness sector (twist along {lat.families[f]}) N={sec.N} on {cell!r}")
+        S = SymSector(cell, model, sec.N, ops=sub, lookup=lookup)
         w, v = S.solve(tol=tol)
         e0, psi = float(w[0]), v[:, 0]
         a, b_, t, th = _twist_bonds(S, unit)

@@ -69,7 +69,8 @@ def _prov(model) -> dict:
 
 def staircase(model: Model, cluster="tri12", n_range=None, particle_hole: bool = True,
               observables=("sq",), budget_gib: float | None = DEFAULT_BUDGET_GIB, tol: float = 1e-10,
-              point_group_reduce: bool = True, lookup: str = "auto", all_momenta: bool = False, progress=None):
+              point_group_reduce: bool = True, lookup: str = "auto", all_momenta: bool = False, progress=None,
+              rep_lookup: str = "auto"):
     """E0(N) and derived canonical quantities over a range of particle numbers.
 
     Parameters
@@ -85,6 +86,8 @@ def staircase(model: Model, cluster="tri12", n_range=None, particle_hole: bool =
         Diagonalise every momentum class (ground-state momenta and degeneracies); by default
         only Q = 0, which holds a ground state for t >= 0 (Perron-Frobenius, see
         :func:`phasemap.ed.groundstate.ground_state`).
+    rep_lookup : {"auto", "table", "search"}
+        Lookup of the space-group sectors (see :func:`phasemap.ed.groundstate.ground_state`).
     progress : callable, optional
         Called as ``progress(N, seconds)`` after each diagonalised N.
 
@@ -107,7 +110,7 @@ def staircase(model: Model, cluster="tri12", n_range=None, particle_hole: bool =
     use_ph = bool(particle_hole and model.hardcore)
     todo = [N for N in ns if not (use_ph and N > L - N and (L - N) in ns)]
     for N in todo:  # refuse before anything is diagonalised
-        est = sector_estimate(model, cell, N, all_momenta=all_momenta, lookup=lookup)
+        est = sector_estimate(model, cell, N, budget_gib, rep_lookup, all_momenta=all_momenta, lookup=lookup)
         check_budget(est, budget_gib, what=f"ED sector N={N} on {cell!r} (staircase; restrict --particles)")
     rec = {}
     for N in ns:
@@ -115,7 +118,8 @@ def staircase(model: Model, cluster="tri12", n_range=None, particle_hole: bool =
             continue
         t0 = time.perf_counter()
         gs = ground_state(model, cell, N, budget_gib=budget_gib, tol=tol,
-                          point_group_reduce=point_group_reduce, lookup=lookup, all_momenta=all_momenta)
+                          point_group_reduce=point_group_reduce, lookup=lookup, all_momenta=all_momenta,
+                          rep_lookup=rep_lookup)
         obs = measure(gs, observables) if observables and N not in (0, model.n_max * L) else {}
         dt = time.perf_counter() - t0
         rec[N] = dict(E0=gs.e0, q=gs.q, q_name=gs.q_name, dim=gs.dims.get(gs.q_name, 0), time_s=dt,

@@ -186,7 +186,7 @@ def ed_setup(spec, models, fraction="1/3", budget_gib=None):
                     "bonds): use ed:tri21 or ed:tri27" if m.V2 != 0 else "")
             raise ConfigError(f"method {spec.name!r}: {e}{hint}") from None
     for n in (N - 1, N, N + 1):
-        est = max((sector_estimate(m, cell, n) for m in models), key=lambda e: e.bytes)
+        est = max((sector_estimate(m, cell, n, budget) for m in models), key=lambda e: e.bytes)
         check_budget(est, budget, what=f"ED sector N={n} on {name} ({spec.name})")
     return cell, N, budget
 
