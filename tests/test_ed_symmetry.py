@@ -101,7 +101,8 @@ def test_fock_dimension_and_estimate_against_counts():
 
 def test_guard_refuses_with_estimate():
     with pytest.raises(ConfigError, match=r"GiB.*budget"):
-        ground_state(Model("triangular", t=0.1, V=1), "tri36", 18)  # C(36,18) Fock states: > 16 GiB
+        # strained tri36 at N = 18: 6.3e7 sector states, ~30 GiB even without the rank table (> 16 GiB)
+        ground_state(Model("triangular", t=(0.1, 0.1, 0.12), V=1), "tri36", 18)
     with pytest.raises(ConfigError, match="budget"):
         ground_state(Model("triangular", t=0.1, V=1), "tri12", 6, budget_gib=1e-6)
 
