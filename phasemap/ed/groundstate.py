@@ -130,11 +130,11 @@ def space_group_sector(model: Model, cell, N: int, budget_gib=DEFAULT_BUDGET_GIB
     lookup, est = space_group_plan(model, cell, N, budget_gib, rep_lookup, ops=ops)
     key = (cell.lattice.name, cell.vectors.tobytes(), N, tuple(np.asarray(ops).ravel().tolist()),
            tuple(bool(t) for t in model.t), bool(model.V2), lookup)
+    check_budget(est, budget_gib, what=f"ED sector N={N} on {cell!r}")  # also for a cached sector
     sec = _SECTORS.get(key)
     if sec is not None and sec.compatible(model):
         sec.set_model(model)
         return sec
-    check_budget(est, budget_gib, what=f"ED sector N={N} on {cell!r}")
     sec = SymSector(cell, model, N, ops=ops, lookup=lookup)
     sec.estimate = est
     if 4.0 * sec.fock <= SECTOR_CACHE_BYTES:
