@@ -29,7 +29,14 @@ from __future__ import annotations
 
 import numpy as np
 
-from .sgkernels import _collect, _flag_orbits, _key_info, _relabel, _unrank
+from .sgkernels import (
+    _collect,
+    _flag_orbits,
+    _key_info,
+    _perm_tables,
+    _relabel,
+    _unrank,
+)
 
 __all__ = ["RowLayout", "SearchLookup", "row_layout"]
 
@@ -149,8 +156,6 @@ class SearchLookup:
 
     def __init__(self, cell, point_perms, chi_op, N: int, layout: RowLayout | None = None, n_chunks: int = 2048):
         import math
-
-        from .spacegroup import _perm_tables
 
         lay = layout or row_layout(cell)
         if lay is None:

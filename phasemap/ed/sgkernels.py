@@ -21,6 +21,23 @@ _COL_BITS = 27
 _COL_MASK = (1 << _COL_BITS) - 1
 
 
+# -- byte tables (built in Python, read by the kernels) -------------------------------------
+def _perm_tables(perms: np.ndarray) -> np.ndarray:
+    """ptab[g, c, b]: image bits of byte b of chunk c under permutation g (site i -> perms[g, i])."""
+    G, L = perms.shape
+    C = (L + 7) // 8
+    tab = np.zeros((G, C, 256), np.int64)
+    byte = np.arange(256)
+    for c in range(C):
+        for k in range(8):
+            i = 8 * c + k
+            if i >= L:
+                break
+            on = (byte >> k) & 1
+            tab[:, c, :] |= on[None, :].astype(np.int64) << perms[:, i][:, None].astype(np.int64)
+    return tab
+
+
 # -- dense rank table ------------------------------------------------------------------------
 @njit(cache=True, inline="always")
 def _permute(ptab, g, s):

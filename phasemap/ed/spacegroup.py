@@ -68,6 +68,7 @@ from .sgkernels import (
     _mark_orbits,
     _packed_matvec,
     _pair_correlation,
+    _perm_tables,
     _stabilisers,
     _values,
 )
@@ -79,22 +80,6 @@ _DENSE_MAX = 600
 
 
 # -- byte tables -----------------------------------------------------------------------------
-def _perm_tables(perms: np.ndarray) -> np.ndarray:
-    """ptab[g, c, b]: image bits of byte b of chunk c under permutation g (site i -> perms[g, i])."""
-    G, L = perms.shape
-    C = (L + 7) // 8
-    tab = np.zeros((G, C, 256), np.int64)
-    byte = np.arange(256)
-    for c in range(C):
-        for k in range(8):
-            i = 8 * c + k
-            if i >= L:
-                break
-            on = (byte >> k) & 1
-            tab[:, c, :] |= on[None, :].astype(np.int64) << perms[:, i][:, None].astype(np.int64)
-    return tab
-
-
 def _rank_tables(L: int) -> tuple[np.ndarray, np.ndarray]:
     """rtab[c, m, b]: colex-rank contribution of byte b of chunk c when m bits lie below it."""
     C = (L + 7) // 8
