@@ -479,6 +479,15 @@ def locate_plateaus(models: list[Model], fraction="1/3", spec: MethodSpec = Meth
     mu_hi = np.where(reached, mu_hi, np.nan)
     with np.errstate(invalid="ignore"):
         width = np.where(reached, np.maximum(mu_hi - mu_lo, 0.0), 0.0)
+        # a lower edge above the upper edge by more than both brackets: n(mu) is not monotonic, i.e.
+        # at some mu every seed missed the lower-energy state; that is a failed search, not a closed
+        # plateau (width NaN: not determined, skipped by the critical-strain root search)
+        slack = np.where(lo_open, 0.0, lo_b - lo_a) + np.where(hi_open, 0.0, hi_b - hi_a) + width_floor * scale
+        inverted = reached & ~lo_open & ~hi_open & (mu_lo - mu_hi > slack)
+    for p in np.flatnonzero(inverted):
+        _fail(p, f"edges inverted: lower edge {mu_lo[p]:.6g} above upper edge {mu_hi[p]:.6g} (the filling is not "
+                 "monotonic in mu: at some mu every seed missed the lower-energy state); width not determined")
+    width = np.where(inverted, np.nan, width)
     exists = reached & (width > width_floor * scale)
     # state on the plateau (or at the crossing): the first point at or above the lower edge;
     # for a plateau open below (e.g. the empty state) the last point at or below the upper edge
