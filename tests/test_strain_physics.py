@@ -224,3 +224,29 @@ def test_map_on_every_other_mu_keeps_the_edges():
     assert abs(half.mu_lo[0]) <= half.tol[0] / 2 + 1e-12 and abs(half.mu_hi[0] - 3.0) <= half.tol[0] / 2 + 1e-12
     np.testing.assert_array_equal(half.exists, full.exists)
     np.testing.assert_array_equal(half.label_center, full.label_center)
+
+
+def test_inverted_edges_are_a_failed_search_not_a_closed_plateau(monkeypatch):
+    # exact (t = 0 classical limit, as in test_t0_plateau_edges_exact): 1/3 plateau on mu/V in (0, 3),
+    # 2/3 on (3, 6). A solver that at some mu far above the plateau misses the lower-energy state and
+    # returns a filling below 1/3 makes n(mu) non-monotonic: the last point below 1/3 then lies above
+    # the first point above 1/3, the lower edge above the upper edge. That is a failed search (seen with
+    # cmf:tri12 at one strain of the demo sweep, where it had been read as a closed plateau, width 0,
+    # and gave a spurious critical strain): it must be flagged, with width NaN (not determined).
+    import phasemap.strain.engine as eng
+
+    m = [Model(t=0.0, V=1.0)]
+    orig = eng.evaluate_points
+
+    def missed(models, mu, *a, **k):
+        r = orig(models, mu, *a, **k)
+        bad = (np.asarray(mu) > 4.5) & (np.asarray(mu) < 5.5)  # inside the 2/3 plateau
+        return dict(r, filling=np.where(bad, 0.2, r["filling"]))
+
+    monkeypatch.setattr(eng, "evaluate_points", missed)
+    eng.clear_cache()
+    r = locate_plateaus(m, "1/3", tol=1e-4, n_mu=41)
+    eng.clear_cache()
+    assert r.mu_lo[0] > 4.5 and r.mu_hi[0] == pytest.approx(3.0, abs=2e-4)  # the inversion happened
+    assert not r.ok(0) and any("edges inverted" in f for f in r.flags[0])
+    assert np.isnan(r.width[0]) and not r.exists[0]
