@@ -23,6 +23,8 @@ from ..model import ConfigError, Model
 from . import kernel
 from .geometry import Graph, torus
 from .stats import Estimate, estimate, vector_estimate
+from .tempering import log_weights, pt_block
+from .tempering import mu_ladder as mu_ladder_values
 
 __all__ = ["run_qmc", "QMCResult", "run_graph", "GROUND_STATE"]
 
@@ -37,8 +39,10 @@ def _graph_key(g: Graph) -> dict:
 
 
 def _job_hash(job: dict, g: Graph) -> str:
-    d = {k: v for k, v in job.items() if k not in ("graph", "checkpoint", "interval")}
+    d = {k: v for k, v in job.items() if k not in ("graph", "checkpoint", "interval", "ladder")}
     d["graph"] = _graph_key(g)
+    if job.get("ladder"):
+        d["ladder"] = [_graph_key(x) for x in job["ladder"]]
     return hashlib.sha256(json.dumps(d, sort_keys=True, default=str).encode()).hexdigest()[:20]
 
 
@@ -74,9 +78,41 @@ def anneal_beta(beta: float, beta_hot: float, k: int, therm: int) -> float:
     return beta_hot * (beta / beta_hot) ** (k / ramp)
 
 
+#: per-slot arrays of a chain's state (leading axis = replica slot); a single-replica checkpoint
+#: stores them without that axis (the format of runs without replica exchange)
+_SLOT_KEYS = ("ops", "state", "rng", "nloops", "tune_visits", "tune_loops", "rec", "sq_bins", "sq_acc",
+              "flip_therm", "flip_meas")
+
+
+def _load_state(path, key, R):
+    if not (path and os.path.exists(path)):
+        return None
+    with np.load(path) as z:
+        if str(z["key"]) != key:
+            return None
+        st = {k: z[k].copy() for k in z.files}
+    if R == 1:
+        for k in _SLOT_KEYS:
+            st[k] = st[k][None]
+    return st
+
+
+def _disk_state(st, R):
+    return st if R > 1 else {k: (v[0] if k in _SLOT_KEYS else v) for k, v in st.items()}
+
+
 def _chain(job: dict) -> dict:
-    """Run one chain to the end (resuming from its checkpoint file if present)."""
+    """Run one chain to the end (resuming from its checkpoint file if present).
+
+    With ``job["ladder"]`` (graphs of the same torus at several mu, ``job["target"]`` the index of
+    ``job["graph"]`` in it) the chain is a replica-exchange chain (``phasemap.qmc.tempering``):
+    every slot is swept, neighbouring slots exchange configurations; the returned ``rec`` and
+    ``sq_bins`` are those of the target slot, ``replicas`` holds every slot's.
+    """
     g: Graph = job["graph"]
+    ladder = job.get("ladder") or [g]
+    tgt = int(job.get("target", 0))
+    R = len(ladder)
     beta, sweeps, therm, bins, nslice = job["beta"], job["sweeps"], job["thermalization"], job["bins"], job["slices"]
     N = g.n_sites
     key = _job_hash(job, g)
@@ -86,27 +122,43 @@ def _chain(job: dict) -> dict:
     cosq, sinq = np.ascontiguousarray(np.cos(qr)), np.ascontiguousarray(np.sin(qr))
     kidx = g.k_index
     Nq = cosq.shape[1]
-    st = None
-    if path and os.path.exists(path):
-        with np.load(path) as z:
-            if str(z["key"]) == key:
-                st = {k: z[k].copy() for k in z.files}
+    st = _load_state(path, key, R)
     if st is None:
         init = np.random.default_rng([int(job["seed"]), int(job["chain"]), 7])
         M0 = max(16, int(1.5 * N))
+        state0 = [init.integers(0, 2, N).astype(np.int64) for _ in range(R)]
         st = {
-            "key": np.array(key), "ops": np.full(M0, -1, np.int64), "state": init.integers(0, 2, N).astype(np.int64),
-            "rng": kernel.seed_state(job["seed"], job["chain"]), "nloops": np.array(1), "therm_done": np.array(0),
-            "tune_visits": np.array(0.0), "tune_loops": np.array(0.0), "meas_done": np.array(0),
-            "rec": np.zeros((sweeps, kernel.NREC)), "sq_bins": np.zeros((bins, Nq)), "sq_acc": np.zeros(Nq),
+            "key": np.array(key), "ops": np.full((R, M0), -1, np.int64), "state": np.array(state0),
+            "rng": np.array([kernel.seed_state(job["seed"], job["chain"] + 1000003 * r) for r in range(R)]),
+            "nloops": np.ones(R, np.int64), "therm_done": np.array(0),
+            "tune_visits": np.zeros(R), "tune_loops": np.zeros(R), "meas_done": np.array(0),
+            "rec": np.zeros((R, sweeps, kernel.NREC)), "sq_bins": np.zeros((R, bins, Nq)), "sq_acc": np.zeros((R, Nq)),
             "visits": np.array(0), "elapsed": np.array(0.0), "meas_seconds": np.array(0.0),
-            "flip_therm": np.zeros(2, np.int64), "flip_meas": np.zeros(2, np.int64),
+            "flip_therm": np.zeros((R, 2), np.int64), "flip_meas": np.zeros((R, 2), np.int64),
+            "swap_rng": kernel.seed_state(job["seed"], job["chain"] + 7777777), "counter": np.zeros(1, np.int64),
+            "walker": np.arange(R, dtype=np.int64), "swap_therm": np.zeros((max(R - 1, 0), 2), np.int64),
+            "swap_meas": np.zeros((max(R - 1, 0), 2), np.int64),
         }
+        if R == 1:  # the checkpoint format of a single chain is unchanged
+            for k in ("swap_rng", "counter", "walker", "swap_therm", "swap_meas"):
+                del st[k]
     ops, state, rng = st["ops"], st["state"], st["rng"]
+    if R == 1:
+        st_swap = {"swap_rng": np.zeros(4, np.uint64), "counter": np.zeros(1, np.int64),
+                   "walker": np.zeros(1, np.int64), "swap_therm": np.zeros((0, 2), np.int64),
+                   "swap_meas": np.zeros((0, 2), np.int64)}
+    else:
+        st_swap = st
     flip_therm, flip_meas = st["flip_therm"], st["flip_meas"]  # particle-hole flips: attempts, accepted
     do_flip = bool(job.get("ph_flip", True))
-    lflip = kernel.flip_table(g.wtab)
-    nloops = int(st["nloops"])
+    wtab = np.ascontiguousarray([x.wtab for x in ladder])
+    cum = np.ascontiguousarray([x.cum for x in ladder])
+    lflip = np.ascontiguousarray([kernel.flip_table(x.wtab) for x in ladder])
+    lw = np.ascontiguousarray([log_weights(x.wtab) for x in ladder])
+    cnt = np.zeros(wtab.shape, np.int64)
+    tmp = np.zeros(N, np.int64)
+    nloops = st["nloops"]
+    nops, visits = np.zeros(R, np.int64), np.zeros(R, np.int64)
     t_start, last_save = time.perf_counter(), time.perf_counter()
     elapsed0 = float(st["elapsed"])
 
@@ -114,39 +166,48 @@ def _chain(job: dict) -> dict:
         return (np.zeros(4 * M, np.int64), np.zeros(M, np.int64), np.zeros(M, np.int64), np.zeros(M, np.int64),
                 np.zeros(N, np.int64), np.zeros(N, np.int64))
 
-    X, vtx, vty, opidx, first, last = work(len(ops))
-    dummy_rec = np.zeros((1, kernel.NREC))
-    dummy_sq = np.zeros(Nq)
+    X, vtx, vty, opidx, first, last = work(ops.shape[1])
+    dummy_rec = np.zeros((R, 1, kernel.NREC))
+    dummy_sq = np.zeros((R, Nq))
+
+    def block(k, measure, row0, sq, rc, flipc, swapc):
+        visits[:] = 0
+        pt_block(k, ops, state, g.bonds, g.bond_type, g.bond_vec, wtab, cum, beta_now, nloops, rng,
+                 X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq, rc, row0, measure,
+                 lflip, do_flip, flipc, lw, cnt, tmp, st_swap["swap_rng"], swapc, st_swap["walker"],
+                 st_swap["counter"], nops, visits)
 
     def checkpoint(force=False):
         nonlocal last_save
         if path and (force or time.perf_counter() - last_save > interval):
-            st.update(ops=ops, state=state, rng=rng, nloops=np.array(nloops),
+            st.update(ops=ops, state=state, rng=rng, nloops=nloops,
                       elapsed=np.array(elapsed0 + time.perf_counter() - t_start))
-            _save(path, st)
+            _save(path, _disk_state(st, R))
             last_save = time.perf_counter()
 
-    # -- thermalization: anneal, grow the cut-off, tune the loops per sweep
+    # -- thermalization: anneal, grow the cut-off (all slots together), tune the loops per sweep
+    beta_hot = min(_beta_hot(x) for x in ladder)
     while int(st["therm_done"]) < therm:
-        b_eff = anneal_beta(beta, _beta_hot(g), int(st["therm_done"]), therm)
-        n, v = kernel.sweep(ops, state, g.bonds, g.bond_type, g.bond_vec, g.wtab, g.cum, b_eff, nloops, rng,
-                            X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, dummy_sq, dummy_rec, 0, False,
-                            lflip, do_flip, flip_therm)
-        M = len(ops)
+        beta_now = anneal_beta(beta, beta_hot, int(st["therm_done"]), therm)
+        block(1, False, 0, dummy_sq, dummy_rec, flip_therm, st_swap["swap_therm"])
+        n = int(nops.max())
+        M = ops.shape[1]
         if n + n // 3 + 4 > M:
             Mn = n + n // 3 + 4
-            ops = np.concatenate([ops, np.full(Mn - M, -1, np.int64)])
+            ops = np.concatenate([ops, np.full((R, Mn - M), -1, np.int64)], axis=1)
             X, vtx, vty, opidx, first, last = work(Mn)
-        st["tune_visits"] = st["tune_visits"] + v
+        st["tune_visits"] = st["tune_visits"] + visits
         st["tune_loops"] = st["tune_loops"] + nloops
-        if st["tune_visits"] > 0:
-            per_loop = float(st["tune_visits"]) / float(st["tune_loops"])
-            nloops = int(min(max(1, round(len(ops) / per_loop)), 10 * len(ops) + 10))
+        for r in range(R):
+            if st["tune_visits"][r] > 0:
+                per_loop = float(st["tune_visits"][r]) / float(st["tune_loops"][r])
+                nloops[r] = int(min(max(1, round(ops.shape[1] / per_loop)), 10 * ops.shape[1] + 10))
         st["therm_done"] = st["therm_done"] + 1
         if int(st["therm_done"]) == therm // 2:  # forget the early (far from equilibrium) loop lengths
-            st["tune_visits"], st["tune_loops"] = np.array(0.0), np.array(0.0)
+            st["tune_visits"], st["tune_loops"] = np.zeros(R), np.zeros(R)
         checkpoint()
     # -- measurement in equal bins
+    beta_now = beta
     per_bin = sweeps // bins
     rec, sq_bins, sq_acc = st["rec"], st["sq_bins"], st["sq_acc"]
     chunk = 1
@@ -156,27 +217,30 @@ def _chain(job: dict) -> dict:
         bin_end = (b + 1) * per_bin if b < bins - 1 else sweeps
         k = min(chunk, bin_end - done)
         t0, c0 = time.perf_counter(), time.process_time()
-        v = kernel.block(k, ops, state, g.bonds, g.bond_type, g.bond_vec, g.wtab, g.cum, beta, nloops, rng,
-                         X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, done,
-                         lflip, do_flip, flip_meas)
+        block(k, True, done, sq_acc, rec, flip_meas, st_swap["swap_meas"])
         dt = time.perf_counter() - t0
         st["meas_cpu"] = st.get("meas_cpu", np.array(0.0)) + (time.process_time() - c0)
         chunk = max(1, min(chunk * 2, 1 << 20)) if dt < 0.25 else max(1, chunk // 2)
-        st["visits"] = st["visits"] + v
+        st["visits"] = st["visits"] + int(visits.sum())
         st["meas_seconds"] = st["meas_seconds"] + dt
         st["meas_done"] = np.array(done + k)
         if done + k == bin_end:
-            sq_bins[b] = sq_acc / (bin_end - b * per_bin)
+            sq_bins[:, b] = sq_acc / (bin_end - b * per_bin)
             sq_acc[:] = 0.0
         checkpoint()
     st["elapsed"] = np.array(elapsed0 + time.perf_counter() - t_start)
     checkpoint(force=True)
-    return {"rec": rec.copy(), "sq_bins": sq_bins.copy(), "M": len(ops), "nloops": nloops,
-            "visits": int(st["visits"]), "elapsed": float(st["elapsed"]), "thermalization": therm,
-            "meas_seconds": float(st["meas_seconds"]),
-            "flip_attempts": int(flip_meas[0]), "flip_accepted": int(flip_meas[1]),
-            "meas_cpu": float(st.get("meas_cpu", 0.0)), "mean_ops": float(rec[:, 0].mean()) if sweeps else 0.0,
-            "max_ops": int(rec[:, 0].max()) if sweeps else 0}
+    out = {"rec": rec[tgt].copy(), "sq_bins": sq_bins[tgt].copy(), "M": ops.shape[1], "nloops": int(nloops[tgt]),
+           "visits": int(st["visits"]), "elapsed": float(st["elapsed"]), "thermalization": therm,
+           "meas_seconds": float(st["meas_seconds"]),
+           "flip_attempts": int(flip_meas[tgt, 0]), "flip_accepted": int(flip_meas[tgt, 1]),
+           "meas_cpu": float(st.get("meas_cpu", 0.0)), "mean_ops": float(rec[tgt, :, 0].mean()) if sweeps else 0.0,
+           "max_ops": int(rec[:, :, 0].max()) if sweeps else 0}
+    if R > 1:
+        out.update(replicas=[{"rec": rec[r].copy(), "sq_bins": sq_bins[r].copy()} for r in range(R)],
+                   swaps=st["swap_meas"].tolist(), walker=st["walker"].tolist(),
+                   nloops_per_replica=nloops.tolist())
+    return out
 
 
 def _chain_entry(job):
@@ -347,10 +411,12 @@ def _check_int(name, v, lo):
 
 def run_graph(g: Graph, beta: float, sweeps: int = 10000, thermalization: int | None = None, bins: int = 32,
               seed: int = 0, chains: int = 1, checkpoint: str | None = None, workers: int | None = None,
-              slices: int = 4, checkpoint_interval: float = 5.0, ph_flip: bool = True):
+              slices: int = 4, checkpoint_interval: float = 5.0, ph_flip: bool = True, ladder=None):
     """Run ``chains`` chains on a prepared :class:`~phasemap.qmc.geometry.Graph` at inverse
     temperature ``beta`` (``ph_flip``: attempt one particle-hole flip per sweep, see
-    ``kernel``). Returns ``(estimates, sq, sq_err, outs)``."""
+    ``kernel``). ``ladder``: graphs of the same torus at several mu, ``g`` among them, for replica
+    exchange in mu (``phasemap.qmc.tempering``); the estimates are those of ``g``.
+    Returns ``(estimates, sq, sq_err, outs)``."""
     sweeps = _check_int("sweeps", sweeps, 1)
     bins = _check_int("bins", bins, 2)
     chains = _check_int("chains", chains, 1)
@@ -360,13 +426,24 @@ def run_graph(g: Graph, beta: float, sweeps: int = 10000, thermalization: int | 
     thermalization = max(sweeps // 5, 100) if thermalization is None else _check_int("thermalization", thermalization, 0)
     if checkpoint is not None:
         os.makedirs(checkpoint, exist_ok=True)
+    extra = {}
+    if ladder is not None and len(ladder) > 1:
+        hit = [k for k, x in enumerate(ladder) if x is g]
+        if len(hit) != 1:
+            raise ConfigError("ladder: must contain the graph g of the run exactly once")
+        for x in ladder:
+            if x.n_sites != g.n_sites or not np.array_equal(x.bonds, g.bonds) or \
+                    not np.array_equal(x.bond_type, g.bond_type) or x.wtab.shape != g.wtab.shape:
+                raise ConfigError("ladder: every replica must have the bonds and bond types of the run's torus")
+        extra = {"ladder": list(ladder), "target": hit[0]}
     jobs = []
     for c in range(chains):
         jobs.append({"graph": g, "beta": float(beta), "sweeps": sweeps, "thermalization": thermalization,
                      "bins": bins, "seed": int(seed), "chain": c, "slices": slices, "interval": checkpoint_interval,
-                     "ph_flip": bool(ph_flip),
+                     "ph_flip": bool(ph_flip), **extra,
                      "checkpoint": None if checkpoint is None else os.path.join(
-                         checkpoint, f"{g.name}_beta{beta:.6g}_seed{seed}_chain{c}.npz")})
+                         checkpoint, f"{g.name}_beta{beta:.6g}_seed{seed}_chain{c}"
+                         + (f"_rx{len(ladder)}" if extra else "") + ".npz")})
     workers = min(chains, os.cpu_count() or 1) if workers is None else max(1, int(workers))
     outs = _run_chains(jobs, workers)
     est, sq, sq_err = analyze(g, outs, beta, bins)
@@ -377,7 +454,8 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
             thermalization: int | None = None, bins: int = 32, seed: int = 0, chains: int = 1,
             checkpoint: str | None = None, *, workers: int | None = None, slices: int = 4,
             epsilon: float | None = None, checkpoint_interval: float = 5.0,
-            beta0: float | None = None, beta_max: float | None = None, ph_flip: bool = True) -> QMCResult:
+            beta0: float | None = None, beta_max: float | None = None, ph_flip: bool = True,
+            replicas: int = 1, mu_step: float | None = None, mu_ladder=None) -> QMCResult:
     r"""Stochastic series expansion QMC of hard-core bosons on a periodic torus.
 
     Parameters
@@ -416,6 +494,15 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
         (Metropolis; always accepted at the particle-hole-symmetric point, e.g. mu = 3V on the
         triangular lattice, where it connects the sectors N and N_sites - N). Default True; the
         acceptance rate is in ``info["flip_acceptance"]``.
+    replicas, mu_step, mu_ladder
+        Replica exchange in the chemical potential (docs/qmc.md, ``phasemap.qmc.tempering``):
+        every chain runs ``replicas`` copies at ``mu + mu_step * (k - (replicas - 1) // 2)``
+        (default ``mu_step = 1 / sqrt(beta N / max coupling)``), or at the explicit list
+        ``mu_ladder`` (must contain the model's mu), exchanging configurations between
+        neighbouring mu after every sweep. The estimates are those of the model's mu;
+        ``info["replicas"]`` has every replica's energy, filling, compressibility and S(K)/N,
+        ``info["swap_acceptance"]`` the acceptance per neighbouring pair. Default 1 (off): one
+        replica costs one chain.
 
     Returns
     -------
@@ -429,13 +516,14 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
     if not isinstance(model, Model):
         raise ConfigError(f"model: expected a phasemap.Model, got {type(model).__name__}")
     g = torus(model, cluster, size, epsilon)
+    scale = max(max(model.t), max(abs(v) for v in model.V), abs(model.V2), 1e-12)
+    mu_ladder_for(model, g, 1.0, replicas, mu_step, mu_ladder, scale, cluster, size, epsilon)  # check first
     kw = dict(sweeps=sweeps, thermalization=thermalization, bins=bins, seed=seed, chains=chains,
               checkpoint=checkpoint, workers=workers, slices=slices, checkpoint_interval=checkpoint_interval,
               ph_flip=ph_flip)
     flags = []
     if g.k_index < 0 and model.lattice == "triangular":
         flags.append("no-K-point (torus not sqrt3 x sqrt3 compatible: no S(K)/N, no Binder ratio)")
-    scale = max(max(model.t), max(abs(v) for v in model.V), abs(model.V2), 1e-12)
     info = {"shift_per_type": {ty["name"]: ty["C"] for ty in g.types},
             "bounce_max": [ti["bounce"] for ti in g.table_info],
             "heat_bath_sets": [ti["heat_bath"] for ti in g.table_info], "n_bonds": int(len(g.bonds))}
@@ -448,7 +536,8 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
             raise ConfigError(f"T: temperature must be > 0 and finite, got {T}")
         beta = 1.0 / T
         t0 = time.perf_counter()
-        est, sq, sq_err, outs = run_graph(g, beta, **kw)
+        ladder = mu_ladder_for(model, g, beta, replicas, mu_step, mu_ladder, scale, cluster, size, epsilon)
+        est, sq, sq_err, outs = run_graph(g, beta, ladder=ladder, **kw)
         betas, gs_record = [beta], []
     else:
         b = (GROUND_STATE["beta0"] if beta0 is None else float(beta0)) / scale
@@ -458,7 +547,8 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
         t0 = time.perf_counter()
         prev, betas, gs_record = None, [], []
         while True:
-            cur = run_graph(g, b, **kw)
+            ladder = mu_ladder_for(model, g, b, replicas, mu_step, mu_ladder, scale, cluster, size, epsilon)
+            cur = run_graph(g, b, ladder=ladder, **kw)
             betas.append(b)
             if prev is not None:
                 same = _agree(prev[0], cur[0])
@@ -480,7 +570,10 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
                  "measure_cpu_seconds": [o["meas_cpu"] for o in outs],
                  "ground_state_search": gs_record,
                  "flip_acceptance": [o["flip_accepted"] / o["flip_attempts"] if o["flip_attempts"] else None
-                                     for o in outs]})
+                                     for o in outs],
+                 "particle_numbers": [_histogram(o["rec"][:, 1]) for o in outs]})
+    if ladder is not None:
+        info.update(replica_info(ladder, outs, beta, int(bins)))
     if any(o["max_ops"] >= o["M"] for o in outs):
         flags.append("operator-string cut-off reached during measurement (thermalization too short; run longer)")
     bad = not_decorrelated(est)
@@ -492,6 +585,49 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
                      decorrelated=not bad and not cut, flags=flags, sweeps=int(sweeps), thermalization=int(outs[0]["thermalization"]),
                      bins=int(bins), chains=int(chains), seed=int(seed), betas=betas, vectors=g.cell.vectors.tolist(),
                      info=info)
+
+
+def _histogram(x) -> dict:
+    v, c = np.unique(np.asarray(x).astype(np.int64), return_counts=True)
+    return {int(a): int(b) for a, b in zip(v, c)}
+
+
+def mu_ladder_for(model, g, beta, replicas, mu_step, mu_ladder, scale, cluster, size, epsilon):
+    """Graphs of the replica ladder (``g`` at the model's mu among them), or None without
+    replica exchange (``replicas == 1`` and no ``mu_ladder``)."""
+    if mu_ladder is None and not isinstance(replicas, bool) and replicas == 1:
+        return None
+    mus, tgt = mu_ladder_values(model.mu, replicas, mu_step, beta, g.n_sites, scale, mu_ladder)
+    return [g if k == tgt else torus(model.replace(mu=m), cluster, size, epsilon) for k, m in enumerate(mus)]
+
+
+def replica_info(ladder, outs, beta, bins) -> dict:
+    """mu of every replica, swap acceptance per neighbouring pair (pooled over chains), walker
+    positions and every replica's energy, filling, compressibility and S(K)/N."""
+    R = len(ladder)
+    acc = []
+    for a in range(R - 1):
+        tried = sum(o["swaps"][a][0] for o in outs)
+        acc.append(sum(o["swaps"][a][1] for o in outs) / tried if tried else None)
+    reps = []
+    for r, x in enumerate(ladder):
+        est, _, _ = analyze(x, [{"rec": o["replicas"][r]["rec"], "sq_bins": o["replicas"][r]["sq_bins"]}
+                                for o in outs], beta, bins)
+        mu = _mu_of(x)
+        reps.append({"mu": mu, **{k: est[k].to_dict() for k in ("energy", "filling", "compressibility", "S(K)/N")
+                                  if k in est},
+                     "particle_numbers": [_histogram(o["replicas"][r]["rec"][:, 1]) for o in outs]})
+    return {"mu_ladder": [r["mu"] for r in reps], "swap_acceptance": acc, "replicas": reps,
+            "walkers": [o["walker"] for o in outs]}
+
+
+def _mu_of(g: Graph) -> float:
+    """Chemical potential of a graph: the bond shares of mu summed over the bonds at site 0."""
+    tot = 0.0
+    for b, (i, j) in enumerate(g.bonds):
+        ty = g.types[g.bond_type[b]]
+        tot += ty["mu_i"] * (i == 0) + ty["mu_j"] * (j == 0)
+    return float(tot)
 
 
 def not_decorrelated(est: dict) -> list:
