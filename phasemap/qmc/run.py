@@ -23,8 +23,7 @@ from ..model import ConfigError, Model
 from . import kernel
 from .geometry import Graph, torus
 from .stats import Estimate, estimate, vector_estimate
-from .tempering import log_weights, pt_block
-from .tempering import mu_ladder as mu_ladder_values
+from .tempering import ladder_points, log_weights, pt_block
 
 __all__ = ["run_qmc", "QMCResult", "run_graph", "GROUND_STATE"]
 
@@ -81,7 +80,7 @@ def anneal_beta(beta: float, beta_hot: float, k: int, therm: int) -> float:
 #: per-slot arrays of a chain's state (leading axis = replica slot); a single-replica checkpoint
 #: stores them without that axis (the format of runs without replica exchange)
 _SLOT_KEYS = ("ops", "state", "rng", "nloops", "tune_visits", "tune_loops", "rec", "sq_bins", "sq_acc",
-              "flip_therm", "flip_meas")
+              "flip_therm", "flip_meas", "sector_moves")
 
 
 def _load_state(path, key, R):
@@ -91,6 +90,7 @@ def _load_state(path, key, R):
         if str(z["key"]) != key:
             return None
         st = {k: z[k].copy() for k in z.files}
+    st.setdefault("sector_moves", np.zeros((), np.int64) if R == 1 else np.zeros(R, np.int64))  # older files
     if R == 1:
         for k in _SLOT_KEYS:
             st[k] = st[k][None]
@@ -104,13 +104,15 @@ def _disk_state(st, R):
 def _chain(job: dict) -> dict:
     """Run one chain to the end (resuming from its checkpoint file if present).
 
-    With ``job["ladder"]`` (graphs of the same torus at several mu, ``job["target"]`` the index of
-    ``job["graph"]`` in it) the chain is a replica-exchange chain (``phasemap.qmc.tempering``):
+    With ``job["ladder"]`` and ``job["betas"]`` (graphs of the same torus at several mu and their
+    inverse temperatures, ``job["target"]`` the index of ``job["graph"]``, ``job["beta"]``) the
+    chain is a replica-exchange chain (``phasemap.qmc.tempering``):
     every slot is swept, neighbouring slots exchange configurations; the returned ``rec`` and
     ``sq_bins`` are those of the target slot, ``replicas`` holds every slot's.
     """
     g: Graph = job["graph"]
     ladder = job.get("ladder") or [g]
+    betas = np.array(job.get("betas") or [job["beta"]], float)
     tgt = int(job.get("target", 0))
     R = len(ladder)
     beta, sweeps, therm, bins, nslice = job["beta"], job["sweeps"], job["thermalization"], job["bins"], job["slices"]
@@ -135,6 +137,7 @@ def _chain(job: dict) -> dict:
             "rec": np.zeros((R, sweeps, kernel.NREC)), "sq_bins": np.zeros((R, bins, Nq)), "sq_acc": np.zeros((R, Nq)),
             "visits": np.array(0), "elapsed": np.array(0.0), "meas_seconds": np.array(0.0),
             "flip_therm": np.zeros((R, 2), np.int64), "flip_meas": np.zeros((R, 2), np.int64),
+            "sector_moves": np.zeros(R, np.int64),
             "swap_rng": kernel.seed_state(job["seed"], job["chain"] + 7777777), "counter": np.zeros(1, np.int64),
             "walker": np.arange(R, dtype=np.int64), "swap_therm": np.zeros((max(R - 1, 0), 2), np.int64),
             "swap_meas": np.zeros((max(R - 1, 0), 2), np.int64),
@@ -170,12 +173,15 @@ def _chain(job: dict) -> dict:
     dummy_rec = np.zeros((R, 1, kernel.NREC))
     dummy_sq = np.zeros((R, Nq))
 
+    smoves = st["sector_moves"]
+    smoves_dummy = np.zeros(R, np.int64)
+
     def block(k, measure, row0, sq, rc, flipc, swapc):
         visits[:] = 0
-        pt_block(k, ops, state, g.bonds, g.bond_type, g.bond_vec, wtab, cum, beta_now, nloops, rng,
+        pt_block(k, ops, state, g.bonds, g.bond_type, g.bond_vec, wtab, cum, betas_now, nloops, rng,
                  X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq, rc, row0, measure,
                  lflip, do_flip, flipc, lw, cnt, tmp, st_swap["swap_rng"], swapc, st_swap["walker"],
-                 st_swap["counter"], nops, visits)
+                 st_swap["counter"], nops, visits, smoves if measure else smoves_dummy)
 
     def checkpoint(force=False):
         nonlocal last_save
@@ -188,7 +194,7 @@ def _chain(job: dict) -> dict:
     # -- thermalization: anneal, grow the cut-off (all slots together), tune the loops per sweep
     beta_hot = min(_beta_hot(x) for x in ladder)
     while int(st["therm_done"]) < therm:
-        beta_now = anneal_beta(beta, beta_hot, int(st["therm_done"]), therm)
+        betas_now = np.array([anneal_beta(b, beta_hot, int(st["therm_done"]), therm) for b in betas])
         block(1, False, 0, dummy_sq, dummy_rec, flip_therm, st_swap["swap_therm"])
         n = int(nops.max())
         M = ops.shape[1]
@@ -207,7 +213,7 @@ def _chain(job: dict) -> dict:
             st["tune_visits"], st["tune_loops"] = np.zeros(R), np.zeros(R)
         checkpoint()
     # -- measurement in equal bins
-    beta_now = beta
+    betas_now = betas
     per_bin = sweeps // bins
     rec, sq_bins, sq_acc = st["rec"], st["sq_bins"], st["sq_acc"]
     chunk = 1
@@ -235,7 +241,7 @@ def _chain(job: dict) -> dict:
            "meas_seconds": float(st["meas_seconds"]),
            "flip_attempts": int(flip_meas[tgt, 0]), "flip_accepted": int(flip_meas[tgt, 1]),
            "meas_cpu": float(st.get("meas_cpu", 0.0)), "mean_ops": float(rec[tgt, :, 0].mean()) if sweeps else 0.0,
-           "max_ops": int(rec[:, :, 0].max()) if sweeps else 0}
+           "max_ops": int(rec[:, :, 0].max()) if sweeps else 0, "sector_moves": smoves.tolist()}
     if R > 1:
         out.update(replicas=[{"rec": rec[r].copy(), "sq_bins": sq_bins[r].copy()} for r in range(R)],
                    swaps=st["swap_meas"].tolist(), walker=st["walker"].tolist(),
@@ -414,8 +420,9 @@ def run_graph(g: Graph, beta: float, sweeps: int = 10000, thermalization: int | 
               slices: int = 4, checkpoint_interval: float = 5.0, ph_flip: bool = True, ladder=None):
     """Run ``chains`` chains on a prepared :class:`~phasemap.qmc.geometry.Graph` at inverse
     temperature ``beta`` (``ph_flip``: attempt one particle-hole flip per sweep, see
-    ``kernel``). ``ladder``: graphs of the same torus at several mu, ``g`` among them, for replica
-    exchange in mu (``phasemap.qmc.tempering``); the estimates are those of ``g``.
+    ``kernel``). ``ladder``: ``[(graph, beta), ...]``, the same torus at several (mu, beta) with
+    ``(g, beta)`` among them, for replica exchange (``phasemap.qmc.tempering``); the estimates are
+    those of ``(g, beta)``.
     Returns ``(estimates, sq, sq_err, outs)``."""
     sweeps = _check_int("sweeps", sweeps, 1)
     bins = _check_int("bins", bins, 2)
@@ -428,14 +435,16 @@ def run_graph(g: Graph, beta: float, sweeps: int = 10000, thermalization: int | 
         os.makedirs(checkpoint, exist_ok=True)
     extra = {}
     if ladder is not None and len(ladder) > 1:
-        hit = [k for k, x in enumerate(ladder) if x is g]
+        hit = [k for k, (x, b) in enumerate(ladder) if x is g and b == beta]
         if len(hit) != 1:
-            raise ConfigError("ladder: must contain the graph g of the run exactly once")
-        for x in ladder:
+            raise ConfigError("ladder: must contain the run's (graph, beta) exactly once")
+        for x, b in ladder:
+            if not (b > 0 and math.isfinite(b)):
+                raise ConfigError(f"ladder: inverse temperatures must be > 0 and finite, got {b}")
             if x.n_sites != g.n_sites or not np.array_equal(x.bonds, g.bonds) or \
                     not np.array_equal(x.bond_type, g.bond_type) or x.wtab.shape != g.wtab.shape:
                 raise ConfigError("ladder: every replica must have the bonds and bond types of the run's torus")
-        extra = {"ladder": list(ladder), "target": hit[0]}
+        extra = {"ladder": [x for x, _ in ladder], "betas": [float(b) for _, b in ladder], "target": hit[0]}
     jobs = []
     for c in range(chains):
         jobs.append({"graph": g, "beta": float(beta), "sweeps": sweeps, "thermalization": thermalization,
@@ -455,7 +464,8 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
             checkpoint: str | None = None, *, workers: int | None = None, slices: int = 4,
             epsilon: float | None = None, checkpoint_interval: float = 5.0,
             beta0: float | None = None, beta_max: float | None = None, ph_flip: bool = True,
-            replicas: int = 1, mu_step: float | None = None, mu_ladder=None) -> QMCResult:
+            replicas: int = 1, mu_step: float | None = None, T_hot: float | None = None, mu_ladder=None,
+            T_ladder=None) -> QMCResult:
     r"""Stochastic series expansion QMC of hard-core bosons on a periodic torus.
 
     Parameters
@@ -494,15 +504,16 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
         (Metropolis; always accepted at the particle-hole-symmetric point, e.g. mu = 3V on the
         triangular lattice, where it connects the sectors N and N_sites - N). Default True; the
         acceptance rate is in ``info["flip_acceptance"]``.
-    replicas, mu_step, mu_ladder
-        Replica exchange in the chemical potential (docs/qmc.md, ``phasemap.qmc.tempering``):
-        every chain runs ``replicas`` copies at ``mu + mu_step * (k - (replicas - 1) // 2)``
-        (default ``mu_step = 1 / sqrt(beta N / max coupling)``), or at the explicit list
-        ``mu_ladder`` (must contain the model's mu), exchanging configurations between
-        neighbouring mu after every sweep. The estimates are those of the model's mu;
-        ``info["replicas"]`` has every replica's energy, filling, compressibility and S(K)/N,
-        ``info["swap_acceptance"]`` the acceptance per neighbouring pair. Default 1 (off): one
-        replica costs one chain.
+    replicas, mu_step, T_hot, mu_ladder, T_ladder
+        Replica exchange (parallel tempering) in the chemical potential and/or the temperature
+        (docs/qmc.md, ``phasemap.qmc.tempering``): every chain runs ``replicas`` copies at
+        ``mu + mu_step * (k - (replicas - 1) // 2)`` (default ``mu_step = 1 / sqrt(beta N / max
+        coupling)``), or, with ``T_hot``, at temperatures geometric from ``T`` to ``T_hot``; or at
+        the explicit lists ``mu_ladder`` / ``T_ladder`` (containing the run's mu / T; both: pairs),
+        exchanging configurations between neighbours after every sweep. The estimates are those
+        of the run's (mu, T); ``info["replicas"]`` has every replica's energy, filling,
+        compressibility and S(K)/N, ``info["swap_acceptance"]`` the acceptance per neighbouring
+        pair. Default ``replicas=1`` (off): every replica costs about one chain.
 
     Returns
     -------
@@ -517,7 +528,9 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
         raise ConfigError(f"model: expected a phasemap.Model, got {type(model).__name__}")
     g = torus(model, cluster, size, epsilon)
     scale = max(max(model.t), max(abs(v) for v in model.V), abs(model.V2), 1e-12)
-    mu_ladder_for(model, g, 1.0, replicas, mu_step, mu_ladder, scale, cluster, size, epsilon)  # check first
+    rx = dict(replicas=replicas, mu_step=mu_step, T_hot=T_hot, mu_ladder=mu_ladder, T_ladder=T_ladder)
+    ladder_points(model.mu, 1.0 if T is None else 1.0 / _temperature(T), T is not None, n_sites=g.n_sites,
+                  scale=scale, **rx)  # refuse bad ladders before any sampling
     kw = dict(sweeps=sweeps, thermalization=thermalization, bins=bins, seed=seed, chains=chains,
               checkpoint=checkpoint, workers=workers, slices=slices, checkpoint_interval=checkpoint_interval,
               ph_flip=ph_flip)
@@ -528,16 +541,11 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
             "bounce_max": [ti["bounce"] for ti in g.table_info],
             "heat_bath_sets": [ti["heat_bath"] for ti in g.table_info], "n_bonds": int(len(g.bonds))}
     if T is not None:
-        try:
-            T = float(T)
-        except (TypeError, ValueError):
-            raise ConfigError(f"T: expected a positive number, got {T!r}") from None
-        if not (T > 0 and math.isfinite(T)):
-            raise ConfigError(f"T: temperature must be > 0 and finite, got {T}")
+        T = _temperature(T)
         beta = 1.0 / T
         t0 = time.perf_counter()
-        ladder = mu_ladder_for(model, g, beta, replicas, mu_step, mu_ladder, scale, cluster, size, epsilon)
-        est, sq, sq_err, outs = run_graph(g, beta, ladder=ladder, **kw)
+        ladder = replica_ladder(model, g, beta, True, rx, scale, cluster, size, epsilon)
+        est, sq, sq_err, outs = run_graph(g, beta, ladder=ladder and [x[:2] for x in ladder], **kw)
         betas, gs_record = [beta], []
     else:
         b = (GROUND_STATE["beta0"] if beta0 is None else float(beta0)) / scale
@@ -547,8 +555,8 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
         t0 = time.perf_counter()
         prev, betas, gs_record = None, [], []
         while True:
-            ladder = mu_ladder_for(model, g, b, replicas, mu_step, mu_ladder, scale, cluster, size, epsilon)
-            cur = run_graph(g, b, ladder=ladder, **kw)
+            ladder = replica_ladder(model, g, b, False, rx, scale, cluster, size, epsilon)
+            cur = run_graph(g, b, ladder=ladder and [x[:2] for x in ladder], **kw)
             betas.append(b)
             if prev is not None:
                 same = _agree(prev[0], cur[0])
@@ -571,9 +579,10 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
                  "ground_state_search": gs_record,
                  "flip_acceptance": [o["flip_accepted"] / o["flip_attempts"] if o["flip_attempts"] else None
                                      for o in outs],
-                 "particle_numbers": [_histogram(o["rec"][:, 1]) for o in outs]})
+                 "particle_numbers": [_histogram(o["rec"][:, 1]) for o in outs],
+                 "sector_moves": [o["sector_moves"] for o in outs]})
     if ladder is not None:
-        info.update(replica_info(ladder, outs, beta, int(bins)))
+        info.update(replica_info(ladder, outs, int(bins)))
     if any(o["max_ops"] >= o["M"] for o in outs):
         flags.append("operator-string cut-off reached during measurement (thermalization too short; run longer)")
     bad = not_decorrelated(est)
@@ -587,47 +596,60 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
                      info=info)
 
 
+def _temperature(T) -> float:
+    try:
+        T = float(T)
+    except (TypeError, ValueError):
+        raise ConfigError(f"T: expected a positive number, got {T!r}") from None
+    if not (T > 0 and math.isfinite(T)):
+        raise ConfigError(f"T: temperature must be > 0 and finite, got {T}")
+    return T
+
+
 def _histogram(x) -> dict:
     v, c = np.unique(np.asarray(x).astype(np.int64), return_counts=True)
     return {int(a): int(b) for a, b in zip(v, c)}
 
 
-def mu_ladder_for(model, g, beta, replicas, mu_step, mu_ladder, scale, cluster, size, epsilon):
-    """Graphs of the replica ladder (``g`` at the model's mu among them), or None without
-    replica exchange (``replicas == 1`` and no ``mu_ladder``)."""
-    if mu_ladder is None and not isinstance(replicas, bool) and replicas == 1:
+def replica_ladder(model, g, beta, fixed_T, opts, scale, cluster, size, epsilon):
+    """``[(graph, beta, mu)]`` of the replica ladder (``(g, beta, model.mu)`` among them), or None
+    without replica exchange (``opts``: replicas, mu_step, T_hot, mu_ladder, T_ladder)."""
+    pts = ladder_points(model.mu, beta, fixed_T, n_sites=g.n_sites, scale=scale, **opts)
+    if pts is None:
         return None
-    mus, tgt = mu_ladder_values(model.mu, replicas, mu_step, beta, g.n_sites, scale, mu_ladder)
-    return [g if k == tgt else torus(model.replace(mu=m), cluster, size, epsilon) for k, m in enumerate(mus)]
+    pts, tgt = pts
+    graphs = {}
+    out = []
+    for k, (m, b) in enumerate(pts):
+        if k == tgt:
+            out.append((g, beta, model.mu))
+            continue
+        if m == model.mu:
+            x = g
+        else:
+            x = graphs.get(m) or torus(model.replace(mu=m), cluster, size, epsilon)
+            graphs[m] = x
+        out.append((x, b, m))
+    return out
 
 
-def replica_info(ladder, outs, beta, bins) -> dict:
-    """mu of every replica, swap acceptance per neighbouring pair (pooled over chains), walker
-    positions and every replica's energy, filling, compressibility and S(K)/N."""
+def replica_info(ladder, outs, bins) -> dict:
+    """(mu, T) of every replica, swap acceptance per neighbouring pair (pooled over chains),
+    walker positions and every replica's energy, filling, compressibility and S(K)/N."""
     R = len(ladder)
     acc = []
     for a in range(R - 1):
         tried = sum(o["swaps"][a][0] for o in outs)
         acc.append(sum(o["swaps"][a][1] for o in outs) / tried if tried else None)
     reps = []
-    for r, x in enumerate(ladder):
+    for r, (x, b, mu) in enumerate(ladder):
         est, _, _ = analyze(x, [{"rec": o["replicas"][r]["rec"], "sq_bins": o["replicas"][r]["sq_bins"]}
-                                for o in outs], beta, bins)
-        mu = _mu_of(x)
-        reps.append({"mu": mu, **{k: est[k].to_dict() for k in ("energy", "filling", "compressibility", "S(K)/N")
-                                  if k in est},
+                                for o in outs], b, bins)
+        reps.append({"mu": float(mu), "T": 1.0 / b,
+                     **{k: est[k].to_dict() for k in ("energy", "filling", "compressibility", "S(K)/N") if k in est},
                      "particle_numbers": [_histogram(o["replicas"][r]["rec"][:, 1]) for o in outs]})
-    return {"mu_ladder": [r["mu"] for r in reps], "swap_acceptance": acc, "replicas": reps,
-            "walkers": [o["walker"] for o in outs]}
-
-
-def _mu_of(g: Graph) -> float:
-    """Chemical potential of a graph: the bond shares of mu summed over the bonds at site 0."""
-    tot = 0.0
-    for b, (i, j) in enumerate(g.bonds):
-        ty = g.types[g.bond_type[b]]
-        tot += ty["mu_i"] * (i == 0) + ty["mu_j"] * (j == 0)
-    return float(tot)
+    return {"mu_ladder": [r["mu"] for r in reps], "T_ladder": [r["T"] for r in reps], "swap_acceptance": acc,
+            "replicas": reps, "walkers": [o["walker"] for o in outs]}
 
 
 def not_decorrelated(est: dict) -> list:

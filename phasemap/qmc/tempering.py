@@ -1,13 +1,14 @@
-r"""Replica exchange in the chemical potential (parallel tempering in mu), compiled.
+r"""Replica exchange in the chemical potential and the temperature (parallel tempering), compiled.
 
-``R`` replicas of the same torus, beta and couplings at a ladder ``mu_0 < mu_1 < ... < mu_{R-1}``
-(the target mu included) each do ordinary SSE sweeps (``kernel.sweep``); after every sweep,
+``R`` replicas of the same torus and couplings at a ladder of points ``(mu_r, beta_r)`` (the
+target point included; a mu ladder at the target beta, a beta ladder at the target mu, or any
+list of pairs) each do ordinary SSE sweeps (``kernel.sweep``); after every sweep,
 neighbouring replicas ``(a, a+1)`` try to exchange their configurations, even pairs on even
 sweeps and odd pairs on odd sweeps. A replica *slot* keeps its mu, its loop count, its random
 stream and its measurements; configurations (operator string and state) move between slots.
 
-Swap ratio (derivation in docs/qmc.md, "Replica exchange in mu"). With a common cut-off ``M``
-and a common beta, the SSE weight of a configuration ``C`` (``n`` operators) under slot ``a`` is
+Swap ratio (derivation in docs/qmc.md, "Replica exchange in mu"). With a common cut-off ``M``,
+the SSE weight of a configuration ``C`` (``n`` operators) under slot ``a`` is
 ``W_a(C) = beta^n (M - n)! / M! * prod_v w_a(v)`` over its vertices ``v``; only the diagonal
 vertex weights ``w_a = C_a - E_a(n_i, n_j)`` depend on mu (through the bond share of mu *and*
 the shift ``C_a``), the hopping weight ``t`` does not. Exchanging ``C_a`` and ``C_b`` is accepted
@@ -18,7 +19,9 @@ with ``min(1, W_a(C_b) W_b(C_a) / (W_a(C_a) W_b(C_b)))`` whose logarithm is
 ``cnt`` the number of diagonal vertices of each code in a configuration and ``lw = ln w``; a
 vertex with weight 0 under the other slot (``lw = -inf``) means rejection. The beta and
 factorial factors cancel because beta, ``n`` and ``M`` are the same on both sides (the cut-off
-grows only during warm-up, for all replicas together, by appending identities).
+grows only during warm-up, for all replicas together, by appending identities). Between
+different temperatures the factor ``beta^n`` adds ``(n_b - n_a) (ln beta_a - ln beta_b)`` to the
+log ratio (``n_a`` the operator count of the configuration in slot a).
 
 Walker labels: ``walker[slot]`` is the index of the configuration (its starting slot) now in a
 slot; they are bookkeeping only (round trips of a configuration over the ladder).
@@ -34,43 +37,92 @@ from numba import njit
 from ..model import ConfigError
 from .kernel import _uniform, sweep
 
-__all__ = ["mu_ladder", "log_weights", "pt_block", "swap_step"]
+__all__ = ["ladder_points", "log_weights", "pt_block", "swap_step"]
 
 
-def mu_ladder(mu: float, replicas: int, mu_step: float | None, beta: float, n_sites: int, scale: float,
-              ladder=None) -> tuple[list, int]:
-    """Chemical potentials of the replicas and the index of the target ``mu``.
+def _numbers(name, values, positive=False) -> list:
+    try:
+        out = [float(x) for x in values]
+    except (TypeError, ValueError):
+        raise ConfigError(f"{name}: expected a list of numbers, got {values!r}") from None
+    if len(out) < 2 or len(set(out)) != len(out) or not all(math.isfinite(x) and (x > 0 or not positive) for x in out):
+        raise ConfigError(f"{name}: need >= 2 distinct finite{' positive' if positive else ''} numbers, got {values!r}")
+    return out
 
-    ``ladder`` (explicit list, must contain ``mu``) wins; else ``replicas`` values
-    ``mu + mu_step * (k - (replicas - 1) // 2)``. Default ``mu_step = 1 / sqrt(beta N / scale)``
-    (``scale`` the largest coupling): neighbouring replicas then differ by about one standard
-    deviation of the particle number for a compressibility ~ 1/scale (overlap of the N
-    histograms; common practice, no source).
+
+def _index_of(name, values, x) -> int:
+    hit = [k for k, v in enumerate(values) if abs(v - x) <= 1e-12 * max(1.0, abs(x))]
+    if not hit:
+        raise ConfigError(f"{name}: must contain the run's value {x:g}, got {values}")
+    return hit[0]
+
+
+def ladder_points(mu: float, beta: float, fixed_T: bool, replicas=1, mu_step=None, T_hot=None, mu_ladder=None,
+                  T_ladder=None, n_sites: int = 1, scale: float = 1.0):
+    """Points ``[(mu_r, beta_r)]`` of the replica ladder in swap order and the index of the
+    run's own ``(mu, beta)``; ``None`` without replica exchange.
+
+    * ``mu_ladder`` and/or ``T_ladder`` (explicit lists; both: pairs of equal length, sorted as
+      given) must contain the run's mu / temperature;
+    * else ``replicas`` > 1 points: ``mu + mu_step (k - (replicas - 1) // 2)`` at the run's beta,
+      default ``mu_step = 1 / sqrt(beta N / scale)`` (``scale`` the largest coupling: neighbours
+      differ by about one standard deviation of the particle number for a compressibility
+      ~ 1/scale; common practice, no source); or, with ``T_hot``, temperatures geometric from
+      the run's T (index 0) to ``T_hot`` at the run's mu.
     """
-    if ladder is not None:
-        try:
-            lad = sorted(float(x) for x in ladder)
-        except (TypeError, ValueError):
-            raise ConfigError(f"mu_ladder: expected a list of numbers, got {ladder!r}") from None
-        if len(lad) < 2 or not all(math.isfinite(x) for x in lad) or len(set(lad)) != len(lad):
-            raise ConfigError(f"mu_ladder: need >= 2 distinct finite chemical potentials, got {ladder!r}")
-        hit = [k for k, x in enumerate(lad) if abs(x - mu) <= 1e-12 * max(1.0, abs(mu))]
-        if not hit:
-            raise ConfigError(f"mu_ladder: must contain the model's mu = {mu:g}, got {lad}")
-        lad[hit[0]] = float(mu)
-        return lad, hit[0]
     if isinstance(replicas, bool) or not isinstance(replicas, (int, np.integer)) or not 1 <= replicas <= 64:
         raise ConfigError(f"replicas: expected an integer in [1, 64], got {replicas!r}")
-    if mu_step is None:
-        mu_step = 1.0 / math.sqrt(beta * n_sites / scale)
-    try:
-        mu_step = float(mu_step)
-    except (TypeError, ValueError):
-        raise ConfigError(f"mu_step: expected a positive number, got {mu_step!r}") from None
-    if not (mu_step > 0 and math.isfinite(mu_step)):
-        raise ConfigError(f"mu_step: must be > 0 and finite, got {mu_step}")
+    if (T_ladder is not None or T_hot is not None) and not fixed_T:
+        raise ConfigError("T_ladder/T_hot: a temperature ladder needs the run's temperature T (not the ground-state "
+                          "search)")
+    if mu_ladder is not None or T_ladder is not None:
+        if mu_step is not None or T_hot is not None:
+            raise ConfigError("mu_step/T_hot: only with replicas=, not with an explicit mu_ladder/T_ladder")
+        mus = _numbers("mu_ladder", mu_ladder) if mu_ladder is not None else None
+        Ts = _numbers("T_ladder", T_ladder, positive=True) if T_ladder is not None else None
+        if mus is not None and Ts is not None:
+            if len(mus) != len(Ts):
+                raise ConfigError(f"mu_ladder/T_ladder: pairs need equal lengths, got {len(mus)} and {len(Ts)}")
+            hit = [k for k in range(len(mus)) if abs(mus[k] - mu) <= 1e-12 * max(1.0, abs(mu))
+                   and abs(Ts[k] * beta - 1) <= 1e-12]
+            if not hit:
+                raise ConfigError(f"mu_ladder/T_ladder: must contain the run's (mu, T) = ({mu:g}, {1 / beta:g})")
+            pts, k = [(m, 1.0 / T) for m, T in zip(mus, Ts)], hit[0]
+        elif mus is not None:
+            mus = sorted(mus)
+            k = _index_of("mu_ladder", mus, mu)
+            pts = [(m, beta) for m in mus]
+        else:
+            Ts = sorted(Ts)
+            k = _index_of("T_ladder", Ts, 1.0 / beta)
+            pts = [(mu, 1.0 / T) for T in Ts]
+        pts[k] = (float(mu), float(beta))
+        return pts, k
+    if replicas == 1:
+        if mu_step is not None or T_hot is not None:
+            raise ConfigError("mu_step/T_hot: only with replicas > 1")
+        return None
+    if T_hot is not None:
+        if mu_step is not None:
+            raise ConfigError("mu_step/T_hot: give one of them (a mu ladder or a temperature ladder)")
+        T_hot = _positive("T_hot", T_hot)
+        if not T_hot * beta > 1:
+            raise ConfigError(f"T_hot: must exceed the run's temperature {1 / beta:g}, got {T_hot:g}")
+        ratio = (T_hot * beta) ** (1.0 / (replicas - 1))
+        return [(float(mu), float(beta) / ratio ** k) for k in range(replicas)], 0
+    step = 1.0 / math.sqrt(beta * n_sites / scale) if mu_step is None else _positive("mu_step", mu_step)
     c = (int(replicas) - 1) // 2
-    return [float(mu) + mu_step * (k - c) if k != c else float(mu) for k in range(int(replicas))], c
+    return [(float(mu) + step * (k - c), float(beta)) for k in range(int(replicas))], c
+
+
+def _positive(name, x) -> float:
+    try:
+        x = float(x)
+    except (TypeError, ValueError):
+        raise ConfigError(f"{name}: expected a positive number, got {x!r}") from None
+    if not (x > 0 and math.isfinite(x)):
+        raise ConfigError(f"{name}: must be > 0 and finite, got {x}")
+    return x
 
 
 def log_weights(wtab: np.ndarray) -> np.ndarray:
@@ -121,8 +173,9 @@ def _swap_log_ratio(cnt_a, cnt_b, lw_a, lw_b):
 
 
 @njit(cache=True)
-def swap_step(parity, ops, state, walker, bsite, btype, lw, cnt, tmp, rng, swapc):
+def swap_step(parity, ops, state, walker, bsite, btype, lw, lbeta, nops, cnt, tmp, rng, swapc):
     """Exchange attempts between slots (a, a+1), a = parity, parity + 2, ... (module notes).
+    ``lbeta[r] = ln beta_r``, ``nops[r]`` the operator count of the configuration in slot r.
     ``swapc[a, 0]`` counts attempts of pair a, ``swapc[a, 1]`` acceptances."""
     R = ops.shape[0]
     for r in range(R):
@@ -130,6 +183,8 @@ def swap_step(parity, ops, state, walker, bsite, btype, lw, cnt, tmp, rng, swapc
     for a in range(parity, R - 1, 2):
         b = a + 1
         lr = _swap_log_ratio(cnt[a], cnt[b], lw[a], lw[b])
+        if lbeta[a] != lbeta[b]:
+            lr += (nops[b] - nops[a]) * (lbeta[a] - lbeta[b])
         swapc[a, 0] += 1
         accept = lr >= 0.0
         if not accept and lr > -np.inf:
@@ -147,27 +202,44 @@ def swap_step(parity, ops, state, walker, bsite, btype, lw, cnt, tmp, rng, swapc
             w = walker[a]
             walker[a] = walker[b]
             walker[b] = w
+            w = nops[a]
+            nops[a] = nops[b]
+            nops[b] = w
+
+
+@njit(inline="always")
+def _count(x):
+    c = 0
+    for i in range(x.shape[0]):
+        c += x[i]
+    return c
 
 
 @njit(cache=True)
 def pt_block(nsw, ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
              X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0, do_measure,
-             lflip, do_flip, flipc, lw, cnt, tmp, swap_rng, swapc, walker, counter, nops, visits):
+             lflip, do_flip, flipc, lw, cnt, tmp, swap_rng, swapc, walker, counter, nops, visits, smoves):
     """``nsw`` sweeps of every replica, each followed by one round of exchange attempts.
 
-    Stacked per slot (leading axis R): ops, state, wtab, cum, nloops, rng, sq_acc, rec, lflip,
+    Stacked per slot (leading axis R): ops, state, wtab, cum, beta, nloops, rng, sq_acc, rec, lflip,
     flipc, lw, cnt. ``counter[0]`` (sweeps done, decides the parity of the pairs) is advanced.
     ``nops[r]`` gets the operator count of slot r after its last sweep, ``visits[r]`` is
-    incremented by its vertex visits. Measurements (``do_measure``) go to ``rec[r, row0 + s]``.
+    incremented by its vertex visits, ``smoves[r]`` by one for every sweep of slot r that changed
+    ``|N - N_sites / 2|`` (a move between particle-number sectors by the loops; the particle-hole
+    flip and the exchanges never do). Measurements (``do_measure``) go to ``rec[r, row0 + s]``.
     """
     R = ops.shape[0]
+    lbeta = np.log(beta)
     for s in range(nsw):
         for r in range(R):
-            n, v = sweep(ops[r], state[r], bsite, btype, bvec, wtab[r], cum[r], beta, nloops[r], rng[r],
+            d0 = abs(2 * _count(state[r]) - state.shape[1])
+            n, v = sweep(ops[r], state[r], bsite, btype, bvec, wtab[r], cum[r], beta[r], nloops[r], rng[r],
                          X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc[r], rec[r],
                          row0 + s, do_measure, lflip[r], do_flip, flipc[r])
             nops[r] = n
             visits[r] += v
+            if abs(2 * _count(state[r]) - state.shape[1]) != d0:
+                smoves[r] += 1
         if R > 1:
-            swap_step(counter[0] % 2, ops, state, walker, bsite, btype, lw, cnt, tmp, swap_rng, swapc)
+            swap_step(counter[0] % 2, ops, state, walker, bsite, btype, lw, lbeta, nops, cnt, tmp, swap_rng, swapc)
         counter[0] += 1
