@@ -46,13 +46,18 @@ def main(argv=None) -> int:
     p.add_argument("--seed", type=int, default=1)
     p.add_argument("--workers", type=int, default=None)
     p.add_argument("--out", default="validate-ss")
+    p.add_argument("--replicas", type=int, default=1,
+                   help="replica exchange: replicas per chain (default 1 = off; docs/qmc.md, Replica exchange)")
+    p.add_argument("--mu-step", type=float, default=None, dest="mu_step", help="mu ladder spacing (default: run_qmc)")
+    p.add_argument("--T-hot", type=float, default=None, dest="T_hot", help="temperature ladder up to T_HOT instead")
     a = p.parse_args(argv)
     m = Model("triangular", t=a.t, V=1.0, mu=3.0)
     t0, c0 = time.perf_counter(), os.times()
     with output_lock(a.out):
         res = finite_size_scaling(m, sizes=a.sizes, beta_L=a.beta_L, sweeps=a.sweeps, thermalization=a.thermalization,
                                   bins=a.bins, chains=a.chains, seed=a.seed, workers=a.workers,
-                                  run_options={"checkpoint": os.path.join(a.out, "chains"), "checkpoint_interval": 30.0})
+                                  run_options={"checkpoint": os.path.join(a.out, "chains"), "checkpoint_interval": 30.0,
+                                               "replicas": a.replicas, "mu_step": a.mu_step, "T_hot": a.T_hot})
         wall = time.perf_counter() - t0
         c1 = os.times()
         cpu = (c1.children_user + c1.children_system + c1.user + c1.system
@@ -61,6 +66,9 @@ def main(argv=None) -> int:
         for L, r in zip(res.sizes, res.results):
             taus = ", ".join(f"{k} {r.estimates[k].tau:.3g}" for k in ("energy", "filling", "S(K)/N", "stiffness"))
             print(f"L={L}: tau_int (sweeps) {taus}; chains {r.info['chain_seconds']} s")
+            print(f"   particle numbers per chain {r.info['particle_numbers']}; sector moves {r.info['sector_moves']}"
+                  + (f"; swap acceptance {[round(x, 3) for x in r.info['swap_acceptance']]}"
+                     if "swap_acceptance" in r.info else ""))
         print(f"wall {wall:.0f} s, CPU {cpu:.0f} s, load {os.getloadavg()}")
         meta = provenance(m, method="qmc", command="validate_qmc_supersolid", wall_seconds=wall, cpu_seconds=cpu,
                           load=list(os.getloadavg()))

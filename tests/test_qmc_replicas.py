@@ -213,3 +213,28 @@ def test_temperature_ladder_needs_a_temperature():
     m = Model("triangular", t=0.15, V=1.0, mu=2.0)
     with pytest.raises(ConfigError, match="T_ladder/T_hot"):
         run_qmc(m, cluster="tri9", sweeps=100, bins=10, replicas=3, T_hot=1.0)
+
+
+def test_cli_point_and_scaling_with_replicas(tmp_path, capsys):
+    from phasemap.cli import main
+
+    assert main(["point", "--t", "0.15", "--V", "1", "--hardcore", "--mu", "2.5", "--method", "qmc:tri9", "--T", "0.3",
+                 "--sweeps", "1000", "--bins", "10", "--seed", "3", "--mu-ladder", "2.3,2.5,2.7", "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["errors"]["energy"] > 0
+    assert d["extra"]["info"]["mu_ladder"] == pytest.approx([2.3, 2.5, 2.7]) and len(d["extra"]["info"]["swap_acceptance"]) == 2
+    assert main(["point", "--t", "0.15", "--V", "1", "--hardcore", "--mu", "2.5", "--method", "qmc:tri9", "--T", "0.3",
+                 "--sweeps", "1000", "--bins", "10", "--replicas", "3", "--T-hot", "0.5", "--json"]) == 0
+    d = json.loads(capsys.readouterr().out)
+    assert d["extra"]["info"]["T_ladder"] == pytest.approx([0.3, 0.3 * (0.5 / 0.3) ** 0.5, 0.5])
+    # bad input: non-zero exit naming the field; deterministic methods refuse the option
+    assert main(["point", "--t", "0.15", "--V", "1", "--hardcore", "--mu", "2.5", "--method", "qmc:tri9", "--T", "0.3",
+                 "--sweeps", "100", "--bins", "10", "--mu-ladder", "2.3,2.4"]) == 2
+    assert "mu_ladder" in capsys.readouterr().err
+    assert main(["point", "--t", "0.15", "--V", "1", "--hardcore", "--method", "mf", "--replicas", "3"]) == 2
+    assert "--replicas" in capsys.readouterr().err
+    out = tmp_path / "o"
+    assert main(["qmc-scaling", "--t", "0.3", "--V", "1", "--mu", "2", "--sizes", "3,6", "--T", "0.5", "--sweeps", "200",
+                 "--seed", "4", "--workers", "1", "--replicas", "3", "--out", str(out)]) == 0
+    d = json.loads((out / "scaling.json").read_text())
+    assert d["method_options"]["replicas"] == 3

@@ -148,3 +148,31 @@ def width_arg(text: str):
         return figure_width(float(text))
     except Exception:
         raise argparse.ArgumentTypeError(f"expected 'single', 'double' or inches (1 to 12), got {text!r}") from None
+
+
+def number_list(text: str) -> list:
+    """argparse type: a comma-separated list of finite numbers."""
+    parts = [p.strip() for p in text.split(",")]
+    if not all(parts):
+        raise argparse.ArgumentTypeError(f"expected a comma-separated list of numbers, got {text!r}")
+    return [finite_float(p) for p in parts]
+
+
+#: replica-exchange options of the qmc method (phasemap.qmc.tempering), argparse dest = option name
+REPLICA_OPTIONS = ("replicas", "mu_step", "T_hot", "mu_ladder", "T_ladder")
+
+
+def add_replica_options(g, ladders: bool = True) -> None:
+    """--replicas, --mu-step, --T-hot (and the explicit --mu-ladder, --T-ladder) of qmc."""
+    g.add_argument("--replicas", type=positive_int, default=None,
+                   help="qmc: replica exchange with this many replicas per chain, at mu + MU_STEP (k - (R-1)//2) "
+                        "(or, with --T-hot, at temperatures from T to T_HOT); default 1 = off (docs/qmc.md)")
+    g.add_argument("--mu-step", type=finite_float, default=None, dest="mu_step",
+                   help="qmc: spacing of the mu ladder (default 1/sqrt(beta N / largest coupling))")
+    g.add_argument("--T-hot", type=finite_float, default=None, dest="T_hot",
+                   help="qmc: hottest temperature of a temperature ladder (geometric from T)")
+    if ladders:
+        g.add_argument("--mu-ladder", type=number_list, default=None, dest="mu_ladder", metavar="MU,MU,...",
+                       help="qmc: explicit chemical potentials of the replicas (must contain --mu)")
+        g.add_argument("--T-ladder", type=number_list, default=None, dest="T_ladder", metavar="T,T,...",
+                       help="qmc: explicit temperatures of the replicas (must contain --T); with --mu-ladder: pairs")

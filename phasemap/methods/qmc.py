@@ -38,6 +38,11 @@ class QMCOptions:
     checkpoint_interval: float = 5.0
     beta0: float | None = None
     beta_max: float | None = None
+    replicas: int = 1
+    mu_step: float | None = None
+    T_hot: float | None = None
+    mu_ladder: object = None
+    T_ladder: object = None
     thresholds: object = None
 
 
