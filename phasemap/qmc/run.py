@@ -115,7 +115,7 @@ def _chain(job: dict) -> dict:
     betas = np.array(job.get("betas") or [job["beta"]], float)
     tgt = int(job.get("target", 0))
     R = len(ladder)
-    beta, sweeps, therm, bins, nslice = job["beta"], job["sweeps"], job["thermalization"], job["bins"], job["slices"]
+    sweeps, therm, bins, nslice = job["sweeps"], job["thermalization"], job["bins"], job["slices"]
     N = g.n_sites
     key = _job_hash(job, g)
     path = job.get("checkpoint")
