@@ -8,7 +8,10 @@ acceptance per neighbouring pair, the particle-number histograms of every replic
     nice -n 10 python benchmarks/qmc_replica_check.py --L 12 --t 0.08 --mu 3 --beta-L 10 \\
         --sweeps 16000 --bins 8 --chains 2 --replicas 7 --mu-step 0.01 --out rx-check
 
-Checkpoints in OUT/chains (killed and restarted with the same arguments, it resumes).
+Checkpoints in OUT/chains (killed and restarted with the same arguments, it resumes). ``--peek``
+prints what the checkpoint files of OUT/chains hold so far (measured sweeps, particle numbers of
+the target slot, sector moves, swap acceptance, S(K)/N and tau_int of the rows measured so far)
+without running anything.
 """
 
 from __future__ import annotations
@@ -27,6 +30,34 @@ def _line(res) -> str:
         e = res.estimates[k]
         out.append(f"{k} {e.value:.5g} ± {e.error:.2g} (tau {e.tau:.3g}{'' if e.decorrelated else ', FLAGGED'})")
     return "; ".join(out)
+
+
+def peek(folder: str, replicas: int) -> None:
+    import glob
+
+    import numpy as np
+
+    from phasemap.qmc.stats import estimate
+
+    for f in sorted(glob.glob(os.path.join(folder, "*.npz"))):
+        with np.load(f) as z:
+            done = int(z["meas_done"])
+            rec = z["rec"]
+            rx = rec.ndim == 3
+            tgt = (replicas - 1) // 2 if rx else None
+            r = rec[tgt, :done] if rx else rec[:done]
+            line = f"{os.path.basename(f)}: warm-up {int(z['therm_done'])}, measured {done}"
+            if done >= 16:
+                v, c = np.unique(r[:, 1].astype(int), return_counts=True)
+                sk = estimate([r[:, 4:5]], 8, lambda m: m[0])
+                line += (f", N {dict(zip(v.tolist(), c.tolist()))}, S(K)/N {sk.value:.5f} ± {sk.error:.1g} "
+                         f"(tau {sk.tau:.3g}{'' if sk.decorrelated else ', flagged'})")
+            if "sector_moves" in z.files:
+                line += f", sector moves {np.atleast_1d(z['sector_moves']).tolist()}"
+            if "swap_meas" in z.files:
+                sw = z["swap_meas"]
+                line += f", swap acceptance {[round(a / t, 3) if t else None for t, a in sw.tolist()]}"
+        print(line)
 
 
 def main(argv=None) -> int:
@@ -49,7 +80,11 @@ def main(argv=None) -> int:
     p.add_argument("--workers", type=int, default=None)
     p.add_argument("--skip-plain", action="store_true", help="only the replica-exchange run")
     p.add_argument("--out", default="rx-check")
+    p.add_argument("--peek", action="store_true", help="only print what OUT/chains holds so far")
     a = p.parse_args(argv)
+    if a.peek:
+        peek(os.path.join(a.out, "chains"), a.replicas)
+        return 0
     m = Model("triangular", t=a.t, V=1.0, mu=a.mu)
     os.makedirs(a.out, exist_ok=True)
     kw = dict(size=(a.L, a.L), T=1.0 / (a.beta_L * a.L), sweeps=a.sweeps, thermalization=a.thermalization,

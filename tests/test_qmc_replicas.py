@@ -38,6 +38,7 @@ def _exact(model, mu, T):
 
 def _check_replicas(res, model, nsig=4.0):
     """every replica's energy, filling, compressibility, S(K)/N against full diagonalization"""
+    assert res.decorrelated, res.flags
     for rep in res.info["replicas"]:
         ex = _exact(model, rep["mu"], rep["T"])
         for k, x in (("energy", ex["energy"]), ("filling", ex["filling"]),
@@ -238,3 +239,19 @@ def test_cli_point_and_scaling_with_replicas(tmp_path, capsys):
                  "--seed", "4", "--workers", "1", "--replicas", "3", "--out", str(out)]) == 0
     d = json.loads((out / "scaling.json").read_text())
     assert d["method_options"]["replicas"] == 3
+
+
+# an exchange never changes a configuration's particle number: replica chains whose configurations
+# never change |N - N_sites/2| (measured: 12x12, t/V = 0.08, beta V = 120, 0 sector moves in 9
+# slots) are flagged, however well the target's N seems to fluctuate through the exchanges
+def test_frozen_particle_number_sectors_are_flagged():
+    from phasemap.qmc.run import frozen_sectors
+
+    def chain(numbers_per_slot, moves):
+        return {"replicas": [{"rec": np.column_stack([np.zeros(100), np.asarray(n, float)])} for n in numbers_per_slot],
+                "sector_moves": moves}
+
+    mixed = [np.full(100, 72), np.where(np.arange(100) % 2, 71, 73), np.full(100, 72)]
+    assert "chain 0: 0 sector moves" in frozen_sectors([chain(mixed, [0, 0, 0])], 144, 8)
+    assert frozen_sectors([chain(mixed, [5, 4, 3])], 144, 8) == ""  # 12 moves >= 8 bins
+    assert frozen_sectors([chain([np.full(100, 48)] * 3, [0, 0, 0])], 144, 8) == ""  # one sector (a plateau)

@@ -589,6 +589,12 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
     if bad:
         flags.append("not decorrelated: " + ", ".join(bad) + " (error still grows with bin length; run longer)")
     cut = any(o["max_ops"] >= o["M"] for o in outs)
+    frozen = ladder is not None and frozen_sectors(outs, g.n_sites, int(bins))
+    if frozen:
+        flags.append("particle-number sectors not sampled: the replicas' configurations changed |N - N_sites/2| "
+                     f"fewer than once per bin ({frozen}); the exchanges only redistribute the sectors they had "
+                     "after the warm-up")
+        bad = bad + ["sector moves"]
     return QMCResult(model=model, cluster=g.name, n_sites=g.n_sites, T=1.0 / beta, beta=beta,
                      ground_state=T is None, estimates=est, momenta=g.momenta.copy(), sq=sq, sq_err=sq_err,
                      decorrelated=not bad and not cut, flags=flags, sweeps=int(sweeps), thermalization=int(outs[0]["thermalization"]),
@@ -650,6 +656,21 @@ def replica_info(ladder, outs, bins) -> dict:
                      "particle_numbers": [_histogram(o["replicas"][r]["rec"][:, 1]) for o in outs]})
     return {"mu_ladder": [r["mu"] for r in reps], "T_ladder": [r["T"] for r in reps], "swap_acceptance": acc,
             "replicas": reps, "walkers": [o["walker"] for o in outs]}
+
+
+def frozen_sectors(outs, n_sites: int, bins: int) -> str:
+    """Replica chains whose configurations hardly change particle-number sector: fewer than ``bins``
+    sector moves (summed over the slots) while the slots hold more than one ``|N - N_sites/2|``.
+    Returns a description ("" if none). Why: an exchange moves a configuration between ladder
+    points but never changes its N; if the configurations' own N never changes, the sector
+    weights at the run's mu are those of the warm-up, not sampled."""
+    out = []
+    for c, o in enumerate(outs):
+        seen = {abs(2 * n - n_sites) for rp in o["replicas"] for n in np.unique(rp["rec"][:, 1])}
+        moves = int(sum(o["sector_moves"]))
+        if moves < bins and len(seen) > 1:
+            out.append(f"chain {c}: {moves} sector moves, |2N - N_sites| in {sorted(int(x) for x in seen)}")
+    return "; ".join(out)
 
 
 def not_decorrelated(est: dict) -> list:
