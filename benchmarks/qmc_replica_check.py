@@ -104,7 +104,8 @@ def main(argv=None) -> int:
         print(f"== {name}: {a.L}x{a.L}, t/V {a.t}, mu {a.mu}, beta V {a.beta_L * a.L:g}, {a.chains} x {a.sweeps} "
               f"sweeps; wall {wall:.0f} s, CPU {cpu:.0f} s, load {os.getloadavg()}")
         print("   " + _line(res))
-        print(f"   N per chain (target mu): {res.info['particle_numbers']}")
+        print(f"   N per chain (target mu): {res.info['particle_numbers']}; sector moves per chain (and slot): "
+              f"{res.info['sector_moves']}")
         if "mu_ladder" in res.info:
             print(f"   mu ladder {[round(x, 5) for x in res.info['mu_ladder']]}, swap acceptance "
                   f"{[None if x is None else round(x, 3) for x in res.info['swap_acceptance']]}")
