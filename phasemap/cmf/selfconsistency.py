@@ -119,6 +119,13 @@ class CMFOptions:
         Batched engine: dense ``eigh`` up to this dimension, batched Lanczos above.
     batch_memory_mb : float, default 64
         Batched engine: rows are processed in chunks whose Lanczos workspace stays below this.
+    branch_every : int, default 0
+        Per-point engine with continuation, T = 0: 0 solves every seed at every point (the
+        reference); K > 0 tracks the distinct branches along scan lines
+        (:mod:`phasemap.cmf.branches`): the full seed set at the first point of a line, every K
+        points, when a branch is lost or the lowest branch changes, and again over the points
+        since the last full point when a seed not tracked there reaches a lower state; in
+        between one row per branch. Seeds not solved at a point have ``iterations == 0``.
     compiled : bool, default True
         Batched engine, dense clusters: compiled per-row loop (:mod:`phasemap.cmf.kernel`);
         False: the NumPy loop over all rows in lock-step (same iteration). Per-point engine
@@ -151,6 +158,7 @@ class CMFOptions:
     batch_dense_max: int = 128
     batch_memory_mb: float = 64.0
     compiled: bool = True
+    branch_every: int = 0
 
     def __post_init__(self):
         from ..mf import MFOptions
@@ -158,6 +166,10 @@ class CMFOptions:
         object.__setattr__(self, "T", MFOptions(T=self.T).T)  # same validation as mf
         if not (0.0 < float(self.stall_drop) < 1.0):
             raise ConfigError(f"cmf options: stall_drop must be > 0 and < 1, got {self.stall_drop!r}")
+        if isinstance(self.branch_every, bool) or not isinstance(self.branch_every, (int, np.integer)) \
+                or not 0 <= self.branch_every <= 10**6:
+            raise ConfigError(f"cmf options: branch_every must be an integer 0 ... 1000000 (0: off), "
+                              f"got {self.branch_every!r}")
 
 
 @dataclass
@@ -167,6 +179,9 @@ class CMFBatchResult(MFBatchResult):
     cluster: Cluster | None = None
     seconds: float = 0.0
     method: str = "cmf"
+    #: ``branch_every > 0``: points solved with the full seed set / with branch rows only,
+    #: rewinds and the reasons for unscheduled full points (:mod:`phasemap.cmf.branches`)
+    branch_stats: dict | None = None
 
 
 def cluster_seeds(model, cluster: Cluster, n_random: int = 1, rng=0, patterns=None) -> list[Seed]:
@@ -500,6 +515,26 @@ def _solve_points(batch, cl, ops, seeds, init, opt, T):
             part = jobs[c0: c0 + chunk]
             for (p, k, _, _), row in zip(part, _solve_rows_compiled(probs, part, opt, batch.n_max)):
                 store(p, k, row)
+        return out
+    def solve(jobs):
+        if compiled:  # T = 0 here: the seeds of this point in parallel
+            return _solve_rows_compiled(probs, jobs, opt, batch.n_max)
+        return [_solve_row(probs[p], x0, v0, opt, batch.n_max, 0.0) for p, _, x0, v0 in jobs]
+
+    if opt.branch_every > 0 and opt.continuation and init is None and not np.any(T > 0):
+        from .branches import track_branches
+
+        rows, out["branch_stats"] = track_branches(
+            batch, seeds, opt.branch_every, solve,
+            lambda sd, p, prev, pp, k: _row_start(batch, sd, p, prev, pp, None, k, opt), _keeps_character, _param_step)
+        out["energy"][:] = np.inf
+        out["residual"][:] = np.inf
+        out["n"][:] = np.nan
+        out["phi"][:] = np.nan
+        for p in range(P):
+            for k in range(K):
+                if rows[p][k] is not None:
+                    store(p, k, rows[p][k])
         return out
     last = [None] * K  # previous point's end state per seed
     last2 = [None] * K  # and the one before (linear predictor along a scan)
