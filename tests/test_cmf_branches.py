@@ -79,6 +79,7 @@ def test_line_bend_forces_the_full_seed_set():
     b = [Model("triangular", t=0.05 + 0.01 * k, V=1.0, mu=4.0) for k in range(8)]
     _, ref, new = _pair(a + b, every=100)
     assert (new.iterations[8] > 0).all()  # every seed solved at the bend
+    assert new.branch_stats.get("line bend", 0) >= 1
     e0, _, lab0 = _winners(ref)
     e1, _, lab1 = _winners(new)
     assert np.abs(e1 - e0).max() < 1e-9 and list(lab0) == list(lab1)

@@ -117,10 +117,23 @@ def track_branches(batch, seeds, every: int, solve, start, keeps, step):
         Whether a state kept the seed's character (continuation rule of the per-point path).
     step : callable ``(batch, p, q) -> array``
         Parameter step from point ``q`` to ``p``.
+
+    Returns
+    -------
+    rows, stats
+        ``stats``: points solved with the full seed set (``full``, rewound ones counted again)
+        and with branch rows (``branch``), ``rewinds``, rows and iterations solved, and the
+        count of each reason for an unscheduled full point.
     """
     P, K = batch.size, len(seeds)
     rows: list[list] = [[None] * K for _ in range(P)]
-    stats = {"full": 0, "branch": 0, "rewinds": 0}
+    stats = {"full": 0, "branch": 0, "rewinds": 0, "rows": 0, "iterations": 0}
+
+    def solve_counted(jobs):
+        res = list(solve(jobs))
+        stats["rows"] += len(res)
+        stats["iterations"] += int(sum(r["iterations"] for r in res))
+        return res
 
     def prev_rows(p, k):
         prev = rows[p - 1][k] if p >= 1 else None
@@ -129,7 +142,7 @@ def track_branches(batch, seeds, every: int, solve, start, keeps, step):
 
     def run_full(p):
         jobs = [(p, k, *start(sd, p, *prev_rows(p, k), k)) for k, sd in enumerate(seeds)]
-        rows[p] = list(solve(jobs))
+        rows[p] = solve_counted(jobs)
         stats["full"] += 1
 
     def continued(p, k):
@@ -141,7 +154,10 @@ def track_branches(batch, seeds, every: int, solve, start, keeps, step):
     redo_until = -1  # rewind: points up to here are solved with the full seed set
     p = 0
     while p < P:
-        full = (branches is None or p - last_full >= every or p <= redo_until or _bends(batch, p, step))
+        full = branches is None or p - last_full >= every or p <= redo_until
+        if not full and _bends(batch, p, step):
+            full = True
+            stats["line bend"] = stats.get("line bend", 0) + 1
         if not full:
             # one row per branch: its lowest seed that still continues the branch
             reps, members, index = [], [], []
@@ -152,7 +168,7 @@ def track_branches(batch, seeds, every: int, solve, start, keeps, step):
                     members.append(live)
                     index.append(i)
             jobs = [(p, k, *start(seeds[k], p, *prev_rows(p, k), k)) for k in reps]
-            res = list(solve(jobs)) if jobs else []
+            res = solve_counted(jobs) if jobs else []
             reason = _lost(res, members, keeps, seeds)
             if reason is None:
                 for r, m in zip(res, members):
