@@ -31,7 +31,7 @@ from typing import Callable, Iterable
 
 from .model import ConfigError
 
-__all__ = ["Executor", "SerialExecutor", "ProcessExecutor", "DaskExecutor", "get_executor", "run_chunks",
+__all__ = ["Executor", "SerialExecutor", "ProcessExecutor", "AutoExecutor", "DaskExecutor", "get_executor", "run_chunks",
            "EXECUTORS"]
 
 #: spellings accepted by :func:`get_executor` and :func:`run_chunks` ("auto" only there)
@@ -47,8 +47,13 @@ class Executor:
     name = "executor"
     workers = 1
 
-    def imap_unordered(self, fn: Callable, tasks: dict) -> Iterable:
-        """Yield ``(key, result)`` for every ``key, task`` of ``tasks`` as each finishes."""
+    def imap_unordered(self, fn: Callable, tasks: dict, more: Callable | None = None) -> Iterable:
+        """Yield ``(key, result)`` for every ``key, task`` of ``tasks`` as each finishes.
+
+        ``more(key, result) -> {key: task}``: tasks unlocked by a finished one (e.g. the second
+        stage of a job, which needs all of one group's first-stage results); they run by the
+        same executor, before the tasks not yet started, and their results are yielded too.
+        """
         raise NotImplementedError
 
     def close(self) -> None:
@@ -69,9 +74,14 @@ class SerialExecutor(Executor):
 
     name = "serial"
 
-    def imap_unordered(self, fn, tasks):
-        for key, task in tasks.items():
-            yield key, fn(task)
+    def imap_unordered(self, fn, tasks, more=None):
+        queue = list(tasks.items())
+        while queue:
+            key, task = queue.pop(0)
+            part = fn(task)
+            yield key, part
+            if more is not None:
+                queue[:0] = list(more(key, part).items())
 
 
 def _exit_with_parent(parent: int, interval: float = 0.5) -> None:
@@ -93,17 +103,41 @@ def _exit_with_parent(parent: int, interval: float = 0.5) -> None:
     threading.Thread(target=watch, name="exit-with-parent", daemon=True).start()
 
 
+def limit_threads(threads: int) -> None:
+    """Run this process's compiled kernels (numba ``prange``) on at most ``threads`` threads.
+
+    A pool of N workers on C cores gives each worker C // N threads, so N processes x the numba
+    pool never oversubscribe the cores. Rows of a ``prange`` loop are independent, so the answers
+    do not depend on the thread count.
+    """
+    try:
+        import numba
+    except ImportError:  # pragma: no cover - numba is a dependency
+        return
+    numba.set_num_threads(max(1, min(int(threads), numba.config.NUMBA_NUM_THREADS)))
+
+
+def _init_worker(parent: int, threads: int | None) -> None:
+    """Pool worker initializer: exit with the parent; cap the compiled kernels' threads."""
+    _exit_with_parent(parent)
+    if threads:
+        limit_threads(threads)
+
+
 def process_pool(workers: int, context: str = "spawn"):
     """A ``concurrent.futures`` process pool whose workers exit when this process dies.
 
     Every local pool of phasemap is made here (:class:`ProcessExecutor`, the chains of one
-    Monte Carlo run), so no worker outlives a killed job.
+    Monte Carlo run), so no worker outlives a killed job. Spawned workers run their compiled
+    kernels on ``cores // workers`` threads each (:func:`limit_threads`: no oversubscription);
+    forked workers keep the parent's setting (starting numba's thread pool in a fork is unsafe).
     """
     import multiprocessing as mp
     from concurrent.futures import ProcessPoolExecutor
 
-    return ProcessPoolExecutor(workers, mp_context=mp.get_context(context), initializer=_exit_with_parent,
-                               initargs=(os.getpid(),))
+    threads = max(1, (os.cpu_count() or 1) // max(1, int(workers))) if context == "spawn" else None
+    return ProcessPoolExecutor(workers, mp_context=mp.get_context(context), initializer=_init_worker,
+                               initargs=(os.getpid(), threads))
 
 
 class ProcessExecutor(Executor):
@@ -121,14 +155,24 @@ class ProcessExecutor(Executor):
             self._pool = process_pool(self.workers, self.context)
         return self._pool
 
-    def imap_unordered(self, fn, tasks):
-        from concurrent.futures import as_completed
+    def imap_unordered(self, fn, tasks, more=None):
+        from concurrent.futures import FIRST_COMPLETED, wait
 
         pool = self._get()
-        futs = {pool.submit(fn, task): key for key, task in tasks.items()}
+        queue = list(tasks.items())
+        futs = {}  # at most one task per worker in flight: the queue's order (unlocked tasks first) holds
         try:
-            for f in as_completed(futs):
-                yield futs[f], f.result()
+            while queue or futs:
+                while queue and len(futs) < self.workers:
+                    key, task = queue.pop(0)
+                    futs[pool.submit(fn, task)] = key
+                done, _ = wait(futs, return_when=FIRST_COMPLETED)
+                for f in done:
+                    key = futs.pop(f)
+                    part = f.result()
+                    yield key, part
+                    if more is not None:
+                        queue[:0] = list(more(key, part).items())
         finally:
             for f in futs:
                 f.cancel()
@@ -137,6 +181,53 @@ class ProcessExecutor(Executor):
         if self._pool is not None:
             self._pool.shutdown(wait=True, cancel_futures=True)
             self._pool = None
+
+
+class AutoExecutor(Executor):
+    """``"auto"``: the first chunk runs in this process and is timed; when the chunks still to do
+    would take longer than :data:`AUTO_PARALLEL_SECONDS`, they go to local processes on all cores.
+
+    One instance serves every stage of a job (e.g. a strain sweep's plateau steps, then its
+    critical strains): once processes are chosen the same pool runs the later stages; while the
+    chunks stay here, each stage times its own first chunk again.
+    """
+
+    name = "auto"
+
+    def __init__(self):
+        self._ex = None
+
+    @property
+    def workers(self):
+        return self._ex.workers if self._ex is not None else 1
+
+    def imap_unordered(self, fn, tasks, more=None):
+        import time
+
+        todo = dict(tasks)
+        if not isinstance(self._ex, ProcessExecutor) and todo:
+            key = next(iter(todo))
+            t0 = time.perf_counter()
+            part = fn(todo.pop(key))
+            spent = time.perf_counter() - t0
+            yield key, part
+            if more is not None:
+                todo = {**more(key, part), **todo}
+            cores = os.cpu_count() or 1
+            if todo and cores > 1 and spent * len(todo) > AUTO_PARALLEL_SECONDS:
+                self._ex = ProcessExecutor()
+            else:
+                self._ex = SerialExecutor()
+        if todo:
+            yield from self._ex.imap_unordered(fn, todo, more)
+
+    def close(self):
+        if self._ex is not None:
+            self._ex.close()
+            self._ex = None
+
+    def describe(self) -> str:
+        return "auto" if self._ex is None else f"auto: {self._ex.describe()}"
 
 
 class DaskExecutor(Executor):
@@ -168,7 +259,7 @@ class DaskExecutor(Executor):
         self.workers = max(1, len(self._client.scheduler_info().get("workers", {})))
         self.address = address or self._cluster.scheduler_address
 
-    def imap_unordered(self, fn, tasks):
+    def imap_unordered(self, fn, tasks, more=None):
         from distributed import as_completed
 
         futs = {}
@@ -176,8 +267,14 @@ class DaskExecutor(Executor):
             # pure=False: never merge two chunks that happen to hash alike
             futs[self._client.submit(fn, task, pure=False)] = key
         try:
-            for f in as_completed(list(futs)):
-                yield futs[f], f.result()
+            pending = as_completed(list(futs))
+            for f in pending:
+                key, part = futs[f], f.result()
+                yield key, part
+                for k, task in (more(key, part) if more is not None else {}).items():
+                    nf = self._client.submit(fn, task, pure=False, priority=1)
+                    futs[nf] = k
+                    pending.add(nf)
         finally:
             for f in futs:
                 f.cancel()
@@ -208,8 +305,10 @@ def get_executor(spec: "str | Executor | None" = None, scheduler: str | None = N
     if scheduler:
         return DaskExecutor(scheduler if "://" in scheduler else f"tcp://{scheduler}")
     spec = (spec or "serial").strip()
-    if spec in ("serial", "auto"):
+    if spec == "serial":
         return SerialExecutor()
+    if spec == "auto":
+        return AutoExecutor()
     if spec == "processes" or spec.startswith("processes:"):
         n = spec.partition(":")[2]
         if n and not (n.isdigit() and 1 <= int(n) <= 1024):
@@ -226,7 +325,7 @@ def get_executor(spec: "str | Executor | None" = None, scheduler: str | None = N
 
 def run_chunks(fn: Callable, tasks: dict, executor: "Executor | str | None" = None, store=None,
                progress: bool = False, desc: str = "chunks", weights: dict | None = None,
-               unit: str = "chunk", bar=None) -> dict:
+               unit: str = "chunk", bar=None, more: Callable | None = None) -> dict:
     """Run ``fn(task)`` for every ``key, task`` of ``tasks``; returns ``{key: result}``.
 
     Parameters
@@ -245,57 +344,55 @@ def run_chunks(fn: Callable, tasks: dict, executor: "Executor | str | None" = No
     bar : tqdm-like, optional
         The job's own bar (a job of several stages keeps one bar): advanced by the weights of
         loaded and computed chunks, never closed here (``progress`` is then ignored).
+    more : callable, optional
+        ``more(key, result) -> {key: task}``: chunks unlocked by a finished (or loaded) one, run
+        before the chunks not yet started (:meth:`Executor.imap_unordered`) and checkpointed
+        like the others; the returned dict holds them too. Each key is unlocked once.
     """
     out = {}
     todo = {}
-    for key, task in tasks.items():
-        part = store.load(key) if store is not None else None
-        if part is None:
-            todo[key] = task
-        else:
-            out[key] = part
     weights = weights or {}
     own_bar = bar is None
-    if bar is not None:
-        bar.update(sum(weights.get(k, 1) for k in out))
-    elif progress:
+    if bar is None and progress:
         from tqdm.auto import tqdm
 
-        bar = tqdm(total=sum(weights.get(k, 1) for k in tasks), desc=desc, unit=unit, leave=False,
-                   initial=sum(weights.get(k, 1) for k in out))
-    auto = executor == "auto"
+        extra = sum(w for k, w in weights.items() if k not in tasks) if more is not None else 0  # unlocked ones
+        bar = tqdm(total=sum(weights.get(k, 1) for k in tasks) + extra, desc=desc, unit=unit, leave=False)
+
+    def arrived(key, part, new):
+        out[key] = part
+        if bar is not None:
+            bar.update(weights.get(key, 1))
+        if more is not None:
+            unlock(more(key, part), new)
+
+    def unlock(found, new):  # the chunks taken from the store count as finished at once
+        for key, task in found.items():
+            part = store.load(key) if store is not None else None
+            if part is None:
+                new[key] = task
+            else:
+                arrived(key, part, new)
+
+    unlock(tasks, todo)
     own = not isinstance(executor, Executor)
     ex = None
-    try:
-        if todo and auto:  # time the first chunk here, then decide
-            import time
 
-            key = next(iter(todo))
-            t0 = time.perf_counter()
-            part = fn(todo.pop(key))
-            spent = time.perf_counter() - t0
-            if store is not None:
-                store.save(key, part)
-            out[key] = part
-            if bar is not None:
-                bar.update(weights.get(key, 1))
-            cores = os.cpu_count() or 1
-            if todo and cores > 1 and spent * len(todo) > AUTO_PARALLEL_SECONDS:
-                ex = ProcessExecutor()
-            else:
-                ex = SerialExecutor()
-        elif todo:
-            ex = get_executor(executor)
+    def after(key, part):  # a computed chunk: saved at once, then what it unlocks
+        if store is not None:
+            store.save(key, part)
+        new = {}
+        arrived(key, part, new)
+        return new
+
+    try:
         if todo:
-            for key, part in ex.imap_unordered(fn, todo):
-                if store is not None:
-                    store.save(key, part)
-                out[key] = part
-                if bar is not None:
-                    bar.update(weights.get(key, 1))
+            ex = AutoExecutor() if executor == "auto" else get_executor(executor)
+        for _ in (ex.imap_unordered(fn, todo, after) if todo else ()):
+            pass
     finally:
         if bar is not None and own_bar:
             bar.close()
         if own and ex is not None:
             ex.close()
-    return {k: out[k] for k in tasks}
+    return {**{k: out[k] for k in tasks}, **{k: v for k, v in out.items() if k not in tasks}}

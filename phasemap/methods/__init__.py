@@ -182,6 +182,12 @@ class Method:
         (``mu``, ``tol``, ``width_floor``, ``jump_tol``, ``thresholds``, ``n_mu``, ...); take what applies."""
         raise ConfigError(f"method {self.name}: not available in the strain workflow")
 
+    def strain_cost(self, spec: "MethodSpec", models) -> float:
+        """Relative cost of one strain-sweep chunk of this method (only orders the chunks, costliest
+        first; answers never depend on it). Default: a whole-path chunk (``strain_local`` False)
+        counts as the path's length times a cluster's; a one-strain chunk as 1."""
+        return 1.0 if self.strain_local else 1e6 * len(models)
+
     def strain_critical(self, spec: "MethodSpec", table, strains, record, fraction: str, **kw):
         """Critical strain along the path from the records at ``strains``: a
         :class:`phasemap.strain.critical.CriticalResult` (sharp) or an

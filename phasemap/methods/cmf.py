@@ -53,6 +53,11 @@ class ClusterMeanField(GrandCanonicalMethod):
                               f"diagonalisation); cluster {cl.name!r} has Hilbert dimension {dim:,} > "
                               f"thermal_max_dim = {limit:,} (use e.g. cmf:tri3, cmf:tri6 or cmf:tri9)")
 
+    def strain_cost(self, spec, models):
+        """The cluster's Hilbert dimension (a dense eigensolve per row and iteration grows with it)."""
+        cl = get_cluster(self.options(spec.option_dict).get("cluster", self.default_arg), models[0].lattice)
+        return float((max(m.n_max for m in models) + 1) ** cl.n_sites)
+
     def check_cluster(self, cluster, model):
         get_cluster(cluster, model.lattice)
 

@@ -33,7 +33,8 @@ from .melting import check_T_measure
 from .sensitivity import critical_vs_lambda
 from .table import StrainTable
 
-__all__ = ["StrainSweep", "strain_sweep", "check_sweep", "sweep_checkpoint_params", "sweep_step_chunk", "sweep_finish_chunk"]
+__all__ = ["StrainSweep", "strain_sweep", "check_sweep", "sweep_checkpoint_params", "sweep_chunk", "sweep_step_chunk",
+           "sweep_finish_chunk"]
 
 
 @dataclass
@@ -423,10 +424,12 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
     T_max : float, optional
         Top of the melting search (default max V).
     executor : Executor or str, optional
-        Where the chunks run (:func:`phasemap.executor.run_chunks`; default serial). Chunks: one
-        per method and strain (``Method.strain_local``; one per method otherwise), then one per
-        method for its critical strain, lambda scan and melting. The result is the same for
-        every executor.
+        Where the chunks run (:func:`phasemap.executor.run_chunks`; default serial; ``"auto"``:
+        local processes on all cores when the first chunk says the sweep is long). Chunks: one
+        per method and strain (``Method.strain_local``; one per method otherwise), costliest
+        method first (``Method.strain_cost``), then one per method for its critical strain, lambda
+        scan and melting, started as soon as that method's strains are done (beside the other
+        methods' strains). The result is the same for every executor.
     checkpoint : phasemap.store.ChunkStore, optional
         Finished chunks are saved as they arrive and taken from it on a rerun
         (:func:`sweep_checkpoint_params` is what its ``params`` must hold).
@@ -437,7 +440,7 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
     -------
     StrainSweep
     """
-    from ..executor import get_executor, run_chunks
+    from ..executor import Executor, get_executor, run_chunks
     from ..store import unpack_object
 
     specs, lab, S, models, melting, T_measure = check_sweep(table, methods, strains, n_strain, fraction, melting,
@@ -465,25 +468,40 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
         from tqdm.auto import tqdm
 
         bar = tqdm(total=sum(weights.values()), desc="strain sweep", unit="strain", leave=False)
-    own = executor is not None and not isinstance(executor, str)
-    ex = executor if (own or executor in (None, "auto")) else get_executor(executor)
+    # one executor for both stages ("auto": decided on the first chunk computed, the pool then kept)
+    ex = executor if isinstance(executor, Executor) else get_executor(executor)
+    # costliest chunks first (keys keep the path order, so checkpoints are read the same): the
+    # workers' tail is short, and "auto" times a representative chunk
+    cost = {a: sp.impl.strain_cost(sp, models) for a, sp in enumerate(specs)}
+    order = sorted(steps, key=lambda k: (-cost[where[k][0]], k))
+    recs, secs, left = {}, {}, {a: {k for k in steps if where[k][0] == a} for a in range(len(specs))}
+    parts = {}
+
+    def unlock(key, part):
+        # stage 2 of a method (its critical strain from the whole path, lambda scan, melting) as soon as
+        # its last stage-1 chunk is in: it runs beside the other methods' stage-1 chunks
+        if key not in where:
+            return {}
+        a = where[key][0]
+        parts[key] = part
+        left[a].discard(key)
+        if left[a]:
+            return {}
+        sp = specs[a]
+        got = [unpack_object(parts[k]) for k in steps if where[k][0] == a]
+        recs[sp.name] = _concat([g["record"] for g in got])
+        secs[sp.name] = float(sum(g["seconds"] for g in got))
+        return {finish_keys[a]: ("finish", {"spec": sp, "table": table, "strains": S, "record": recs[sp.name],
+                                            "fraction": lab, "xtol": xtol, "kw": kw, "lambdas": lambdas,
+                                            "param": param, "n_strain": n_strain, "melting": melting, "T_max": T_max})}
+
     try:
-        parts = run_chunks(sweep_step_chunk, steps, ex, store=checkpoint, weights=weights, bar=bar)
-        recs, secs = {}, {}
-        for a, sp in enumerate(specs):
-            got = [unpack_object(parts[k]) for k in steps if where[k][0] == a]
-            recs[sp.name] = _concat([g["record"] for g in got])
-            secs[sp.name] = float(sum(g["seconds"] for g in got))
-        # stage 2: per method, its critical strain (from the whole path), lambda scan, melting
-        finish = {finish_keys[a]: {"spec": sp, "table": table, "strains": S, "record": recs[sp.name],
-                                   "fraction": lab, "xtol": xtol, "kw": kw, "lambdas": lambdas, "param": param,
-                                   "n_strain": n_strain, "melting": melting, "T_max": T_max}
-                  for a, sp in enumerate(specs)}
-        done = run_chunks(sweep_finish_chunk, finish, ex, store=checkpoint, weights=weights, bar=bar)
+        done = run_chunks(sweep_chunk, {k: ("step", steps[k]) for k in order}, ex, store=checkpoint, weights=weights,
+                          bar=bar, more=unlock)
     finally:
         if bar is not None:
             bar.close()
-        if ex is not executor and not isinstance(ex, str) and ex is not None:
+        if ex is not executor:
             ex.close()
     crit, lams, notes, melts = {}, {}, [], {}
     for a, sp in enumerate(specs):
@@ -569,6 +587,13 @@ def _concat(parts: list):
     if isinstance(a, list):
         return [x for p in parts for x in p]
     return a
+
+
+def sweep_chunk(task) -> dict:
+    """A sweep chunk ``(stage, task)``: ``"step"`` (:func:`sweep_step_chunk`) or ``"finish"``
+    (:func:`sweep_finish_chunk`)."""
+    stage, task = task
+    return (sweep_step_chunk if stage == "step" else sweep_finish_chunk)(task)
 
 
 def sweep_step_chunk(task) -> dict:
