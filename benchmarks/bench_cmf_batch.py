@@ -12,7 +12,8 @@ map   tri3 hard-core 100 x 100 map (demo model, t/V in [0, 0.4], mu/V in [-1, 7]
       agreement of the winning states on the sample.
 cli   wall time of ``phasemap strain-check demo --strain 0.12 --method cmf:tri3`` and
       ``phasemap strain-sweep demo --methods mf,cmf:tri3,cmf:tri6`` (subprocesses, start-up
-      included), for this checkout (new path) and, side by side, for the code of ``--old-ref``
+      included), for this checkout (new path; the sweep also with ``--executor serial``) and,
+      side by side, for the code of ``--old-ref``
       (default 5e8036e, main before the strain-speed work: full chemical-potential grid for
       every plateau search, 31 points per edge-search step, batched multi-section before
       every brentq, full ``eigh``), unpacked with ``git archive`` into a temporary folder.
@@ -163,10 +164,15 @@ def part_cli(sweep_only: bool = False, old_ref: str | None = "5e8036e", check_on
         [] if check_only else [["strain-sweep", "demo", "--out", "sweep-out", "--methods", "mf,cmf:tri3,cmf:tri6",
                                 "--no-figures"]])
     trees = [("new", None)] + ([(f"old ({old_ref})", _old_tree(old_ref))] if old_ref else [])
-    for args in cmds:
-        for name, path in trees:
-            for meth in ("mf", "cmf:tri3"):  # numba compiles and caches on first use: not timed
+    for cmd in cmds:
+        # the sweep of this checkout also with --executor serial: what the parallel chunks buy
+        runs = [(n, p, cmd) for n, p in trees] + ([("new, --executor serial", None, [*cmd, "--executor", "serial"])]
+                                                   if cmd[0] == "strain-sweep" else [])
+        for meth in ("mf", "cmf:tri3"):  # numba compiles and caches on first use: not timed
+            for path in {p for _, p, _ in runs}:
                 run_cli(["strain-check", "demo", "--strain", "0.12", "--method", meth, "--no-melt"], path)
+        kept = {}
+        for name, path, args in runs:
             l0 = load()
             keep = tempfile.mkdtemp()
             r = run_cli(args, path, keep=keep)
@@ -177,6 +183,17 @@ def part_cli(sweep_only: bool = False, old_ref: str | None = "5e8036e", check_on
             print(f"[cli] {name}: phasemap {' '.join(args)}: {dt:.1f} s wall, {cpu:.1f} s CPU "
                   f"({l0} before, {load()} after)")
             print(f"[cli] {name}:   {_answers(args, out, keep)}")
+            kept[name] = keep
+        if cmd[0] == "strain-sweep" and len(kept) > 1:
+            import xarray as xr
+
+            ref_name, ref = next(iter(kept.items()))
+            a = xr.load_dataset(os.path.join(ref, "sweep-out", "sweep.nc"))
+            for name, keep in list(kept.items())[1:]:
+                b = xr.load_dataset(os.path.join(keep, "sweep-out", "sweep.nc"))
+                diff = [k for k in a.data_vars if k in b and not a[k].equals(b[k])]
+                print(f"[cli] sweep.nc {ref_name} vs {name}: " + ("every variable identical (values and coordinates)"
+                      if not diff and set(a.data_vars) == set(b.data_vars) else f"differ in {', '.join(diff) or 'variables'}"))
 
 
 def part_line(points: int = 8, dt: float = 0.002) -> None:

@@ -153,6 +153,34 @@ def test_sweep_critical_strain_is_the_fit_at_lambda_one_of_library_lambdas(tmp_p
     assert "extrapolated to λ → 1" in sw.text()
 
 
+@pytest.mark.slow
+def test_sweep_polishes_clusters_in_parallel_chunks_with_the_serial_answer():
+    # common practice, no source: a sweep runs every cluster's brentq polish as a chunk of its own (two
+    # spawned workers here); the dataset and the critical strain must be those of the serial sweep, and
+    # those of the critical strain computed in one piece from the same record (the pre-parallel path).
+    # Planted: the pieces' results dropped (every cluster falls back to its bracket root) -> fails
+    from phasemap.executor import ProcessExecutor
+    from phasemap.strain.sweep import strain_sweep
+
+    from phasemap.strain.engine import clear_cache
+
+    tab = _closing_table()
+    spec = MethodSpec.parse("cmf-scaled:3+6", every=1, patterns=("sqrt3",), n_random=0)
+    kw = dict(strains=[0.06, 0.08, 0.1], n_mu=41)  # tri6 closes in the first bracket, tri3 in the second
+    serial = strain_sweep(tab, ["mf", spec], executor="serial", **kw)
+    with ProcessExecutor(2) as ex:
+        par = strain_sweep(tab, ["mf", spec], executor=ex, **kw)
+    assert serial.to_dataset().identical(par.to_dataset())
+    rec = serial.records[spec.name]
+    assert spec.impl.strain_critical_parts(spec, tab, serial.strains, rec, "1/3") == ["tri6", "tri3"]  # largest first
+    clear_cache()
+    whole = spec.impl.strain_critical(spec, tab, serial.strains, rec, "1/3", width_floor=1e-3)
+    for sw in (serial, par):
+        c = sw.critical[spec.name]
+        assert repr(c.to_dict()) == repr(whole.to_dict())  # repr: NaN entries compare equal
+        assert [x["root"] for x in c.per_cluster] == ["brentq (cmf critical strain of the cluster)"] * 2
+
+
 def test_critical_strain_of_linearly_closing_widths_is_exact():
     # exact for this construction: every cluster's width closes linearly, w_c(s) = 10 (s_c - s) clipped at 0,
     # with s_c linear in the docs/cmf.md λ, so the per-cluster roots are s_c (shifted by the width floor,

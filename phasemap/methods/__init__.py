@@ -188,6 +188,16 @@ class Method:
         counts as the path's length times a cluster's; a one-strain chunk as 1."""
         return 1.0 if self.strain_local else 1e6 * len(models)
 
+    def strain_critical_parts(self, spec: "MethodSpec", table, strains, record, fraction: str, **kw) -> list:
+        """Independent, costly pieces of :meth:`strain_critical` (e.g. one root search per cluster) that
+        a sweep runs as chunks of their own, side by side (:meth:`strain_critical_part`); their
+        results go back to ``strain_critical(..., parts={piece: result})``. Default: none."""
+        return []
+
+    def strain_critical_part(self, spec: "MethodSpec", table, strains, record, fraction: str, piece, **kw):
+        """The result of one piece named by :meth:`strain_critical_parts`."""
+        raise NotImplementedError(f"method {self.name}: no parts of the critical strain")
+
     def strain_critical(self, spec: "MethodSpec", table, strains, record, fraction: str, **kw):
         """Critical strain along the path from the records at ``strains``: a
         :class:`phasemap.strain.critical.CriticalResult` (sharp) or an

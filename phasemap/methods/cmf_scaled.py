@@ -163,9 +163,24 @@ class ClusterScaledMeanField(Method):
         step = ScaledStep.build(spec, s, models, computed, recs, fraction, kw.get("width_floor", 1e-3))
         return _record(step, spec.name, fraction)
 
-    def strain_critical(self, spec, table, strains, record, fraction, width_floor=1e-3, **kw):
+    def strain_critical(self, spec, table, strains, record, fraction, width_floor=1e-3, parts=None, **kw):
         return _critical(spec, table, strains, record, fraction, width_floor,
-                         self.cluster_specs(spec) if self.settings(spec)["polish"] else None)
+                         self.cluster_specs(spec) if self.settings(spec)["polish"] else None, polished=parts)
+
+    def strain_critical_parts(self, spec, table, strains, record, fraction, width_floor=1e-3, **kw):
+        """The clusters whose brentq polish will run (``polish``, a plateau closing on the computed strains),
+        costliest (largest) first: independent root searches, so a sweep runs them side by side."""
+        if not self.settings(spec)["polish"]:
+            return []
+        step: ScaledStep = record.detail
+        S, floor = _computed(table, strains, step, width_floor)
+        found = [cl for j, cl in enumerate(step.clusters) if _closing(S, step, j, floor)[1] is not None]
+        return sorted(found, key=lambda cl: -step.n_sites[step.clusters.index(cl)])
+
+    def strain_critical_part(self, spec, table, strains, record, fraction, piece, width_floor=1e-3, **kw):
+        step: ScaledStep = record.detail
+        sp = self.cluster_specs(spec)[step.clusters.index(piece)]
+        return _polish(sp, table, _computed(table, strains, step, width_floor)[0], step, piece, fraction, width_floor)
 
     def strain_point(self, spec, model, record, mu, fraction, **kw):
         return _report(model, record, mu, fraction)
@@ -353,22 +368,41 @@ def __getattr__(name):
     raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
 
 
-def _critical(spec, table, strains, record, fraction, width_floor=1e-3, polish=None):
+def _computed(table, strains, step, width_floor):
+    """The computed strains and the width floor there (model unit)."""
+    S = np.asarray(strains, float)[step.computed]
+    return S, width_floor * np.array([m.scale for m in table.models(S)])
+
+
+def _closing(S, step, j, floor):
+    """Cluster ``j``'s width minus the floor on the computed strains and its first sign change ``(h, r, i, k)``."""
+    from ..qmc.scaling import first_sign_change
+
+    w = step.per["width"][step.computed, j]
+    h = np.where(np.isfinite(w), w, 0.0) - floor
+    return (h, *first_sign_change(S, h))
+
+
+def _polish(sp, table, S, step, cl, fraction, width_floor):
+    """Cluster ``cl``'s own cmf critical strain (brentq) from its record on the computed strains ``S``."""
+    return sp.impl.strain_critical(sp, table, S, step.records[cl], fraction, width_floor=width_floor,
+                                   **{q: step.settings[q] for q in SEARCH if q != "sections"})
+
+
+def _critical(spec, table, strains, record, fraction, width_floor=1e-3, polish=None, polished=None):
     """Critical strain of the cmf-scaled record (module notes). ``polish``: the clusters' cmf specs, to
-    polish every cluster's root with that cluster's own critical strain (brentq; costly on tri9, tri12)."""
+    polish every cluster's root with that cluster's own critical strain (brentq; costly on tri9, tri12);
+    ``polished``: {cluster: that critical strain} already computed (a sweep's parallel chunks)."""
     from ..cmf.scaling import fit_linear
     from ..qmc.scaling import first_sign_change
 
     step: ScaledStep = record.detail
     c = step.computed
-    S = np.asarray(strains, float)[c]
-    scale = np.array([m.scale for m in table.models(S)])
-    floor = width_floor * scale
+    S, floor = _computed(table, strains, step, width_floor)
+    polished = polished or {}
     roots, sigs, pc = [], [], []
     for j, cl in enumerate(step.clusters):
-        w = np.where(np.isfinite(step.per["width"][c, j]), step.per["width"][c, j], 0.0)
-        h = w - floor
-        r, i, k = first_sign_change(S, h)
+        h, r, i, k = _closing(S, step, j, floor)
         # a closed plateau has width 0 (clipped), so the straight line between the last open and the first
         # closed strain puts the root at the closed end; instead continue the last two open strains' line
         # (exact for a width closing linearly), kept inside the bracket; the error stays the bracket's,
@@ -379,9 +413,7 @@ def _critical(spec, table, strains, record, fraction, width_floor=1e-3, polish=N
             r = float(min(max(S[i] + h[i] * (S[i] - S[i - 1]) / (h[i - 1] - h[i]), S[i]), S[k]))
             how = "line through the last two open strains, inside the bracket"
         if polish is not None and i is not None:
-            sp = polish[j]
-            cr = sp.impl.strain_critical(sp, table, S, step.records[cl], fraction, width_floor=width_floor,
-                                         **{q: step.settings[q] for q in SEARCH if q != "sections"})
+            cr = polished[cl] if cl in polished else _polish(polish[j], table, S, step, cl, fraction, width_floor)
             if cr.strain_c is not None:
                 r, sig, how = cr.strain_c, cr.xtol, "brentq (cmf critical strain of the cluster)"
         roots.append(r)

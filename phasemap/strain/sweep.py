@@ -34,7 +34,7 @@ from .sensitivity import critical_vs_lambda
 from .table import StrainTable
 
 __all__ = ["StrainSweep", "strain_sweep", "check_sweep", "sweep_checkpoint_params", "sweep_chunk", "sweep_step_chunk",
-           "sweep_finish_chunk"]
+           "sweep_part_chunk", "sweep_finish_chunk"]
 
 
 @dataclass
@@ -427,9 +427,10 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
         Where the chunks run (:func:`phasemap.executor.run_chunks`; default serial; ``"auto"``:
         local processes on all cores when the first chunk says the sweep is long). Chunks: one
         per method and strain (``Method.strain_local``; one per method otherwise), costliest
-        method first (``Method.strain_cost``), then one per method for its critical strain, lambda
-        scan and melting, started as soon as that method's strains are done (beside the other
-        methods' strains). The result is the same for every executor.
+        method first (``Method.strain_cost``), then per method the independent pieces of its
+        critical strain (``Method.strain_critical_parts``: cmf-scaled's per-cluster root searches)
+        and one chunk for its critical strain, lambda scan and melting, started as soon as what they
+        need is done (beside the other methods' chunks). The result is the same for every executor.
     checkpoint : phasemap.store.ChunkStore, optional
         Finished chunks are saved as they arrive and taken from it on a rerun
         (:func:`sweep_checkpoint_params` is what its ``params`` must hold).
@@ -475,11 +476,27 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
     cost = {a: sp.impl.strain_cost(sp, models) for a, sp in enumerate(specs)}
     order = sorted(steps, key=lambda k: (-cost[where[k][0]], k))
     recs, secs, left = {}, {}, {a: {k for k in steps if where[k][0] == a} for a in range(len(specs))}
-    parts = {}
+    parts, pieces = {}, {}  # stage-1 results; key of a critical-strain piece -> (method index, piece)
+    got_pieces = {a: {} for a in range(len(specs))}
+
+    def finish_task(a, solved=None):
+        sp = specs[a]
+        return {finish_keys[a]: ("finish", {"spec": sp, "table": table, "strains": S, "record": recs[sp.name],
+                                            "fraction": lab, "xtol": xtol, "kw": kw, "lambdas": lambdas, "param": param,
+                                            "n_strain": n_strain, "melting": melting, "T_max": T_max,
+                                            "parts": solved})}
 
     def unlock(key, part):
-        # stage 2 of a method (its critical strain from the whole path, lambda scan, melting) as soon as
-        # its last stage-1 chunk is in: it runs beside the other methods' stage-1 chunks
+        # stage 2 of a method as soon as its last stage-1 chunk is in, beside the other methods' stage-1
+        # chunks: first the independent pieces of its critical strain (Method.strain_critical_parts, one
+        # chunk each), then its critical strain from the whole path, lambda scan and melting
+        if key in pieces:
+            a, piece = pieces[key]
+            d = unpack_object(part)
+            got_pieces[a][piece] = d["result"]
+            secs[specs[a].name] += d["seconds"]
+            want = [p for k, (b, p) in pieces.items() if b == a]
+            return finish_task(a, {p: got_pieces[a][p] for p in want}) if len(got_pieces[a]) == len(want) else {}
         if key not in where:
             return {}
         a = where[key][0]
@@ -491,9 +508,18 @@ def strain_sweep(table: StrainTable, methods="mf", strains=None, n_strain: int |
         got = [unpack_object(parts[k]) for k in steps if where[k][0] == a]
         recs[sp.name] = _concat([g["record"] for g in got])
         secs[sp.name] = float(sum(g["seconds"] for g in got))
-        return {finish_keys[a]: ("finish", {"spec": sp, "table": table, "strains": S, "record": recs[sp.name],
-                                            "fraction": lab, "xtol": xtol, "kw": kw, "lambdas": lambdas,
-                                            "param": param, "n_strain": n_strain, "melting": melting, "T_max": T_max})}
+        todo = sp.impl.strain_critical_parts(sp, table, S, recs[sp.name], lab, xtol=xtol, **kw)
+        if not todo:
+            return finish_task(a)
+        if len(todo) > 64:
+            raise ValueError(f"{sp.name}: more than 64 parts of the critical strain")
+        new = {}
+        for j, piece in enumerate(todo):  # keys after every step and finish key, 64 per method
+            k = len(steps) + len(specs) + 64 * a + j
+            pieces[k] = (a, piece)
+            new[k] = ("part", {"spec": sp, "table": table, "strains": S, "record": recs[sp.name], "fraction": lab,
+                               "piece": piece, "kw": dict(kw, xtol=xtol)})
+        return new
 
     try:
         done = run_chunks(sweep_chunk, {k: ("step", steps[k]) for k in order}, ex, store=checkpoint, weights=weights,
@@ -590,10 +616,23 @@ def _concat(parts: list):
 
 
 def sweep_chunk(task) -> dict:
-    """A sweep chunk ``(stage, task)``: ``"step"`` (:func:`sweep_step_chunk`) or ``"finish"``
-    (:func:`sweep_finish_chunk`)."""
+    """A sweep chunk ``(stage, task)``: ``"step"`` (:func:`sweep_step_chunk`), ``"part"``
+    (:func:`sweep_part_chunk`) or ``"finish"`` (:func:`sweep_finish_chunk`)."""
     stage, task = task
-    return (sweep_step_chunk if stage == "step" else sweep_finish_chunk)(task)
+    return {"step": sweep_step_chunk, "part": sweep_part_chunk, "finish": sweep_finish_chunk}[stage](task)
+
+
+def sweep_part_chunk(task: dict) -> dict:
+    """One piece of a method's critical strain (:meth:`~phasemap.methods.Method.strain_critical_part`)."""
+    from ..store import pack_object
+    from .engine import clear_cache
+
+    clear_cache()
+    t0 = time.perf_counter()
+    sp = task["spec"]
+    r = sp.impl.strain_critical_part(sp, task["table"], task["strains"], task["record"], task["fraction"],
+                                     task["piece"], **task["kw"])
+    return pack_object({"result": r, "seconds": time.perf_counter() - t0})
 
 
 def sweep_step_chunk(task) -> dict:
@@ -624,7 +663,8 @@ def sweep_finish_chunk(task: dict) -> dict:
     sp, table, S, rec, lab, kw = (task[k] for k in ("spec", "table", "strains", "record", "fraction", "kw"))
     out = {"seconds": {}, "notes": []}
     t0 = time.perf_counter()
-    out["critical"] = sp.impl.strain_critical(sp, table, S, rec, lab, xtol=task["xtol"], **kw)
+    solved = {"parts": task["parts"]} if task.get("parts") else {}  # pieces computed by their own chunks
+    out["critical"] = sp.impl.strain_critical(sp, table, S, rec, lab, xtol=task["xtol"], **solved, **kw)
     out["seconds"][sp.name] = time.perf_counter() - t0
     if task["lambdas"] is not None:
         if rec.sharp and sp.capabilities.grand_canonical:
