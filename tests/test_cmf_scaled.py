@@ -157,8 +157,7 @@ def test_sweep_critical_strain_is_the_fit_at_lambda_one_of_library_lambdas(tmp_p
 def test_sweep_polishes_clusters_in_parallel_chunks_with_the_serial_answer():
     # common practice, no source: a sweep runs every cluster's brentq polish as a chunk of its own (two
     # spawned workers here); the dataset and the critical strain must be those of the serial sweep, and
-    # those of the critical strain computed in one piece from the same record (the pre-parallel path).
-    # Planted: the pieces' results dropped (every cluster falls back to its bracket root) -> fails
+    # those of the critical strain computed in one piece from the same record (the pre-parallel path)
     from phasemap.executor import ProcessExecutor
     from phasemap.strain.sweep import strain_sweep
 
