@@ -159,7 +159,8 @@ def _answers(args, stdout, folder):
                      for k, v in d["critical"].items())
 
 
-def part_cli(sweep_only: bool = False, old_ref: str | None = "5e8036e", check_only: bool = False) -> None:
+def part_cli(sweep_only: bool = False, old_ref: str | None = "5e8036e", check_only: bool = False,
+             serial: bool = True) -> None:
     cmds = ([] if sweep_only else [["strain-check", "demo", "--strain", "0.12", "--method", "cmf:tri3", "--json"]]) + (
         [] if check_only else [["strain-sweep", "demo", "--out", "sweep-out", "--methods", "mf,cmf:tri3,cmf:tri6",
                                 "--no-figures"]])
@@ -167,7 +168,7 @@ def part_cli(sweep_only: bool = False, old_ref: str | None = "5e8036e", check_on
     for cmd in cmds:
         # the sweep of this checkout also with --executor serial: what the parallel chunks buy
         runs = [(n, p, cmd) for n, p in trees] + ([("new, --executor serial", None, [*cmd, "--executor", "serial"])]
-                                                   if cmd[0] == "strain-sweep" else [])
+                                                   if cmd[0] == "strain-sweep" and serial else [])
         for meth in ("mf", "cmf:tri3"):  # numba compiles and caches on first use: not timed
             for path in {p for _, p, _ in runs}:
                 run_cli(["strain-check", "demo", "--strain", "0.12", "--method", meth, "--no-melt"], path)
@@ -223,6 +224,7 @@ def main(argv=None) -> int:
     p = argparse.ArgumentParser(description=__doc__.split("\n")[0])
     p.add_argument("--only", choices=("map", "cli", "line", "sweep", "check"))
     p.add_argument("--old-ref", default="5e8036e", help="git revision of the old path for 'cli' ('' to skip)")
+    p.add_argument("--no-serial", action="store_true", help="sweep: skip the run of this checkout with --executor serial")
     p.add_argument("--old-map-ref", default="e2c8c8a^",
                    help="git revision of the old per-point path for 'map' ('' to skip)")
     a = p.parse_args(argv)
@@ -231,7 +233,7 @@ def main(argv=None) -> int:
         if a.only in (None, name):
             fn()
     if a.only == "sweep":
-        part_cli(sweep_only=True, old_ref=a.old_ref or None)
+        part_cli(sweep_only=True, old_ref=a.old_ref or None, serial=not a.no_serial)
     if a.only == "check":
         part_cli(check_only=True, old_ref=a.old_ref or None)
     return 0
