@@ -8,14 +8,13 @@ from __future__ import annotations
 
 import json
 import os
-import signal
 import subprocess
 import sys
 import textwrap
-import time
 
 import numpy as np
 import pytest
+from _kill_run import kill_mid_run
 
 import phasemap
 from phasemap import Model
@@ -88,28 +87,7 @@ def test_checkpoint_sigkill_restart_identical(tmp_path):
     script = tmp_path / "run.py"
     script.write_text(_SCRIPT)
     ck = tmp_path / "ck"
-    env = dict(os.environ, PYTHONPATH=ROOT)
-    proc = subprocess.Popen([sys.executable, str(script), str(ck), str(sweeps)], env=env,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE)
-    t0 = time.time()
-    killed_mid_run = False
-    while time.time() - t0 < 300:
-        files = list(ck.glob("*.npz")) if ck.exists() else []
-        if files:
-            try:
-                with np.load(files[0]) as z:
-                    done = int(z["meas_done"])
-            except Exception:  # being replaced right now
-                done = 0
-            if 0 < done < sweeps // 2:
-                proc.send_signal(signal.SIGKILL)
-                proc.wait()
-                killed_mid_run = True
-                break
-        if proc.poll() is not None:
-            break
-        time.sleep(0.02)
-    assert killed_mid_run, "the run finished before it could be killed; make it longer"
+    env = kill_mid_run(script, ck, sweeps)
     with np.load(list(ck.glob("*.npz"))[0]) as z:
         resumed_from = int(z["meas_done"])
     assert 0 < resumed_from < sweeps

@@ -10,15 +10,13 @@ run's binning error. Reproducibility and checkpoint/resume: common practice, no 
 from __future__ import annotations
 
 import json
-import os
-import signal
 import subprocess
 import sys
 import textwrap
-import time
 
 import numpy as np
 import pytest
+from _kill_run import kill_mid_run
 
 from _qmc_exact import thermal, torus_bonds
 from phasemap import Model
@@ -26,7 +24,6 @@ from phasemap.model import ConfigError
 from phasemap.qmc import run_qmc
 from phasemap.qmc import run as qrun
 
-ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 TRI9 = ((3, 0), (0, 3))
 K = np.array([2 / 3, 1 / 3])
 
@@ -165,28 +162,7 @@ def test_checkpoint_sigkill_restart_identical_with_exchange(tmp_path):
     script = tmp_path / "run.py"
     script.write_text(_SCRIPT)
     ck = tmp_path / "ck"
-    env = dict(os.environ, PYTHONPATH=ROOT)
-    proc = subprocess.Popen([sys.executable, str(script), str(ck), str(sweeps)], env=env,
-                            stdout=subprocess.PIPE, stderr=subprocess.PIPE)
-    t0 = time.time()
-    killed = False
-    while time.time() - t0 < 300:
-        files = list(ck.glob("*.npz")) if ck.exists() else []
-        if files:
-            try:
-                with np.load(files[0]) as z:
-                    done = int(z["meas_done"])
-            except Exception:  # being replaced right now
-                done = 0
-            if 0 < done < sweeps // 2:
-                proc.send_signal(signal.SIGKILL)
-                proc.wait()
-                killed = True
-                break
-        if proc.poll() is not None:
-            break
-        time.sleep(0.02)
-    assert killed, "the run finished before it could be killed; make it longer"
+    env = kill_mid_run(script, ck, sweeps)
     out = subprocess.run([sys.executable, str(script), str(ck), str(sweeps)], env=env, capture_output=True,
                          text=True, timeout=600)
     assert out.returncode == 0, out.stderr

@@ -23,7 +23,7 @@ from ..model import ConfigError, Model
 from . import kernel
 from .geometry import Graph, torus
 from .stats import Estimate, estimate, vector_estimate
-from .tempering import ladder_points, log_weights, pt_block
+from .tempering import ladder_points, log_weights, positive, pt_block
 
 __all__ = ["run_qmc", "QMCResult", "run_graph", "GROUND_STATE"]
 
@@ -603,13 +603,7 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
 
 
 def _temperature(T) -> float:
-    try:
-        T = float(T)
-    except (TypeError, ValueError):
-        raise ConfigError(f"T: expected a positive number, got {T!r}") from None
-    if not (T > 0 and math.isfinite(T)):
-        raise ConfigError(f"T: temperature must be > 0 and finite, got {T}")
-    return T
+    return positive("T", T, "temperature")
 
 
 def _histogram(x) -> dict:

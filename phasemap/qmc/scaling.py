@@ -29,6 +29,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..model import ConfigError, Model
+from .tempering import positive
 
 __all__ = ["run_many", "job_seed", "weighted_fit", "extrapolate", "classify_extrapolated", "crossings",
            "combine_crossings", "finite_size_scaling", "scan_crossing", "ScalingResult", "CrossingScan",
@@ -128,16 +129,10 @@ def temperature_for(model: Model, L: int, T=None, beta_L=None) -> float:
     """Temperature of size ``L``: ``T`` if given, else ``1 / (beta_L * L)`` (beta grows with L,
     z = 1 quantum scaling; ``beta_L`` in inverse model units per lattice spacing)."""
     if T is not None:
-        T = float(T)
-        if not (T > 0 and math.isfinite(T)):
-            raise ConfigError(f"T: temperature must be > 0 and finite, got {T}")
-        return T
+        return positive("T", T, "temperature")
     if beta_L is None:
         raise ConfigError("T / beta_L: give a temperature T or beta_L (beta = beta_L * L)")
-    beta_L = float(beta_L)
-    if not (beta_L > 0 and math.isfinite(beta_L)):
-        raise ConfigError(f"beta_L: must be > 0 and finite, got {beta_L}")
-    return 1.0 / (beta_L * L)
+    return 1.0 / (positive("beta_L", beta_L) * L)
 
 
 # ----------------------------------------------------------------------------- fits

@@ -105,23 +105,24 @@ def ladder_points(mu: float, beta: float, fixed_T: bool, replicas=1, mu_step=Non
     if T_hot is not None:
         if mu_step is not None:
             raise ConfigError("mu_step/T_hot: give one of them (a mu ladder or a temperature ladder)")
-        T_hot = _positive("T_hot", T_hot)
+        T_hot = positive("T_hot", T_hot)
         if not T_hot * beta > 1:
             raise ConfigError(f"T_hot: must exceed the run's temperature {1 / beta:g}, got {T_hot:g}")
         ratio = (T_hot * beta) ** (1.0 / (replicas - 1))
         return [(float(mu), float(beta) / ratio ** k) for k in range(replicas)], 0
-    step = 1.0 / math.sqrt(beta * n_sites / scale) if mu_step is None else _positive("mu_step", mu_step)
+    step = 1.0 / math.sqrt(beta * n_sites / scale) if mu_step is None else positive("mu_step", mu_step)
     c = (int(replicas) - 1) // 2
     return [(float(mu) + step * (k - c), float(beta)) for k in range(int(replicas))], c
 
 
-def _positive(name, x) -> float:
+def positive(name, x, noun: str = "") -> float:
+    """``float(x)`` for a field that must be > 0 and finite, else a ConfigError naming ``name``."""
     try:
         x = float(x)
     except (TypeError, ValueError):
         raise ConfigError(f"{name}: expected a positive number, got {x!r}") from None
     if not (x > 0 and math.isfinite(x)):
-        raise ConfigError(f"{name}: must be > 0 and finite, got {x}")
+        raise ConfigError(f"{name}: {noun + ' ' if noun else ''}must be > 0 and finite, got {x}")
     return x
 
 
