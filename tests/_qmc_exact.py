@@ -16,6 +16,7 @@ from scipy.special import logsumexp
 
 from phasemap.cmf.threads import blas_threads
 from phasemap.lattice import Supercell
+from phasemap.qmc.stats import Estimate
 
 
 def torus_bonds(lattice, vectors, t, V, V2=0.0):
@@ -42,15 +43,16 @@ def _blocks(N):
     return occ, pop
 
 
-def thermal(N, bonds, mu, T, A=None, sites=None, q=None):
+def thermal(N, bonds, mu, T, A=None, sites=None, q=None, sectors=None):
     """Exact <H>/N, <n>, S(q)/N = <|rho_q|^2>, ln Z and compressibility beta(<Np^2>-<Np>^2)/N.
 
-    ``A``: Cartesian vector potential (twist) applied to the hopping.
+    ``A``: Cartesian vector potential (twist) applied to the hopping. ``sectors``: particle
+    numbers summed over (default all: grand canonical; ``[Np]``: canonical ensemble).
     """
     beta = 1.0 / T
     occ, pop = _blocks(N)
     logw, Es, Ns, Sq = [], [], [], []
-    for Np in range(N + 1):
+    for Np in range(N + 1) if sectors is None else sectors:
         idx = np.nonzero(pop == Np)[0]
         pos = {s: k for k, s in enumerate(idx)}
         dim = len(idx)
@@ -88,11 +90,11 @@ def thermal(N, bonds, mu, T, A=None, sites=None, q=None):
     return out
 
 
-def stiffness(N, bonds, mu, T, direction, h=0.01, F0=None):
+def stiffness(N, bonds, mu, T, direction, h=0.01, F0=None, sectors=None):
     """rho along the unit Cartesian vector ``direction`` (see module notes); central difference
     with step h (relative error ~ h^2 / 12 ~ 1e-5, far below the QMC errors compared with)."""
     e = np.asarray(direction, float) / np.linalg.norm(direction)
-    F = lambda phi: -T * thermal(N, bonds, mu, T, A=phi * e)["lnZ"]  # noqa: E731
+    F = lambda phi: -T * thermal(N, bonds, mu, T, A=phi * e, sectors=sectors)["lnZ"]  # noqa: E731
     F0 = F(0.0) if F0 is None else F0
     return (F(h) + F(-h) - 2 * F0) / (N * h * h)
 
@@ -107,3 +109,31 @@ def free_fermion_chain(L, t, mu, T):
     f = 0.5 * (1 - np.tanh(eps / (2 * T)))
     return {"energy": float(f @ eps / L), "filling": float(f.sum() / L)}
 
+
+def compare(res, lattice, vectors, model, T, keys=("energy", "filling", "compressibility", "sq", "stiffness"),
+            nsig=4.0, sectors=None):
+    """Assert every ``keys`` estimate of the QMC result ``res`` within ``nsig`` of its own sigma of
+    the exact thermal average (``sectors``: canonical, see :func:`thermal`); returns the list
+    ``(name, estimate, exact)``."""
+    cell, bonds = torus_bonds(lattice, vectors, model.t, model.V, model.V2)
+    assert cell.n_sites == res.n_sites
+    K = np.array(cell.lattice.special_q["K"] if "K" in cell.lattice.special_q else cell.lattice.special_q["M"], float)
+    ex = thermal(cell.n_sites, bonds, model.mu, T, sites=cell.sites, q=K, sectors=sectors)
+    out = []
+    for k in ("energy", "filling", "compressibility"):
+        if k in keys:
+            out.append((k, res[k], ex[k]))
+    if "sq" in keys:
+        hit = np.nonzero(np.all(np.abs(np.mod(res.momenta - K + 0.5, 1) - 0.5) < 1e-9, axis=1))[0][0]
+        out.append(("S(K)/N", Estimate(res.sq[hit], res.sq_err[hit], 0.0), ex["sq"]))
+        if "S(K)/N" in res.estimates:
+            out.append(("S(K)/N", res["S(K)/N"], ex["sq"]))
+    if "stiffness" in keys:
+        D = cell.lattice.cartesian(np.array(cell.lattice.nn))
+        for f, name in enumerate(cell.lattice.families):
+            rho = stiffness(cell.n_sites, bonds, model.mu, T, D[f], F0=-T * ex["lnZ"], sectors=sectors)
+            out.append((f"stiffness_{name}", res[f"stiffness_{name}"], rho))
+    for name, e, x in out:
+        assert e.error > 0, name
+        assert abs(e.value - x) < nsig * e.error, f"{name}: qmc {e.value:.6f} ± {e.error:.2g}, exact {x:.6f}"
+    return out

@@ -11,41 +11,14 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from _qmc_exact import free_fermion_chain, stiffness, thermal, torus_bonds
+from _qmc_exact import compare as _compare
+from _qmc_exact import free_fermion_chain, thermal, torus_bonds
 from phasemap import Model
 from phasemap.model import ConfigError
 from phasemap.qmc import open_chain, run_graph, run_qmc
 
 TRI9 = ((3, 0), (0, 3))
 TRI12 = ((2, 2), (-2, 4))
-
-
-def _compare(res, lattice, vectors, model, T, keys=("energy", "filling", "compressibility", "sq", "stiffness"),
-             nsig=4.0):
-    cell, bonds = torus_bonds(lattice, vectors, model.t, model.V, model.V2)
-    assert cell.n_sites == res.n_sites
-    K = np.array(cell.lattice.special_q["K"] if "K" in cell.lattice.special_q else cell.lattice.special_q["M"], float)
-    ex = thermal(cell.n_sites, bonds, model.mu, T, sites=cell.sites, q=K)
-    out = []
-    for k in ("energy", "filling", "compressibility"):
-        if k in keys:
-            out.append((k, res[k], ex[k]))
-    if "sq" in keys:
-        hit = np.nonzero(np.all(np.abs(np.mod(res.momenta - K + 0.5, 1) - 0.5) < 1e-9, axis=1))[0][0]
-        from phasemap.qmc.stats import Estimate
-
-        out.append(("S(K)/N", Estimate(res.sq[hit], res.sq_err[hit], 0.0), ex["sq"]))
-        if "S(K)/N" in res.estimates:
-            out.append(("S(K)/N", res["S(K)/N"], ex["sq"]))
-    if "stiffness" in keys:
-        D = cell.lattice.cartesian(np.array(cell.lattice.nn))
-        for f, name in enumerate(cell.lattice.families):
-            rho = stiffness(cell.n_sites, bonds, model.mu, T, D[f], F0=-T * ex["lnZ"])
-            out.append((f"stiffness_{name}", res[f"stiffness_{name}"], rho))
-    for name, e, x in out:
-        assert e.error > 0, name
-        assert abs(e.value - x) < nsig * e.error, f"{name}: qmc {e.value:.6f} ± {e.error:.2g}, exact {x:.6f}"
-    return out
 
 
 # exact (full diagonalization in the test): isotropic triangular 9-site torus

@@ -23,6 +23,16 @@ so accepting it with min(1, W'/W), ``ln(W'/W) = sum over vertices of lflip[type,
 ``lflip[type, c] = ln(wtab[type, c ^ 15] / wtab[type, c])`` (``-inf`` if the flipped weight
 vanishes), satisfies detailed balance. ``flipc[0]`` counts attempts, ``flipc[1]`` acceptances.
 
+Canonical sampling (``canon``): the directed-loop update satisfies detailed balance loop by loop
+(the reverse loop has the reverse probability), so rejecting every loop whose outcome leaves the
+particle-number sector -- undoing its vertex changes -- samples the same weights restricted to
+that sector (a Metropolis restriction of a reversible kernel). A loop changes the particle number
+only through the world-line segments that cross the string boundary (position 0, the legs
+``first[i]`` / ``last[i]`` of each site): every traversal of such a segment flips its occupation,
+``dn += 2 * (new occupation) - 1``; a bounce traverses it twice and cancels. Sites without
+operators are not flipped (that flip changes N). Common practice in world-line Monte Carlo at
+fixed particle number, no source for this form.
+
 Per-sweep record (``rec[s, :]``): ``n_ops, N_particles, D_i, D_j, |rho_K|^2, |rho_K|^4`` where
 ``D`` is the total particle displacement (lattice coordinates) accumulated by the hopping
 operators around imaginary time, and ``rho_K`` the order parameter averaged over the
@@ -99,9 +109,12 @@ def _randint(s, n):
 @njit(cache=True)
 def sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
           X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, srow, do_measure,
-          lflip, do_flip, flipc):
+          lflip, do_flip, flipc, canon):
     """One Monte Carlo step: diagonal update, linked vertex list, ``nloops`` directed loops and,
     if ``do_flip``, one particle-hole flip attempt (module notes).
+
+    ``canon``: fixed particle number (module notes, "Canonical sampling"): a loop that changes the
+    particle number is undone and sites without operators are never flipped.
 
     Measurements (when ``do_measure``) are taken on the configuration after the diagonal
     update: the per-sweep record goes to ``rec[srow]``, slice-averaged ``|rho_Q|^2`` is added
@@ -232,12 +245,22 @@ def sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
         if first[i] >= 0:
             X[first[i]] = last[i]
             X[last[i]] = first[i]
+    # canonical sampling: legs whose segment crosses the string boundary (position 0), undo buffer
+    cross = np.zeros(4 * n if canon else 0, np.bool_)
+    undo = np.empty(2 * (4 * n + 16) if canon else 0, np.int64)
+    if canon:
+        for i in range(N):
+            if first[i] >= 0:
+                cross[first[i]] = True
+                cross[last[i]] = True
     # ---------------- directed loops ----------------
     visits = 0
     if n > 0:
         for _ in range(nloops):
             j0 = _randint(rng, 4 * n)
             jj = j0
+            nu = 0
+            dn = 0
             while True:
                 kk = jj >> 2
                 li = jj & 3
@@ -249,14 +272,28 @@ def sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
                     if r < cum[ty, c, li, m]:
                         lo = m
                         break
-                vtx[kk] = c ^ (1 << li) ^ (1 << lo)
+                cn = c ^ (1 << li) ^ (1 << lo)
+                if canon:
+                    if nu == undo.shape[0]:
+                        grown = np.empty(2 * nu, np.int64)
+                        grown[:nu] = undo
+                        undo = grown
+                    undo[nu] = kk
+                    undo[nu + 1] = c
+                    nu += 2
+                vtx[kk] = cn
                 visits += 1
                 jj = 4 * kk + lo
                 if jj == j0:
                     break
+                if canon and cross[jj]:  # the segment crossing position 0 flips: N changes by +-1
+                    dn += 2 * ((cn >> lo) & 1) - 1
                 jj = X[jj]
                 if jj == j0:
                     break
+            if dn != 0:  # canonical: restore the vertices in reverse order
+                for m in range(nu - 2, -1, -2):
+                    vtx[undo[m]] = undo[m + 1]
         # map back: operator types and the state at position 0
         for kk in range(n):
             p = opidx[kk]
@@ -270,7 +307,7 @@ def sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
         if first[i] >= 0:
             leg = first[i]
             state[i] = (vtx[leg >> 2] >> (leg & 3)) & 1
-        elif _uniform(rng) < 0.5:
+        elif not canon and _uniform(rng) < 0.5:
             state[i] = 1 - state[i]
     # ---------------- particle-hole flip of the whole configuration ----------------
     if do_flip:
@@ -304,12 +341,13 @@ def _measure_slice(state, cosq, sinq, kidx, sq_acc, nsl, N):
 
 @njit(cache=True)
 def block(nsw, ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
-          X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0, lflip, do_flip, flipc):
+          X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0, lflip, do_flip, flipc,
+          canon=False):
     """``nsw`` measured sweeps; records go to ``rec[row0 : row0 + nsw]``. Returns vertex visits."""
     tot = 0
     for s in range(nsw):
         n, v = sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
                      X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0 + s, True,
-                     lflip, do_flip, flipc)
+                     lflip, do_flip, flipc, canon)
         tot += v
     return tot

@@ -118,6 +118,7 @@ def _chain(job: dict) -> dict:
     sweeps, therm, bins, nslice = job["sweeps"], job["thermalization"], job["bins"], job["slices"]
     N = g.n_sites
     key = _job_hash(job, g)
+    canon = job.get("particles") is not None
     path = job.get("checkpoint")
     interval = job.get("interval", 5.0)
     qr = 2 * np.pi * (g.sites @ g.momenta.T) if len(g.momenta) else np.zeros((N, 0))
@@ -128,7 +129,10 @@ def _chain(job: dict) -> dict:
     if st is None:
         init = np.random.default_rng([int(job["seed"]), int(job["chain"]), 7])
         M0 = max(16, int(1.5 * N))
-        state0 = [init.integers(0, 2, N).astype(np.int64) for _ in range(R)]
+        if canon:  # fixed particle number: a random arrangement of exactly that many particles
+            state0 = [(init.permutation(N) < job["particles"]).astype(np.int64) for _ in range(R)]
+        else:
+            state0 = [init.integers(0, 2, N).astype(np.int64) for _ in range(R)]
         st = {
             "key": np.array(key), "ops": np.full((R, M0), -1, np.int64), "state": np.array(state0),
             "rng": np.array([kernel.seed_state(job["seed"], job["chain"] + 1000003 * r) for r in range(R)]),
@@ -153,7 +157,7 @@ def _chain(job: dict) -> dict:
     else:
         st_swap = st
     flip_therm, flip_meas = st["flip_therm"], st["flip_meas"]  # particle-hole flips: attempts, accepted
-    do_flip = bool(job.get("ph_flip", True))
+    do_flip = bool(job.get("ph_flip", True)) and (not canon or 2 * job["particles"] == N)
     wtab = np.ascontiguousarray([x.wtab for x in ladder])
     cum = np.ascontiguousarray([x.cum for x in ladder])
     lflip = np.ascontiguousarray([kernel.flip_table(x.wtab) for x in ladder])
@@ -181,7 +185,7 @@ def _chain(job: dict) -> dict:
         pt_block(k, ops, state, g.bonds, g.bond_type, g.bond_vec, wtab, cum, betas_now, nloops, rng,
                  X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq, rc, row0, measure,
                  lflip, do_flip, flipc, lw, cnt, tmp, st_swap["swap_rng"], swapc, st_swap["walker"],
-                 st_swap["counter"], nops, visits, smoves if measure else smoves_dummy)
+                 st_swap["counter"], nops, visits, smoves if measure else smoves_dummy, canon)
 
     def checkpoint(force=False):
         nonlocal last_save
@@ -368,7 +372,10 @@ _KEY_ESTIMATES = ("energy", "filling", "S(K)/N", "stiffness")
 _DECORRELATION_KEYS = _KEY_ESTIMATES + ("compressibility",)
 
 
-def analyze(g: Graph, outs: list[dict], beta: float, bins: int) -> tuple[dict, np.ndarray, np.ndarray]:
+def analyze(g: Graph, outs: list[dict], beta: float, bins: int, canonical: bool = False
+            ) -> tuple[dict, np.ndarray, np.ndarray]:
+    """Estimates of the pooled chains; ``canonical`` (fixed particle number): the compressibility is
+    not the N fluctuation of the ensemble (NaN, "not measured")."""
     N = g.n_sites
     basis = np.array([g.lattice.a1, g.lattice.a2])
     series = []
@@ -381,7 +388,8 @@ def analyze(g: Graph, outs: list[dict], beta: float, bins: int) -> tuple[dict, n
     est = {}
     est["energy"] = estimate(series, bins, lambda m: (-m[0] / beta + g.shift) / N)
     est["filling"] = estimate(series, bins, lambda m: m[1] / N)
-    est["compressibility"] = estimate(series, bins, lambda m: beta * (m[2] - m[1] ** 2) / N)
+    est["compressibility"] = (Estimate(math.nan, math.nan, math.nan) if canonical
+                              else estimate(series, bins, lambda m: beta * (m[2] - m[1] ** 2) / N))
     if g.k_index >= 0:
         est["S(K)/N"] = estimate(series, bins, lambda m: m[6])
         est["binder"] = estimate(series, bins, lambda m: m[7] / np.where(m[6] > 0, m[6] ** 2, np.nan))
@@ -417,10 +425,12 @@ def _check_int(name, v, lo):
 
 def run_graph(g: Graph, beta: float, sweeps: int = 10000, thermalization: int | None = None, bins: int = 32,
               seed: int = 0, chains: int = 1, checkpoint: str | None = None, workers: int | None = None,
-              slices: int = 4, checkpoint_interval: float = 5.0, ph_flip: bool = True, ladder=None):
+              slices: int = 4, checkpoint_interval: float = 5.0, ph_flip: bool = True, ladder=None,
+              particles: int | None = None):
     """Run ``chains`` chains on a prepared :class:`~phasemap.qmc.geometry.Graph` at inverse
     temperature ``beta`` (``ph_flip``: attempt one particle-hole flip per sweep, see
-    ``kernel``). ``ladder``: ``[(graph, beta), ...]``, the same torus at several (mu, beta) with
+    ``kernel``). ``particles``: sample at this fixed particle number (``kernel``, "Canonical
+    sampling"; the flip only when it keeps N, i.e. ``2 particles = N_sites``). ``ladder``: ``[(graph, beta), ...]``, the same torus at several (mu, beta) with
     ``(g, beta)`` among them, for replica exchange (``phasemap.qmc.tempering``); the estimates are
     those of ``(g, beta)``.
     Returns ``(estimates, sq, sq_err, outs)``."""
@@ -431,9 +441,17 @@ def run_graph(g: Graph, beta: float, sweeps: int = 10000, thermalization: int | 
     if sweeps < bins:
         raise ConfigError(f"sweeps: need at least one sweep per bin (sweeps >= bins = {bins}), got {sweeps}")
     thermalization = max(sweeps // 5, 100) if thermalization is None else _check_int("thermalization", thermalization, 0)
+    extra = {}
+    if particles is not None:
+        particles = _check_int("fixed_filling (particles)", particles, 0)
+        if particles > g.n_sites:
+            raise ConfigError(f"fixed_filling: {particles} particles do not fit on {g.n_sites} sites")
+        if ladder is not None and len(ladder) > 1:
+            raise ConfigError("fixed_filling: replica exchange (replicas > 1) works in the grand-canonical "
+                              "ensemble only; run at fixed particle number without replicas")
+        extra["particles"] = particles
     if checkpoint is not None:
         os.makedirs(checkpoint, exist_ok=True)
-    extra = {}
     if ladder is not None and len(ladder) > 1:
         hit = [k for k, (x, b) in enumerate(ladder) if x is g and b == beta]
         if len(hit) != 1:
@@ -452,10 +470,11 @@ def run_graph(g: Graph, beta: float, sweeps: int = 10000, thermalization: int | 
                      "ph_flip": bool(ph_flip), **extra,
                      "checkpoint": None if checkpoint is None else os.path.join(
                          checkpoint, f"{g.name}_beta{beta:.6g}_seed{seed}_chain{c}"
-                         + (f"_rx{len(ladder)}" if extra else "") + ".npz")})
+                         + (f"_rx{len(ladder)}" if "ladder" in extra else "")
+                         + (f"_N{particles}" if particles is not None else "") + ".npz")})
     workers = min(chains, os.cpu_count() or 1) if workers is None else max(1, int(workers))
     outs = _run_chains(jobs, workers)
-    est, sq, sq_err = analyze(g, outs, beta, bins)
+    est, sq, sq_err = analyze(g, outs, beta, bins, canonical=particles is not None)
     return est, sq, sq_err, outs
 
 
@@ -465,7 +484,7 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
             epsilon: float | None = None, checkpoint_interval: float = 5.0,
             beta0: float | None = None, beta_max: float | None = None, ph_flip: bool = True,
             replicas: int = 1, mu_step: float | None = None, T_hot: float | None = None, mu_ladder=None,
-            T_ladder=None) -> QMCResult:
+            T_ladder=None, fixed_filling: float | None = None) -> QMCResult:
     r"""Stochastic series expansion QMC of hard-core bosons on a periodic torus.
 
     Parameters
@@ -514,6 +533,13 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
         of the run's (mu, T); ``info["replicas"]`` has every replica's energy, filling,
         compressibility and S(K)/N, ``info["swap_acceptance"]`` the acceptance per neighbouring
         pair. Default ``replicas=1`` (off): every replica costs about one chain.
+    fixed_filling : float, optional
+        Sample at the fixed particle number ``floor(fixed_filling * N_sites + 1/2)`` (canonical
+        ensemble; ``mu`` then only shifts the energy by ``-mu N``): loops that would change N are
+        undone (``kernel``, "Canonical sampling"). For the half-filled triangular lattice this is
+        the ensemble of ``mu = 3V`` (particle-hole symmetry) without the slow motion of the
+        grand-canonical chains between particle-number sectors (docs/qmc.md). The filling is then
+        exact (error 0) and the compressibility is not measured (NaN). Not with replica exchange.
 
     Returns
     -------
@@ -531,15 +557,19 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
     rx = dict(replicas=replicas, mu_step=mu_step, T_hot=T_hot, mu_ladder=mu_ladder, T_ladder=T_ladder)
     ladder_points(model.mu, 1.0 if T is None else 1.0 / _temperature(T), T is not None, n_sites=g.n_sites,
                   scale=scale, **rx)  # refuse bad ladders before any sampling
+    particles = fixed_particles(fixed_filling, g.n_sites)
     kw = dict(sweeps=sweeps, thermalization=thermalization, bins=bins, seed=seed, chains=chains,
               checkpoint=checkpoint, workers=workers, slices=slices, checkpoint_interval=checkpoint_interval,
-              ph_flip=ph_flip)
+              ph_flip=ph_flip, particles=particles)
     flags = []
+    if particles is not None:
+        flags.append(f"fixed particle number N = {particles} (canonical; compressibility not measured)")
     if g.k_index < 0 and model.lattice == "triangular":
         flags.append("no-K-point (torus not sqrt3 x sqrt3 compatible: no S(K)/N, no Binder ratio)")
     info = {"shift_per_type": {ty["name"]: ty["C"] for ty in g.types},
             "bounce_max": [ti["bounce"] for ti in g.table_info],
-            "heat_bath_sets": [ti["heat_bath"] for ti in g.table_info], "n_bonds": int(len(g.bonds))}
+            "heat_bath_sets": [ti["heat_bath"] for ti in g.table_info], "n_bonds": int(len(g.bonds)),
+            "fixed_particles": particles}
     if T is not None:
         T = _temperature(T)
         beta = 1.0 / T
@@ -600,6 +630,20 @@ def run_qmc(model: Model, cluster=None, size=None, T: float | None = None, sweep
                      decorrelated=not bad and not cut, flags=flags, sweeps=int(sweeps), thermalization=int(outs[0]["thermalization"]),
                      bins=int(bins), chains=int(chains), seed=int(seed), betas=betas, vectors=g.cell.vectors.tolist(),
                      info=info)
+
+
+def fixed_particles(fixed_filling, n_sites: int) -> int | None:
+    """Particle number of a run at ``fixed_filling`` (None: grand canonical): the nearest integer
+    to ``fixed_filling * n_sites``, halves rounded up (9x9 at 1/2: 41 particles)."""
+    if fixed_filling is None:
+        return None
+    try:
+        f = float(fixed_filling)
+    except (TypeError, ValueError):
+        raise ConfigError(f"fixed_filling: expected a number in [0, 1], got {fixed_filling!r}") from None
+    if isinstance(fixed_filling, bool) or not (0.0 <= f <= 1.0):
+        raise ConfigError(f"fixed_filling: expected a number in [0, 1], got {fixed_filling!r}")
+    return int(math.floor(f * n_sites + 0.5))
 
 
 def _temperature(T) -> float:

@@ -219,7 +219,7 @@ def _count(x):
 @njit(cache=True)
 def pt_block(nsw, ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
              X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0, do_measure,
-             lflip, do_flip, flipc, lw, cnt, tmp, swap_rng, swapc, walker, counter, nops, visits, smoves):
+             lflip, do_flip, flipc, lw, cnt, tmp, swap_rng, swapc, walker, counter, nops, visits, smoves, canon=False):
     """``nsw`` sweeps of every replica, each followed by one round of exchange attempts.
 
     Stacked per slot (leading axis R): ops, state, wtab, cum, beta, nloops, rng, sq_acc, rec, lflip,
@@ -236,7 +236,7 @@ def pt_block(nsw, ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
             d0 = abs(2 * _count(state[r]) - state.shape[1])
             n, v = sweep(ops[r], state[r], bsite, btype, bvec, wtab[r], cum[r], beta[r], nloops[r], rng[r],
                          X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc[r], rec[r],
-                         row0 + s, do_measure, lflip[r], do_flip, flipc[r])
+                         row0 + s, do_measure, lflip[r], do_flip, flipc[r], canon)
             nops[r] = n
             visits[r] += v
             if abs(2 * _count(state[r]) - state.shape[1]) != d0:
