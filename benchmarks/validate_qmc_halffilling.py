@@ -59,6 +59,9 @@ def main(argv=None) -> int:
                    help="replica exchange: replicas per chain (default 1 = off; docs/qmc.md, Replica exchange)")
     p.add_argument("--mu-step", type=float, default=None, dest="mu_step", help="mu ladder spacing (default: run_qmc)")
     p.add_argument("--T-hot", type=float, default=None, dest="T_hot", help="temperature ladder up to T_HOT instead")
+    p.add_argument("--fixed-filling", type=float, default=None, dest="fixed_filling",
+                   help="sample at the fixed particle number nearest FILLING x sites (0.5: half filling; "
+                        "docs/qmc.md, Fixed particle number)")
     a = p.parse_args(argv)
     _, tv = parse_scan(f"t={a.t}")
     m = Model("triangular", t=float(tv[0]), V=1.0, mu=3.0)
@@ -68,7 +71,8 @@ def main(argv=None) -> int:
         scan = scan_crossing(m, "t", tv, sizes=a.sizes, beta_L=a.beta_L, sweeps=a.sweeps, bins=a.bins, seed=a.seed,
                              workers=a.workers, thermalization=a.thermalization, chains=a.chains,
                              run_options={"checkpoint": ckpt, "checkpoint_interval": 30.0,
-                                          "replicas": a.replicas, "mu_step": a.mu_step, "T_hot": a.T_hot})
+                                          "replicas": a.replicas, "mu_step": a.mu_step, "T_hot": a.T_hot,
+                                          "fixed_filling": a.fixed_filling})
         wall = time.perf_counter() - t0
         c1 = os.times()
         cpu = (c1.children_user + c1.children_system + c1.user + c1.system

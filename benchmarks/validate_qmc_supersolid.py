@@ -50,6 +50,9 @@ def main(argv=None) -> int:
                    help="replica exchange: replicas per chain (default 1 = off; docs/qmc.md, Replica exchange)")
     p.add_argument("--mu-step", type=float, default=None, dest="mu_step", help="mu ladder spacing (default: run_qmc)")
     p.add_argument("--T-hot", type=float, default=None, dest="T_hot", help="temperature ladder up to T_HOT instead")
+    p.add_argument("--fixed-filling", type=float, default=None, dest="fixed_filling",
+                   help="sample at the fixed particle number nearest FILLING x sites (0.5: half filling; "
+                        "docs/qmc.md, Fixed particle number)")
     a = p.parse_args(argv)
     m = Model("triangular", t=a.t, V=1.0, mu=3.0)
     t0, c0 = time.perf_counter(), os.times()
@@ -57,7 +60,8 @@ def main(argv=None) -> int:
         res = finite_size_scaling(m, sizes=a.sizes, beta_L=a.beta_L, sweeps=a.sweeps, thermalization=a.thermalization,
                                   bins=a.bins, chains=a.chains, seed=a.seed, workers=a.workers,
                                   run_options={"checkpoint": os.path.join(a.out, "chains"), "checkpoint_interval": 30.0,
-                                               "replicas": a.replicas, "mu_step": a.mu_step, "T_hot": a.T_hot})
+                                               "replicas": a.replicas, "mu_step": a.mu_step, "T_hot": a.T_hot,
+                                          "fixed_filling": a.fixed_filling})
         wall = time.perf_counter() - t0
         c1 = os.times()
         cpu = (c1.children_user + c1.children_system + c1.user + c1.system

@@ -82,3 +82,20 @@ def test_fixed_filling_refuses_replicas():
     m = Model("triangular", t=0.2, V=1.0, mu=3.0)
     with pytest.raises(ConfigError, match="fixed_filling"):
         run_qmc(m, cluster="tri9", T=0.5, sweeps=100, bins=4, fixed_filling=0.5, replicas=3)
+
+
+def test_cli_point_fixed_filling():
+    import json
+    import os
+    import subprocess
+    import sys
+
+    env = dict(os.environ, PYTHONPATH=os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+    cmd = [sys.executable, "-m", "phasemap", "point", "--t", "0.1", "--V", "1", "--hardcore", "--mu", "3",
+           "--method", "qmc:tri12", "--T", "0.3", "--sweeps", "1000", "--seed", "3", "--json"]
+    out = subprocess.run(cmd + ["--fixed-filling", "0.5"], capture_output=True, text=True, env=env, timeout=600)
+    assert out.returncode == 0, out.stderr
+    d = json.loads(out.stdout)
+    assert d["filling"] == 0.5 and d["extra"]["info"]["fixed_particles"] == 6
+    bad = subprocess.run(cmd + ["--fixed-filling", "2"], capture_output=True, text=True, env=env, timeout=600)
+    assert bad.returncode != 0 and "fixed_filling" in bad.stderr and "[0, 1]" in bad.stderr

@@ -158,12 +158,17 @@ def number_list(text: str) -> list:
     return [finite_float(p) for p in parts]
 
 
-#: replica-exchange options of the qmc method (phasemap.qmc.tempering), argparse dest = option name
-REPLICA_OPTIONS = ("replicas", "mu_step", "T_hot", "mu_ladder", "T_ladder")
+#: sampler options of the qmc method: replica exchange (phasemap.qmc.tempering) and the fixed particle
+#: number (canonical sampling), argparse dest = option name
+SAMPLER_OPTIONS = ("replicas", "mu_step", "T_hot", "mu_ladder", "T_ladder", "fixed_filling")
 
 
-def add_replica_options(g, ladders: bool = True) -> None:
-    """--replicas, --mu-step, --T-hot (and the explicit --mu-ladder, --T-ladder) of qmc."""
+def add_sampler_options(g, ladders: bool = True) -> None:
+    """--fixed-filling, --replicas, --mu-step, --T-hot (and the explicit --mu-ladder, --T-ladder) of qmc."""
+    g.add_argument("--fixed-filling", type=finite_float, default=None, dest="fixed_filling", metavar="FILLING",
+                   help="qmc: sample at the fixed particle number nearest to FILLING x sites (canonical ensemble; "
+                        "e.g. 0.5 for the half-filled lattice, where grand-canonical chains move slowly between "
+                        "particle numbers); mu then only shifts the energy")
     g.add_argument("--replicas", type=positive_int, default=None,
                    help="qmc: replica exchange with this many replicas per chain, at mu + MU_STEP (k - (R-1)//2) "
                         "(or, with --T-hot, at temperatures from T to T_HOT); default 1 = off (docs/qmc.md)")

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from ._common import (REPLICA_OPTIONS, add_method_option, add_model_options, add_replica_options, dumps_json,
+from ._common import (SAMPLER_OPTIONS, add_method_option, add_model_options, add_sampler_options, dumps_json,
                       model_from_args, resolve_method)
 
 __all__ = ["register"]
@@ -44,7 +44,7 @@ def register(sub) -> None:
     g.add_argument("--seed", type=int, default=None, help="random seed (same seed, same numbers)")
     g.add_argument("--chains", type=int, default=None, help="independent chains, run in parallel processes")
     g.add_argument("--checkpoint", default=None, metavar="DIR", help="folder for resumable chain checkpoints")
-    add_replica_options(g)
+    add_sampler_options(g)
     p.set_defaults(func=run)
 
 
@@ -75,7 +75,7 @@ def run(args) -> int:
     caps = impl.capabilities
     for flag, allowed in (("sweeps", caps.error_bars), ("thermalization", caps.error_bars),
                           ("bins", caps.error_bars), ("seed", caps.error_bars), ("chains", caps.error_bars),
-                          ("checkpoint", caps.error_bars)) + tuple((k, caps.error_bars) for k in REPLICA_OPTIONS):
+                          ("checkpoint", caps.error_bars)) + tuple((k, caps.error_bars) for k in SAMPLER_OPTIONS):
         value = getattr(args, flag)
         if value is None:
             continue

@@ -17,7 +17,7 @@ import argparse
 import sys
 
 from ..model import ConfigError
-from ._common import add_model_options, add_replica_options, finite_float, model_from_args, positive_int
+from ._common import add_model_options, add_sampler_options, finite_float, model_from_args, positive_int
 
 __all__ = ["register", "run"]
 
@@ -48,7 +48,7 @@ def register(subparsers) -> None:
     r.add_argument("--chains", type=positive_int, default=1, help="independent chains per run (default 1)")
     r.add_argument("--seed", type=int, default=0, help="seed (same seed, same numbers)")
     r.add_argument("--workers", type=positive_int, default=None, help="processes (default: cores)")
-    add_replica_options(r, ladders=False)
+    add_sampler_options(r, ladders=False)
     o = p.add_argument_group("output")
     o.add_argument("--out", default=None, help="folder: scaling.json/.csv (or crossing.*), figure .png/.pdf")
     o.add_argument("--json", action="store_true", help="print the result as JSON")
@@ -58,9 +58,10 @@ def register(subparsers) -> None:
     p.set_defaults(func=run)
 
 
-def replica_options(args) -> dict:
-    """--replicas/--mu-step/--T-hot as run_qmc options (empty without replica exchange)."""
-    return {k: getattr(args, k) for k in ("replicas", "mu_step", "T_hot") if getattr(args, k, None) is not None}
+def sampler_options(args) -> dict:
+    """--replicas/--mu-step/--T-hot/--fixed-filling as run_qmc options (empty for the default sampler)."""
+    return {k: getattr(args, k) for k in ("replicas", "mu_step", "T_hot", "fixed_filling")
+            if getattr(args, k, None) is not None}
 
 
 def parse_scan(text: str):
@@ -99,8 +100,8 @@ def _checkpoint(args, model, sizes, kw):
 
     params = {"model": model.to_dict(), "sizes": list(sizes), "scan": args.scan, "version": __version__,
               "runs": {k: kw[k] for k in ("T", "beta_L", "sweeps", "thermalization", "bins", "chains", "seed")}}
-    rx = replica_options(args)
-    if rx:  # runs with replica exchange are other runs (older checkpoints without it stay valid)
+    rx = sampler_options(args)
+    if rx:  # runs with replica exchange or a fixed filling are other runs (older checkpoints stay valid)
         params["runs"]["replica_exchange"] = rx
     ck = job_checkpoint(os.path.join(args.out, CHECKPOINT_DIR, "qmc"), params, args.resume, args.restart)
     if ck.chunks():
@@ -144,7 +145,7 @@ def run(args) -> int:
             stack.callback(close_executor, ex)
         ck = _checkpoint(args, model, sizes, kw) if args.out else None
         run_kw = dict(kw, executor=ex, checkpoint=ck, progress=not (args.quiet or args.json),
-                      run_options=replica_options(args) or None)
+                      run_options=sampler_options(args) or None)
         if scan is None:
             res = finite_size_scaling(model, power=args.power, **run_kw)
             stem, table = "scaling", res.table()
@@ -161,7 +162,7 @@ def run(args) -> int:
                         table.setdefault(f"{name}_error", []).append(float(e[a, b]))
         data = res.to_dict()
         meta = provenance(model, method="qmc", options={**{k: v for k, v in kw.items() if k != "sizes"},
-                                                        **replica_options(args)},
+                                                        **sampler_options(args)},
                           command="qmc-scaling", sizes=sizes, scan=args.scan)
         if args.out:
             out = Path(args.out)

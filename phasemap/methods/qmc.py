@@ -43,6 +43,7 @@ class QMCOptions:
     T_hot: float | None = None
     mu_ladder: object = None
     T_ladder: object = None
+    fixed_filling: float | None = None
     thresholds: object = None
 
 
