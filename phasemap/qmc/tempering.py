@@ -32,10 +32,9 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit
 
 from ..model import ConfigError
-from .kernel import _uniform, sweep
+from .kernel import pt_block, swap_step  # compiled beside kernel.sweep (numba cache, see kernel)
 
 __all__ = ["ladder_points", "log_weights", "pt_block", "swap_step"]
 
@@ -133,114 +132,3 @@ def log_weights(wtab: np.ndarray) -> np.ndarray:
     ok = w > 0
     out[ok] = np.log(w[ok])
     return out
-
-
-@njit(cache=True)
-def _diag_counts(ops, state, bsite, btype, cnt, tmp):
-    """cnt[type, code] = number of diagonal vertices of each code in (ops, state)."""
-    cnt[:, :] = 0
-    for i in range(state.shape[0]):
-        tmp[i] = state[i]
-    for p in range(ops.shape[0]):
-        op = ops[p]
-        if op < 0:
-            continue
-        b = op >> 1
-        i = bsite[b, 0]
-        j = bsite[b, 1]
-        if op & 1:
-            tmp[i] = 1 - tmp[i]
-            tmp[j] = 1 - tmp[j]
-        else:
-            cnt[btype[b], tmp[i] * 5 + tmp[j] * 10] += 1
-
-
-@njit(cache=True)
-def _swap_log_ratio(cnt_a, cnt_b, lw_a, lw_b):
-    lr = 0.0
-    for ty in range(cnt_a.shape[0]):
-        for c in (0, 5, 10, 15):
-            na = cnt_a[ty, c]
-            nb = cnt_b[ty, c]
-            if na > 0:
-                if lw_b[ty, c] == -np.inf:
-                    return -np.inf
-                lr += na * (lw_b[ty, c] - lw_a[ty, c])
-            if nb > 0:
-                if lw_a[ty, c] == -np.inf:
-                    return -np.inf
-                lr += nb * (lw_a[ty, c] - lw_b[ty, c])
-    return lr
-
-
-@njit(cache=True)
-def swap_step(parity, ops, state, walker, bsite, btype, lw, lbeta, nops, cnt, tmp, rng, swapc):
-    """Exchange attempts between slots (a, a+1), a = parity, parity + 2, ... (module notes).
-    ``lbeta[r] = ln beta_r``, ``nops[r]`` the operator count of the configuration in slot r.
-    ``swapc[a, 0]`` counts attempts of pair a, ``swapc[a, 1]`` acceptances."""
-    R = ops.shape[0]
-    for r in range(R):
-        _diag_counts(ops[r], state[r], bsite, btype, cnt[r], tmp)
-    for a in range(parity, R - 1, 2):
-        b = a + 1
-        lr = _swap_log_ratio(cnt[a], cnt[b], lw[a], lw[b])
-        if lbeta[a] != lbeta[b]:
-            lr += (nops[b] - nops[a]) * (lbeta[a] - lbeta[b])
-        swapc[a, 0] += 1
-        accept = lr >= 0.0
-        if not accept and lr > -np.inf:
-            accept = _uniform(rng) < np.exp(lr)
-        if accept:
-            swapc[a, 1] += 1
-            for p in range(ops.shape[1]):
-                x = ops[a, p]
-                ops[a, p] = ops[b, p]
-                ops[b, p] = x
-            for i in range(state.shape[1]):
-                x = state[a, i]
-                state[a, i] = state[b, i]
-                state[b, i] = x
-            w = walker[a]
-            walker[a] = walker[b]
-            walker[b] = w
-            w = nops[a]
-            nops[a] = nops[b]
-            nops[b] = w
-
-
-@njit(inline="always")
-def _count(x):
-    c = 0
-    for i in range(x.shape[0]):
-        c += x[i]
-    return c
-
-
-@njit(cache=True)
-def pt_block(nsw, ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
-             X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc, rec, row0, do_measure,
-             lflip, do_flip, flipc, lw, cnt, tmp, swap_rng, swapc, walker, counter, nops, visits, smoves, canon=False):
-    """``nsw`` sweeps of every replica, each followed by one round of exchange attempts.
-
-    Stacked per slot (leading axis R): ops, state, wtab, cum, beta, nloops, rng, sq_acc, rec, lflip,
-    flipc, lw, cnt. ``counter[0]`` (sweeps done, decides the parity of the pairs) is advanced.
-    ``nops[r]`` gets the operator count of slot r after its last sweep, ``visits[r]`` is
-    incremented by its vertex visits, ``smoves[r]`` by one for every sweep of slot r that changed
-    ``|N - N_sites / 2|`` (a move between particle-number sectors by the loops; the particle-hole
-    flip and the exchanges never do). Measurements (``do_measure``) go to ``rec[r, row0 + s]``.
-    """
-    R = ops.shape[0]
-    lbeta = np.log(beta)
-    for s in range(nsw):
-        for r in range(R):
-            d0 = abs(2 * _count(state[r]) - state.shape[1])
-            n, v = sweep(ops[r], state[r], bsite, btype, bvec, wtab[r], cum[r], beta[r], nloops[r], rng[r],
-                         X, vtx, vty, opidx, first, last, cosq, sinq, kidx, nslice, sq_acc[r], rec[r],
-                         row0 + s, do_measure, lflip[r], do_flip, flipc[r], canon)
-            nops[r] = n
-            visits[r] += v
-            if abs(2 * _count(state[r]) - state.shape[1]) != d0:
-                smoves[r] += 1
-        if R > 1:
-            swap_step(counter[0] % 2, ops, state, walker, bsite, btype, lw, lbeta, nops, cnt, tmp, swap_rng, swapc)
-        counter[0] += 1
