@@ -247,7 +247,8 @@ def sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
             X[last[i]] = first[i]
     # canonical sampling: legs whose segment crosses the string boundary (position 0), undo buffer
     cross = np.zeros(4 * n if canon else 0, np.bool_)
-    undo = np.empty(2 * (4 * n + 16) if canon else 0, np.int64)
+    undo = np.empty(2 * n if canon else 0, np.int64)  # (vertex, code before the loop), first visits only
+    seen = np.full(n if canon else 0, -1, np.int64)  # loop that last saved this vertex
     if canon:
         for i in range(N):
             if first[i] >= 0:
@@ -256,7 +257,7 @@ def sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
     # ---------------- directed loops ----------------
     visits = 0
     if n > 0:
-        for _ in range(nloops):
+        for iloop in range(nloops):
             j0 = _randint(rng, 4 * n)
             jj = j0
             nu = 0
@@ -273,11 +274,8 @@ def sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
                         lo = m
                         break
                 cn = c ^ (1 << li) ^ (1 << lo)
-                if canon:
-                    if nu == undo.shape[0]:
-                        grown = np.empty(2 * nu, np.int64)
-                        grown[:nu] = undo
-                        undo = grown
+                if canon and seen[kk] != iloop:  # a loop can pass a vertex many times: keep its first code
+                    seen[kk] = iloop
                     undo[nu] = kk
                     undo[nu + 1] = c
                     nu += 2
@@ -291,8 +289,8 @@ def sweep(ops, state, bsite, btype, bvec, wtab, cum, beta, nloops, rng,
                 jj = X[jj]
                 if jj == j0:
                     break
-            if dn != 0:  # canonical: restore the vertices in reverse order
-                for m in range(nu - 2, -1, -2):
+            if dn != 0:  # canonical: restore every vertex the loop touched
+                for m in range(0, nu, 2):
                     vtx[undo[m]] = undo[m + 1]
         # map back: operator types and the state at position 0
         for kk in range(n):
