@@ -59,10 +59,15 @@ def main(argv=None) -> int:
                    help="replica exchange: replicas per chain (default 1 = off; docs/qmc.md, Replica exchange)")
     p.add_argument("--mu-step", type=float, default=None, dest="mu_step", help="mu ladder spacing (default: run_qmc)")
     p.add_argument("--T-hot", type=float, default=None, dest="T_hot", help="temperature ladder up to T_HOT instead")
-    p.add_argument("--fixed-filling", type=float, default=None, dest="fixed_filling",
-                   help="sample at the fixed particle number nearest FILLING x sites (0.5: half filling; "
-                        "docs/qmc.md, Fixed particle number)")
+    p.add_argument("--fixed-filling", type=float, default=0.5, dest="fixed_filling",
+                   help="sample at the fixed particle number nearest FILLING x sites (default 0.5: half filling, "
+                        "the ensemble of mu = 3V; docs/qmc.md, Fixed particle number)")
+    p.add_argument("--grand-canonical", action="store_true", dest="grand_canonical",
+                   help="sample the particle number at mu = 3V instead (slow between |N - N_sites/2| sectors "
+                        "at these temperatures, docs/qmc.md)")
     a = p.parse_args(argv)
+    if a.grand_canonical:
+        a.fixed_filling = None
     _, tv = parse_scan(f"t={a.t}")
     m = Model("triangular", t=float(tv[0]), V=1.0, mu=3.0)
     t0, c0 = time.perf_counter(), os.times()

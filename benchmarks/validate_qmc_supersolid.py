@@ -5,16 +5,16 @@ Reference: supersolid for t/V below ≈ 0.112 at half filling (S. Wessel and M. 
 127205 (2005); D. Heidarian and K. Damle, PRL 95, 127206 (2005); from memory).
 
 Too long for the slow test suite: in the supersolid the integrated autocorrelation time of S(K)/N
-is ~160 sweeps on 6x6, ~430 on 9x9 and 1000-1500 on 12x12 (measured, docs/qmc.md), and a run is
+is ~160 sweeps on 6x6, ~640 on 9x9 and ~380 on 12x12 (measured, docs/qmc.md), and a run is
 decorrelated only if every bin holds more than 8 tau_int (docs/qmc.md, Errors), so each size
-needs tens of thousands of sweeps. The particle-hole flip joins the sectors N and N_sites - N, but
-the loops do not move the particle number between |N - N_sites/2| sectors at these temperatures:
-two 12x12 chains in different sectors are flagged (compressibility), see docs/qmc.md. Temperature: beta V = BETA_L * L (z = 1, fixed aspect
-ratio; BETA_L = 10 gives beta t = 0.8 L at t/V = 0.08), so the fits a + b/L approach T = 0 and
-L = infinity together.
+needs ~10^5 sweeps. The runs sample the fixed particle number N = N_sites/2 (9x9: 41), the
+ensemble of mu = 3V (particle-hole symmetry); grand-canonical loops do not move N between
+|N - N_sites/2| sectors at these temperatures (``--grand-canonical``, docs/qmc.md). Temperature:
+beta V = BETA_L * L (z = 1, fixed aspect ratio; BETA_L = 10 gives beta t = 0.8 L at t/V = 0.08),
+so the fits a + b/L approach T = 0 and L = infinity together.
 
-    nice -n 10 python benchmarks/validate_qmc_supersolid.py --sizes 6,9,12 --beta-L 10 \\
-        --sweeps 64000 --bins 8 --chains 2 --workers 2 --out validate-ss   # wall 17 min at load 7-9 (docs/qmc.md)
+    python benchmarks/validate_qmc_supersolid.py --sizes 6,9,12 --beta-L 10 \\
+        --sweeps 128000 --bins 8 --chains 2 --workers 2 --out validate-ss   # ~27 min of chain time at load 4-6
 
 Every chain checkpoints into OUT/chains: killed and restarted with the same arguments, the script
 resumes where it stopped. Exit code 0 if the phase is "supersolid", 1 otherwise.
@@ -50,10 +50,15 @@ def main(argv=None) -> int:
                    help="replica exchange: replicas per chain (default 1 = off; docs/qmc.md, Replica exchange)")
     p.add_argument("--mu-step", type=float, default=None, dest="mu_step", help="mu ladder spacing (default: run_qmc)")
     p.add_argument("--T-hot", type=float, default=None, dest="T_hot", help="temperature ladder up to T_HOT instead")
-    p.add_argument("--fixed-filling", type=float, default=None, dest="fixed_filling",
-                   help="sample at the fixed particle number nearest FILLING x sites (0.5: half filling; "
-                        "docs/qmc.md, Fixed particle number)")
+    p.add_argument("--fixed-filling", type=float, default=0.5, dest="fixed_filling",
+                   help="sample at the fixed particle number nearest FILLING x sites (default 0.5: half filling, "
+                        "the ensemble of mu = 3V; docs/qmc.md, Fixed particle number)")
+    p.add_argument("--grand-canonical", action="store_true", dest="grand_canonical",
+                   help="sample the particle number at mu = 3V instead (slow between |N - N_sites/2| sectors "
+                        "at these temperatures, docs/qmc.md)")
     a = p.parse_args(argv)
+    if a.grand_canonical:
+        a.fixed_filling = None
     m = Model("triangular", t=a.t, V=1.0, mu=3.0)
     t0, c0 = time.perf_counter(), os.times()
     with output_lock(a.out):
