@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 from matplotlib.figure import Figure
+from matplotlib.ticker import FormatStrFormatter, MaxNLocator
 
 from ..plot import STYLE, WIDTHS
 
@@ -65,6 +66,8 @@ def plot_crossing(scan) -> Figure:
                 ax.axvspan(c["value"] - c["stat_error"], c["value"] + c["stat_error"], color="0.85", lw=0)
         ax.set_xlabel(scan.axis)
         ax.set_ylabel(lab)
+        ax.xaxis.set_major_locator(MaxNLocator(5))  # scan values like 0.1025 would overlap
+        ax.xaxis.set_major_formatter(FormatStrFormatter("%.3g"))
         ax.legend(frameon=False)
-    fig.suptitle(scan.model.describe(), fontsize=7)
+    fig.suptitle(f"{scan.model.describe()}; {scan.axis} scanned, runs not decorrelated left out", fontsize=7)
     return fig
