@@ -56,10 +56,10 @@ m = Model("triangular", t=0.6, V=(10.0, 10.0, 8.5), mu=0.0, unit="K")
 batch, _ = grid(m, {"t": np.linspace(0, 0.4, n), "mu": np.linspace(-1, 7, n)}, relative=True)
 solve_cmf_batch(batch.take(np.arange(4)), cluster="tri3")  # operators, imports
 sub = batch.take(np.sort(np.random.default_rng(0).choice(batch.size, sample, replace=False)))
-t0 = time.perf_counter()
+t0, c0 = time.perf_counter(), time.process_time()
 r = solve_cmf_batch(sub, cluster="tri3")
 assert phasemap.__file__.startswith(os.environ["PYTHONPATH"]), phasemap.__file__  # the old tree, not this checkout
-print(time.perf_counter() - t0)
+print(time.perf_counter() - t0, time.process_time() - c0)
 """
 
 
@@ -105,10 +105,11 @@ def part_map(n: int = 100, sample: int = 100, old_ref: str | None = "e2c8c8a^") 
         if out.returncode:
             print(f"[map] per-point path of {old_ref}: FAILED\n{out.stderr[-2000:]}")
         else:
-            to = float(out.stdout.split()[-1])
+            to, co = map(float, out.stdout.split()[-2:])
             print(f"[map] per-point path of {old_ref} (before the batched engine): {sample} sampled points in "
-                  f"{to:.2f} s = {1e3 * to / sample:.1f} ms/point; speed-up per point "
-                  f"{to / sample / (tb / batch.size):.0f}x; {load()}")
+                  f"{to:.2f} s = {1e3 * to / sample:.1f} ms/point ({co:.2f} s CPU); speed-up per point "
+                  f"{to / sample / (tb / batch.size):.0f}x (wall; CPU per point {co / sample / (cb / batch.size):.0f}x); "
+                  f"{load()}")
     kb, okb, _, phb, _, _ = select_winners(rb)
     kp, okp, _, php, _, _ = select_winners(rp)
     eb = rb.energy[idx, kb[idx]]
