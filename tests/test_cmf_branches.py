@@ -100,3 +100,25 @@ def test_bad_branch_every_is_a_config_error(bad):
     batch = ParamBatch.from_models([Model("triangular", t=0.1, V=1.0, mu=3.0)])
     with pytest.raises(ConfigError, match="branch_every"):
         solve_cmf_batch(batch, cluster="tri3", branch_every=bad)
+
+
+def test_lowest_branch_change_forces_the_full_seed_set():
+    # mu line through half filling at t = 0.1 V: the supersolids below and above 1/2 (particle-hole
+    # images of each other, exact for hard-core bosons at mu = 3 V) are both tracked as condensed
+    # branches and cross at mu = 3 V (first-order jump of the filling, 0.42 -> 0.60); the point
+    # where the lowest branch changes must be solved with the full seed set (a new state may win
+    # there), and the answers must equal the full seed set's everywhere (continuation practice,
+    # no source)
+    models = [Model("triangular", t=0.1, V=1.0, mu=2.53 + 0.08 * k) for k in range(13)]
+    batch, ref, new = _pair(models, every=100)
+    e0, ok0, lab0 = _winners(ref)
+    e1, ok1, lab1 = _winners(new)
+    assert ok0.all() and np.array_equal(ok0, ok1) and np.abs(e1 - e0).max() < 1e-9 and list(lab0) == list(lab1)
+    k0 = ref.best()
+    P = np.arange(batch.size)
+    fill = ref.n[P, k0].mean(1)
+    jump = next(p for p in range(1, batch.size) if fill[p] - fill[p - 1] > 0.1)  # first order at mu = 3 V
+    assert batch.mu[jump - 1] < 3.0 < batch.mu[jump] and ref.phi[jump - 1, k0[jump - 1]].max() > 1e-3 \
+        and ref.phi[jump, k0[jump]].max() > 1e-3  # supersolid -> supersolid, both condensed
+    assert new.branch_stats.get("winner", 0) >= 1
+    assert (new.iterations[jump] > 0).all()  # every seed solved where the lowest branch changed
