@@ -201,7 +201,7 @@ def _ground(indptr, indices, data, v, tol, Q, w, cnt, rows, base, term, occ, S, 
 
 @njit(cache=True)
 def _row(r, t, V, V2, d0, M, M2, occ, indptr, indices, rows, base, term, diag_pos, x0, v0, nmax, tol, eig_tol,
-         max_iter, mixing, m, patience, drop, xout, vout, iters, resid, conv, products):
+         max_iter, mixing, m, patience, drop, xout, vout, iters, resid, conv, products, r0):
     D = x0.shape[1]
     S = D // 2
     F = t.shape[1]
@@ -219,7 +219,7 @@ def _row(r, t, V, V2, d0, M, M2, occ, indptr, indices, rows, base, term, diag_po
     dg = np.empty(dim)
     best = np.inf
     last = 0
-    res = np.inf
+    res = r0[r]  # residual assumed at the start (inf: cold), sets the first inner tolerance
     it = 0
     done = False
     tr, Vr, V2r, d0r = t[r], V[r], V2[r], d0[r]
@@ -265,13 +265,13 @@ def _row(r, t, V, V2, d0, M, M2, occ, indptr, indices, rows, base, term, diag_po
 
 @njit(parallel=True, cache=True)
 def _rows(t, V, V2, d0, M, M2, occ, indptr, indices, rows, base, term, diag_pos, x0, v0, nmax, tol, eig_tol,
-          max_iter, mixing, m, patience, drop, xout, vout, iters, resid, conv, products):
+          max_iter, mixing, m, patience, drop, xout, vout, iters, resid, conv, products, r0):
     for r in prange(x0.shape[0]):
         _row(r, t, V, V2, d0, M, M2, occ, indptr, indices, rows, base, term, diag_pos, x0, v0, nmax, tol, eig_tol,
-             max_iter, mixing, m, patience, drop, xout, vout, iters, resid, conv, products)
+             max_iter, mixing, m, patience, drop, xout, vout, iters, resid, conv, products, r0)
 
 
-def solve_point_rows(ops, M, M2, t, V, V2, d0, x0, v0, opt, n_max: int):
+def solve_point_rows(ops, M, M2, t, V, V2, d0, x0, v0, opt, n_max: int, r0=None):
     """Self-consistency of R independent rows (T = 0, Lanczos), in parallel over the cores.
 
     Parameters
@@ -283,6 +283,9 @@ def solve_point_rows(ops, M, M2, t, V, V2, d0, x0, v0, opt, n_max: int):
         Parameter part of every row's diagonal (chemical potential, intra-cluster interactions).
     x0 : (R, 2S) start iterates; v0 : (R, dim) start vectors of the first Lanczos solve
     opt : CMFOptions
+    r0 : (R,) array, optional
+        Self-consistency residual assumed at each start (default inf): the first inner Lanczos
+        tolerance is ``max(eig_tol, 1e-3 min(r0, 1))``, as for every later iteration.
 
     Returns
     -------
@@ -296,13 +299,14 @@ def solve_point_rows(ops, M, M2, t, V, V2, d0, x0, v0, opt, n_max: int):
     resid = np.full(R, np.inf)
     conv = np.zeros(R, np.bool_)
     products = np.zeros(R, np.int64)
+    r0 = np.full(R, np.inf) if r0 is None else np.asarray(r0, float)
     with numba.parallel_chunksize(1):
         _rows(np.ascontiguousarray(t, float), np.ascontiguousarray(V, float), np.ascontiguousarray(V2, float),
               np.ascontiguousarray(d0, float), np.ascontiguousarray(M, float), np.ascontiguousarray(M2, float),
               np.ascontiguousarray(ops.occ), *_pattern(ops), np.ascontiguousarray(x0, float), np.ascontiguousarray(v0, float),
               int(n_max), float(opt.tol), float(opt.eig_tol), int(opt.max_iter), float(opt.mixing),
               max(int(opt.anderson), 0), int(opt.patience), float(opt.stall_drop), xout, vout, iters, resid, conv,
-              products)
+              products, r0)
     return xout, vout, iters, resid, conv, products
 
 
