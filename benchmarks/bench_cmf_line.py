@@ -60,9 +60,10 @@ def _run(batch, cl, seeds, **kw):
     P = batch.size
     warm, warm_cpu = ((t2 - t1) - (t1 - t0)) / (P - 1), ((c2 - c1) - (c1 - c0)) / (P - 1)
     st = getattr(r, "branch_stats", None)
-    it_all = st["iterations"] if st else int(r.iterations.sum())
+    own = np.ones(len(seeds), bool) if getattr(r, "seed_images", None) is None else r.seed_images < 0
+    it_all = st["iterations"] if st else int(r.iterations[:, own].sum())  # rows solved, not images
     return r, dict(cold=t1 - t0, warm=warm, warm_cpu=warm_cpu, it_cold=int(first.iterations.sum()),
-                   it_warm=(it_all - int(first.iterations.sum())) / (P - 1))
+                   it_warm=(it_all - int(first.iterations[:, own].sum())) / (P - 1))
 
 
 def _winners(r):

@@ -108,7 +108,6 @@ def test_images_need_equal_couplings_on_exchanged_families_and_half_filling():
 LINES = {
     "tri3 t, mu = 3": ("tri3", [Model("triangular", t=0.05 + 0.01 * k, V=1.0, mu=3.0) for k in range(30)]),
     "tri6 t, mu = 3": ("tri6", [Model("triangular", t=0.05 + 0.01 * k, V=1.0, mu=3.0) for k in range(20)]),
-    "tri6 mu, t = 0.15": ("tri6", [Model("triangular", t=0.15, V=1.0, mu=-0.5 + 0.15 * k) for k in range(40)]),
 }
 
 
@@ -128,3 +127,11 @@ def test_seed_images_give_the_answers_of_every_seed_solved(line):
     assert ok0.all() and np.array_equal(ok0, ok1)
     assert np.abs(ref.energy[P, k0] - new.energy[P, k1]).max() < 1e-9
     assert list(lab0) == list(lab1)
+    # every row of an image seed that converged in both is the reference's row of that seed
+    # (solver tolerance 1e-9 on the map residual; states to 1e-6, energies to 1e-9)
+    img = new.seed_images >= 0
+    both = ref.converged[:, img] & new.converged[:, img]
+    assert both.sum() >= 20
+    for key, tol in (("energy", 1e-9), ("n", 1e-6), ("phi", 1e-6)):
+        d = np.abs(getattr(ref, key)[:, img] - getattr(new, key)[:, img])
+        assert d[both].max() < tol, key
