@@ -59,6 +59,7 @@ _SOLVER_RANGES = {
     "memory_mb": ("float", 0.0, 10**7, True), "max_dim": ("int", 1, 2**31, False),
     "continuation": ("bool",), "patterns": ("strings",), "T": ("float", 0.0, 1e6, False),
     "thermal_max_dim": ("int", 1, 2**16, False), "branch_every": ("int", 0, 10**6, False),
+    "symmetry": ("bool",),
 }
 _THRESHOLD_RANGES = {"condensate_tol": ("float", 0.0, 1.0, True), "contrast_tol": ("float", 0.0, 1.0, True),
                      "integer_tol": ("float", 0.0, 0.5, True), "max_denominator": ("int", 1, 1000, False),

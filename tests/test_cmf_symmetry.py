@@ -135,3 +135,12 @@ def test_seed_images_give_the_answers_of_every_seed_solved(line):
     for key, tol in (("energy", 1e-9), ("n", 1e-6), ("phi", 1e-6)):
         d = np.abs(getattr(ref, key)[:, img] - getattr(new, key)[:, img])
         assert d[both].max() < tol, key
+
+
+@pytest.mark.parametrize("bad", ["yes", 1, None])
+def test_bad_symmetry_option_is_a_config_error(bad):
+    from phasemap.model import ConfigError
+
+    batch = ParamBatch.from_models([Model("triangular", t=0.1, V=1.0, mu=3.0)])
+    with pytest.raises(ConfigError, match="symmetry"):
+        solve_cmf_batch(batch, cluster="tri3", symmetry=bad)

@@ -101,6 +101,13 @@ def test_bad_branch_every_names_the_field():
     assert "branch_every" in str(err.value) and ">= 0" in str(err.value), str(err.value)
 
 
+def test_bad_symmetry_names_the_field():
+    text = GOOD.replace('kind = "map"', 'kind = "map"\nmethod = "cmf:tri3"').replace("[scan]", '[solver]\nsymmetry = "yes"\n[scan]', 1)
+    with pytest.raises(ConfigError) as err:
+        _parse(text)
+    assert "symmetry" in str(err.value), str(err.value)
+
+
 def test_curve_must_scan_mu():
     text = GOOD.replace('kind = "map"', 'kind = "curve"').replace(
         'y = {name = "mu", start = -1.0, stop = 7.0, num = 5}\n', "")

@@ -177,6 +177,8 @@ class CMFOptions:
                 or not 0 <= self.branch_every <= 10**6:
             raise ConfigError(f"cmf options: branch_every must be an integer 0 ... 1000000 (0: off), "
                               f"got {self.branch_every!r}")
+        if not isinstance(self.symmetry, (bool, np.bool_)):
+            raise ConfigError(f"cmf options: symmetry must be true or false, got {self.symmetry!r}")
 
 
 @dataclass
