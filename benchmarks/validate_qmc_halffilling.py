@@ -31,6 +31,9 @@ import sys
 import time
 
 sys.path.insert(0, os.path.join(os.path.dirname(os.path.abspath(__file__)), ".."))
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+
+from _halffilling_args import add_sampler_args, sampler_run_options  # noqa: E402
 
 REFERENCE = 0.112  # Wessel & Troyer 2005; Heidarian & Damle 2005 (from memory)
 
@@ -55,19 +58,8 @@ def main(argv=None) -> int:
     p.add_argument("--seed", type=int, default=1)
     p.add_argument("--workers", type=int, default=None)
     p.add_argument("--out", default="validate-hf")
-    p.add_argument("--replicas", type=int, default=1,
-                   help="replica exchange: replicas per chain (default 1 = off; docs/qmc.md, Replica exchange)")
-    p.add_argument("--mu-step", type=float, default=None, dest="mu_step", help="mu ladder spacing (default: run_qmc)")
-    p.add_argument("--T-hot", type=float, default=None, dest="T_hot", help="temperature ladder up to T_HOT instead")
-    p.add_argument("--fixed-filling", type=float, default=0.5, dest="fixed_filling",
-                   help="sample at the fixed particle number nearest FILLING x sites (default 0.5: half filling, "
-                        "the ensemble of mu = 3V; docs/qmc.md, Fixed particle number)")
-    p.add_argument("--grand-canonical", action="store_true", dest="grand_canonical",
-                   help="sample the particle number at mu = 3V instead (slow between |N - N_sites/2| sectors "
-                        "at these temperatures, docs/qmc.md)")
+    add_sampler_args(p)
     a = p.parse_args(argv)
-    if a.grand_canonical:
-        a.fixed_filling = None
     _, tv = parse_scan(f"t={a.t}")
     m = Model("triangular", t=float(tv[0]), V=1.0, mu=3.0)
     t0, c0 = time.perf_counter(), os.times()
@@ -75,9 +67,7 @@ def main(argv=None) -> int:
         ckpt = a.checkpoint or os.path.join(a.out, "chains")
         scan = scan_crossing(m, "t", tv, sizes=a.sizes, beta_L=a.beta_L, sweeps=a.sweeps, bins=a.bins, seed=a.seed,
                              workers=a.workers, thermalization=a.thermalization, chains=a.chains,
-                             run_options={"checkpoint": ckpt, "checkpoint_interval": 30.0,
-                                          "replicas": a.replicas, "mu_step": a.mu_step, "T_hot": a.T_hot,
-                                          "fixed_filling": a.fixed_filling})
+                             run_options=sampler_run_options(a, ckpt))
         wall = time.perf_counter() - t0
         c1 = os.times()
         cpu = (c1.children_user + c1.children_system + c1.user + c1.system
