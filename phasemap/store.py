@@ -680,6 +680,10 @@ class ChunkStore:
         folder = Path(folder)
         for p in folder.glob("chunk_*.npz"):
             p.unlink()
+        for pattern in (".chunk_*.tmp.npz", f".{cls.MANIFEST}.*.tmp*"):  # atomic_path temporaries of a killed run
+            for p in folder.glob(pattern):
+                with contextlib.suppress(FileNotFoundError):
+                    p.unlink()
         shutil.rmtree(folder / cls.INNER, ignore_errors=True)
         with contextlib.suppress(FileNotFoundError):
             (folder / cls.MANIFEST).unlink()

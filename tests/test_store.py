@@ -115,6 +115,23 @@ def test_chunkstore_save_load_and_mismatch(tmp_path):
     assert again.chunks() == []
 
 
+def test_chunkstore_remove_takes_the_temporaries_of_a_killed_writer(tmp_path):
+    # a run SIGKILLed inside ChunkStore.save leaves atomic_path's temporary file behind; the folder must
+    # still go away when the resumed run finishes (seen once in CI: tests/test_resume_kill.py)
+    params = {"model": {"t": [0.1]}, "chunk": 4}
+    ck = ChunkStore(tmp_path / "ck", params)
+    ck.save(0, {"x": np.arange(3.0)})
+    with pytest.raises(KeyboardInterrupt), atomic_path(ck.folder / "chunk_00001.npz") as tmp:
+        tmp.write_bytes(b"half")
+        left = tmp
+        raise KeyboardInterrupt
+    stale = ck.folder / left.name  # what SIGKILL would have left (atomic_path cleans up on exceptions)
+    stale.write_bytes(b"half")
+    assert ck.chunks() == [0]  # the temporary is not a chunk
+    ck.remove()
+    assert not ck.folder.exists()
+
+
 class _Interrupting:
     """Checkpoint wrapper that raises after ``stop_after`` saves (a simulated crash)."""
 
