@@ -57,11 +57,11 @@ def automorphisms(cl) -> list[tuple[np.ndarray, tuple]]:
 
     S, F = cl.n_sites, cl.lattice.n_families
     ref = _bond_sets(cl, list(range(F)))
+    sig = lambda ms, a: tuple(sorted(tuple(np.sort(m[a])) for m in ms))  # noqa: E731
+    sig_a = [sig(ref, a) for a in range(S)]
     out = []
     for fam in permutations(range(F)):
         mats = _bond_sets(cl, list(fam))  # the same bonds, families renamed
-        sig = lambda ms, a: tuple(sorted(tuple(np.sort(m[a])) for m in ms))  # noqa: E731
-        sig_a = [sig(ref, a) for a in range(S)]
         sig_b = [sig(mats, b) for b in range(S)]
         perm = -np.ones(S, np.int64)
         used = np.zeros(S, bool)
@@ -119,6 +119,11 @@ def apply(g, n, phi, n_max: int = 1):
     return n2, phi2
 
 
+def _maps_onto(image, seed) -> bool:
+    n, phi = image
+    return np.allclose(n, seed.n0, rtol=0, atol=1e-12) and np.allclose(phi, seed.phi0, rtol=0, atol=1e-12)
+
+
 def seed_images(seeds, cl, batch, n_max: int):
     """For every seed, ``(k, g)`` when it is the image ``g(seed k)`` of an earlier seed ``k`` under
     a symmetry of every point of ``batch`` (None: solved itself). ``g = (perm, fam, ph)``."""
@@ -135,9 +140,7 @@ def seed_images(seeds, cl, batch, n_max: int):
             if out[k] is not None:
                 continue
             sk = seeds[k]
-            hit = next((g for g in ops[1:] + ops[:1]
-                        if np.allclose(apply(g, sk.n0, sk.phi0, n_max)[0], sj.n0, rtol=0, atol=1e-12)
-                        and np.allclose(apply(g, sk.n0, sk.phi0, n_max)[1], sj.phi0, rtol=0, atol=1e-12)), None)
+            hit = next((g for g in ops[1:] + ops[:1] if _maps_onto(apply(g, sk.n0, sk.phi0, n_max), sj)), None)
             if hit is not None:
                 out[j] = (k, hit)
                 break
