@@ -24,7 +24,7 @@ from phasemap import Model
 from phasemap.cmf import cluster_seeds, get_cluster, solve_cmf_batch
 from phasemap.cmf.batch import BatchProblem, _reference_vector
 from phasemap.cmf.hamiltonian import cluster_operators
-from phasemap.cmf.kernel import _ground, _workspace, anderson_workspace, mix_and_clip
+from phasemap.cmf.kernel import _ground, _workspace, anderson_workspace, mix_and_clip, warm_workspace
 from phasemap.cmf.selfconsistency import CMFOptions
 from phasemap.params import grid
 
@@ -45,12 +45,14 @@ def _rows(t, V, U, V2, mu, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter,
         H = np.empty((dim, dim))
         g = np.empty(dim)
         ws = _workspace(dim)
+        wws = warm_workspace(dim)
         best = np.inf
         last = 0
         it = 0
         while it < max_iter:
             it += 1
-            _ground(x, t[r], V[r], U[r], V2[r], mu[r], 1, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H, g, gx, ws)
+            _ground(x, t[r], V[r], U[r], V2[r], mu[r], 1, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H, g, gx, ws, it > 1,
+                    wws)
             res = 0.0
             for d in range(D):
                 f[d] = gx[d] - x[d]

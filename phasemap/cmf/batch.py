@@ -308,7 +308,7 @@ def solve_rows(prob: BatchProblem, x0, opt, n_max: int, dense: bool, rng=0):
     if dense and getattr(opt, "compiled", False):
         from .kernel import iterate_dense_rows
 
-        x_out, iters, resid, conv = iterate_dense_rows(prob, x0, opt, n_max, _reference_vector(ops.dim))
+        x_out, iters, resid, conv, _ = iterate_dense_rows(prob, x0, opt, n_max, _reference_vector(ops.dim))
         _, _, ex = G_of(prob, x_out, None, None)
         E = prob.energy(ex["n"], ex["phi"], ex["hop"], ex["U"], ex["V"], ex["V2"])
         return dict(energy=E, converged=conv, iterations=iters.astype(int), residual=resid, n=ex["n"],

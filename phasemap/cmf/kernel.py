@@ -103,6 +103,135 @@ def lowest_eigenpairs(H, thr_rel=1e-10):
 
 
 @njit(cache=True)
+def warm_workspace(dim):
+    """Work arrays of :func:`_ground_warm` ``(A, L, y, hv)`` and of :func:`_ground` (the last two
+    states; NaN: none yet)."""
+    return (np.empty((dim, dim)), np.zeros((dim, dim)), np.empty(dim), np.empty(dim), np.empty(dim),
+            np.full(dim, np.nan))
+
+
+@njit(cache=True)
+def _cholesky(A, L):
+    """Lower Cholesky factor of the symmetric ``A`` into ``L``; False if ``A`` is not positive
+    definite (a pivot <= 0: by Sylvester's law of inertia, ``A`` has an eigenvalue <= 0)."""
+    n = A.shape[0]
+    for j in range(n):
+        s = A[j, j]
+        for k in range(j):
+            s -= L[j, k] * L[j, k]
+        if not s > 0.0:
+            return False
+        d = np.sqrt(s)
+        L[j, j] = d
+        for i in range(j + 1, n):
+            s = A[i, j]
+            for k in range(j):
+                s -= L[i, k] * L[j, k]
+            L[i, j] = s / d
+    return True
+
+
+@njit(cache=True)
+def _cholesky_solve(L, b, y):
+    n = L.shape[0]
+    for i in range(n):
+        s = b[i]
+        for k in range(i):
+            s -= L[i, k] * y[k]
+        y[i] = s / L[i, i]
+    for i in range(n - 1, -1, -1):
+        s = y[i]
+        for k in range(i + 1, n):
+            s -= L[k, i] * y[k]
+        y[i] = s / L[i, i]
+
+
+@njit(cache=True)
+def _rayleigh(H, v, hv):
+    """Rayleigh quotient of the unit ``v`` and the norm of its residual ``H v - rho v``."""
+    n = H.shape[0]
+    for i in range(n):
+        s = 0.0
+        for j in range(n):
+            s += H[i, j] * v[j]
+        hv[i] = s
+    rho = 0.0
+    for i in range(n):
+        rho += v[i] * hv[i]
+    r2 = 0.0
+    for i in range(n):
+        d = hv[i] - rho * v[i]
+        r2 += d * d
+    return rho, np.sqrt(r2)
+
+
+#: inverse-iteration steps of the warm ground state before it gives up
+WARM_STEPS = 6
+
+
+@njit(cache=True)
+def _ground_warm(H, v, thr_rel, wws):
+    """Ground state of ``H`` by inverse iteration from the unit vector ``v`` (the previous
+    iteration's ground state; overwritten by the result), certified or refused.
+
+    Each step shifts below the Rayleigh quotient ``rho`` by the residual norm ``r`` (an
+    eigenvalue lies within ``r`` of ``rho``): the Cholesky factorisation of ``H - s`` exists
+    only if every level lies above ``s``, so a start near an excited state (the ground state
+    moved to another particle-number sector) is refused instead of followed. Converged when
+    ``r <= 1e-14 ||H||_inf`` (the accuracy of a dense solver). The ground level must be
+    non-degenerate: ``H + a v v^T - (rho + c)`` with ``c = thr_rel max(1, |rho|) + 2 r`` must be
+    positive definite (second level above the degeneracy threshold of :func:`_lowest`).
+    Returns False when not certified: the caller solves ``H`` from scratch.
+    """
+    A, L, y, hv = wws[0], wws[1], wws[2], wws[3]
+    n = H.shape[0]
+    hs = 0.0
+    for i in range(n):
+        rs = 0.0
+        for j in range(n):
+            rs += abs(H[i, j])
+        hs = max(hs, rs)
+    tol = 1e-14 * hs
+    rho, r = _rayleigh(H, v, hv)
+    for _ in range(WARM_STEPS):
+        if r <= tol:
+            break
+        s = rho - r - 1e-13 * hs
+        for i in range(n):
+            for j in range(n):
+                A[i, j] = H[i, j]
+            A[i, i] -= s
+        if not _cholesky(A, L):
+            return False
+        _cholesky_solve(L, v, y)
+        nrm = 0.0
+        for i in range(n):
+            nrm += y[i] * y[i]
+        nrm = np.sqrt(nrm)
+        for i in range(n):
+            v[i] = y[i] / nrm
+        rho, r = _rayleigh(H, v, hv)
+    if not r <= tol:
+        return False
+    c = thr_rel * max(1.0, abs(rho)) + 2.0 * r
+    a = 2.0 * hs + 1.0
+    for i in range(n):
+        for j in range(n):
+            A[i, j] = H[i, j] + a * v[i] * v[j]
+        A[i, i] -= rho + c
+    return _cholesky(A, L)
+
+
+def warm_ground_state(H, v0, thr_rel=1e-10):
+    """Python access to the certified warm ground state (tests): ``(ok, v)``."""
+    H = np.ascontiguousarray(H, float)
+    v = np.array(v0, float)
+    v /= np.linalg.norm(v)
+    ok = _ground_warm(H, v, thr_rel, warm_workspace(H.shape[0]))
+    return bool(ok), v
+
+
+@njit(cache=True)
 def boundary_fields(x, t, V, V2, M, M2, Phi, eps):
     """Boundary fields of the iterate ``x = (n, phi)``: ``Phi_a = sum_f t_f (M_f phi)_a`` and
     ``eps_a = sum_f V_f (M_f n)_a + V2 (M2 n)_a`` (decoupled bonds, ``Cluster.inter_matrices``)."""
@@ -151,8 +280,44 @@ def mix_and_clip(x, f, ws, it, m, mixing, nmax):
 
 
 @njit(cache=True)
-def _ground(x, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H, g, out, ws):
-    """Map one iterate ``x`` (2S) to the ground state's (n, phi) in ``out``; ``g`` receives the state."""
+def _pick(H, u, g, ws):
+    """Ground state of ``H`` (destroyed) from its lowest eigenpairs into ``g``: in a degenerate
+    ground space the projection of the reference vector ``u`` (:func:`phasemap.cmf.batch.pick_ground`)."""
+    dim = H.shape[0]
+    k, w, v = _lowest(H, 1e-10, ws)
+    thr = 1e-10 * max(1.0, abs(w[0]))
+    for i in range(dim):
+        g[i] = 0.0
+    for j in range(k):
+        if w[j] - w[0] > thr:
+            break
+        cj = 0.0
+        for i in range(dim):
+            cj += v[j, i] * u[i]
+        for i in range(dim):
+            g[i] += cj * v[j, i]
+    nrm = 0.0
+    for i in range(dim):
+        nrm += g[i] * g[i]
+    nrm = np.sqrt(nrm)
+    if nrm > 1e-8:
+        for i in range(dim):
+            g[i] /= nrm
+    else:
+        for i in range(dim):
+            g[i] = v[0, i]
+
+
+@njit(cache=True)
+def _ground(x, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H, g, out, ws, warm, wws):
+    """Map one iterate ``x`` (2S) to the ground state's (n, phi) in ``out``; ``g`` receives the state.
+
+    With ``warm``, ``g`` holds the previous iteration's state and is first refined by
+    :func:`_ground_warm`, if refused the state of the iteration before (kept in ``wws``: rows
+    whose ground state alternates between two particle-number sectors); only if both are
+    refused are the lowest eigenpairs solved (``_lowest``)
+    and the state picked as in :func:`phasemap.cmf.batch.pick_ground`. Returns True if the warm
+    path was refused or not tried (a full eigensolve)."""
     dim = B.shape[1]
     K = B.shape[0]
     for i in range(dim):
@@ -177,28 +342,20 @@ def _ground(x, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H
     for a in range(S):
         for i in range(dim):
             H[i, i] += eps[a] * occ[a, i]
-    k, w, v = _lowest(H, 1e-10, ws)
-    thr = 1e-10 * max(1.0, abs(w[0]))
-    for i in range(dim):
-        g[i] = 0.0
-    for j in range(k):
-        if w[j] - w[0] > thr:
-            break
-        cj = 0.0
+    full = True
+    if warm:  # the previous state, else the one before it (rows hopping between two sectors)
+        g1, g2 = wws[4], wws[5]
         for i in range(dim):
-            cj += v[j, i] * u[i]
+            g1[i] = g[i]
+        full = not _ground_warm(H, g, 1e-10, wws)
+        if full and g2[0] == g2[0]:
+            for i in range(dim):
+                g[i] = g2[i]
+            full = not _ground_warm(H, g, 1e-10, wws)
         for i in range(dim):
-            g[i] += cj * v[j, i]
-    nrm = 0.0
-    for i in range(dim):
-        nrm += g[i] * g[i]
-    nrm = np.sqrt(nrm)
-    if nrm > 1e-8:
-        for i in range(dim):
-            g[i] /= nrm
-    else:
-        for i in range(dim):
-            g[i] = v[0, i]
+            g2[i] = g1[i]
+    if full:
+        _pick(H, u, g, ws)
     sg = 0.0
     for i in range(dim):
         sg += g[i]
@@ -218,11 +375,12 @@ def _ground(x, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H
                     s += B[F + a, i, j] * g[j]
                 ph += g[i] * s
         out[S + a] = 0.5 * ph
+    return full
 
 
 @njit(cache=True)
 def _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m, patience,
-         drop, xout, iters, resid, conv):
+         drop, xout, iters, resid, conv, nfull):
     D = x0.shape[1]
     S = D // 2
     F = t.shape[1]
@@ -234,6 +392,7 @@ def _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, m
     H = np.empty((dim, dim))
     g = np.empty(dim)
     ws = _workspace(dim)
+    wws = warm_workspace(dim)
     best = np.inf
     last = 0
     res = np.inf
@@ -241,7 +400,9 @@ def _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, m
     done = False
     while it < max_iter:
         it += 1
-        _ground(x, t[r], V[r], U[r], V2[r], mu[r], nmax, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H, g, gx, ws)
+        if _ground(x, t[r], V[r], U[r], V2[r], mu[r], nmax, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H, g, gx, ws,
+                   it > 1, wws):
+            nfull[r] += 1
         res = 0.0
         for d in range(D):
             f[d] = gx[d] - x[d]
@@ -271,18 +432,18 @@ def _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, m
 
 @njit(cache=True)
 def _rows_serial(t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m, patience,
-                 drop, xout, iters, resid, conv):
+                 drop, xout, iters, resid, conv, nfull):
     for r in range(x0.shape[0]):
         _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m, patience,
-             drop, xout, iters, resid, conv)
+             drop, xout, iters, resid, conv, nfull)
 
 
 @njit(parallel=True, cache=True)
 def _rows_parallel(t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m,
-                   patience, drop, xout, iters, resid, conv):
+                   patience, drop, xout, iters, resid, conv, nfull):
     for r in prange(x0.shape[0]):
         _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m, patience,
-             drop, xout, iters, resid, conv)
+             drop, xout, iters, resid, conv, nfull)
 
 
 #: below this many rows the threads' hand-off costs more than it saves (a row costs ~0.1-2 ms)
@@ -295,8 +456,10 @@ CHUNK_ROWS = 4
 def iterate_dense_rows(prob, x0, opt, n_max: int, u):
     """Iterate every row of ``x0`` (R, 2S) of :class:`~phasemap.cmf.batch.BatchProblem` ``prob``.
 
-    Returns ``(x_end, iterations, residual, converged)``: converged rows end on the map of
-    their last iterate, stalled or capped rows on their last iterate (as in ``solve_rows``).
+    Returns ``(x_end, iterations, residual, converged, full_solves)``: converged rows end on
+    the map of their last iterate, stalled or capped rows on their last iterate (as in
+    ``solve_rows``); ``full_solves`` counts each row's iterations whose ground state needed the
+    full eigensolve (the first one, and those where the warm refinement was refused).
     """
     ops = prob.ops
     R = len(x0)
@@ -304,18 +467,19 @@ def iterate_dense_rows(prob, x0, opt, n_max: int, u):
     iters = np.zeros(R, np.int64)
     resid = np.full(R, np.inf)
     conv = np.zeros(R, np.bool_)
+    nfull = np.zeros(R, np.int64)
     parallel = R >= PARALLEL_MIN_ROWS and numba.get_num_threads() > 1
     run = _rows_parallel if parallel else _rows_serial
     with numba.parallel_chunksize(CHUNK_ROWS if parallel else 0):
-        _call(run, prob, ops, x0, opt, n_max, u, xout, iters, resid, conv)
-    return xout, iters, resid, conv
+        _call(run, prob, ops, x0, opt, n_max, u, xout, iters, resid, conv, nfull)
+    return xout, iters, resid, conv, nfull
 
 
-def _call(run, prob, ops, x0, opt, n_max, u, xout, iters, resid, conv):
+def _call(run, prob, ops, x0, opt, n_max, u, xout, iters, resid, conv, nfull):
     run(np.ascontiguousarray(prob.t), np.ascontiguousarray(prob.V), np.ascontiguousarray(prob.U, float),
         np.ascontiguousarray(prob.V2, float), np.ascontiguousarray(prob.mu, float), int(n_max),
         np.ascontiguousarray(prob.M), np.ascontiguousarray(prob.M2), ops.dense_terms(), np.ascontiguousarray(ops.occ),
         ops.diag_N.astype(float), np.ascontiguousarray(ops.diag_V), ops.diag_V2.astype(float),
         ops.diag_U.astype(float), np.asarray(u, float), np.ascontiguousarray(x0, dtype=float), float(opt.tol),
         int(opt.max_iter), float(opt.mixing), max(int(opt.anderson), 0), int(opt.patience), float(opt.stall_drop),
-        xout, iters, resid, conv)
+        xout, iters, resid, conv, nfull)
