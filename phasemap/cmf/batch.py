@@ -23,6 +23,9 @@ batch: every row starts from its seed (or from ``init``).
 
 from __future__ import annotations
 
+import os
+from concurrent.futures import ThreadPoolExecutor
+
 import numpy as np
 
 from ..mixing import Anderson, StallWatch
@@ -267,6 +270,20 @@ class _GroundStates:
                     V2=p @ ops.diag_V2, top=p @ self.top.T)
 
 
+#: below this many rows the final states are evaluated in one call, above in two threads
+THREADS_MIN_ROWS = 4096
+
+
+def _in_threads(fn, R: int) -> dict:
+    """``fn(rows)`` (a dict of per-row arrays) over all ``R`` rows, in two halves on two threads
+    when ``R >= THREADS_MIN_ROWS`` (NumPy's LAPACK and einsum calls release the GIL)."""
+    if R < THREADS_MIN_ROWS or (os.cpu_count() or 1) < 2:
+        return fn(np.arange(R))
+    with ThreadPoolExecutor(2) as pool:
+        parts = list(pool.map(fn, np.array_split(np.arange(R), 2)))
+    return {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
+
+
 def solve_rows(prob: BatchProblem, x0, opt, n_max: int, dense: bool, rng=0):
     """Self-consistency of every row of ``prob`` from ``x0`` (R, 2S) (densities, condensates).
 
@@ -309,7 +326,7 @@ def solve_rows(prob: BatchProblem, x0, opt, n_max: int, dense: bool, rng=0):
         from .kernel import iterate_dense_rows
 
         x_out, iters, resid, conv, _ = iterate_dense_rows(prob, x0, opt, n_max, _reference_vector(ops.dim))
-        _, _, ex = G_of(prob, x_out, None, None)
+        ex = _in_threads(lambda i: G_of(prob.take(i), x_out[i], None, None)[2], R)
         E = prob.energy(ex["n"], ex["phi"], ex["hop"], ex["U"], ex["V"], ex["V2"])
         return dict(energy=E, converged=conv, iterations=iters.astype(int), residual=resid, n=ex["n"],
                     phi=ex["phi"], top=ex["top"].max(1))
