@@ -181,7 +181,7 @@ def _ground_warm(H, v, thr_rel, wws):
     eigenvalue lies within ``r`` of ``rho``): the Cholesky factorisation of ``H - s`` exists
     only if every level lies above ``s``, so a start near an excited state (the ground state
     moved to another particle-number sector) is refused instead of followed. Converged when
-    ``r <= 1e-14 ||H||_inf`` (the accuracy of a dense solver). The ground level must be
+    ``r <= 1e-15 ||H||_inf`` (about the accuracy of a dense solver). The ground level must be
     non-degenerate: ``H + a v v^T - (rho + c)`` with ``c = thr_rel max(1, |rho|) + 2 r`` must be
     positive definite (second level above the degeneracy threshold of :func:`_lowest`).
     Returns False when not certified: the caller solves ``H`` from scratch.
@@ -194,7 +194,7 @@ def _ground_warm(H, v, thr_rel, wws):
         for j in range(n):
             rs += abs(H[i, j])
         hs = max(hs, rs)
-    tol = 1e-14 * hs
+    tol = 1e-15 * hs
     rho, r = _rayleigh(H, v, hv)
     for _ in range(WARM_STEPS):
         if r <= tol:
