@@ -104,3 +104,23 @@ def test_compiled_rows_take_the_warm_path():
     assert conv.all() and (iters >= 5).all()
     assert full.sum() <= 0.3 * iters.sum()
     assert WARM_MAX_DIM >= 27  # tri3 soft-core (n_max = 2) is refined warm too
+
+
+def test_final_states_in_two_threads_equal_one_call(monkeypatch):
+    # the final states of >= 4,096 compiled rows are evaluated in two halves on two threads:
+    # the halves must be put back in row order (a swapped concatenation fails this)
+    import numba
+
+    import phasemap.cmf.batch as batch_mod
+    from phasemap.params import grid
+
+    if numba.get_num_threads() < 2:
+        pytest.skip("one thread: the two-thread branch does not run")
+    m = Model("triangular", t=0.6, V=(10.0, 10.0, 8.5), mu=0.0, unit="K")
+    batch, _ = grid(m, {"t": np.linspace(0, 0.4, 24), "mu": np.linspace(-1, 7, 24)}, relative=True)
+    two = solve_cmf_batch(batch, cluster="tri3")  # 576 points x 8 seeds = 4,608 rows
+    assert two.energy.size >= batch_mod.THREADS_MIN_ROWS
+    monkeypatch.setattr(batch_mod, "THREADS_MIN_ROWS", 10**9)
+    one = solve_cmf_batch(batch, cluster="tri3")
+    for name in ("energy", "n", "phi", "converged", "iterations"):
+        np.testing.assert_array_equal(getattr(two, name), getattr(one, name))

@@ -23,7 +23,6 @@ batch: every row starts from its seed (or from ``init``).
 
 from __future__ import annotations
 
-import os
 from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
@@ -276,8 +275,11 @@ THREADS_MIN_ROWS = 4096
 
 def _in_threads(fn, R: int) -> dict:
     """``fn(rows)`` (a dict of per-row arrays) over all ``R`` rows, in two halves on two threads
-    when ``R >= THREADS_MIN_ROWS`` (NumPy's LAPACK and einsum calls release the GIL)."""
-    if R < THREADS_MIN_ROWS or (os.cpu_count() or 1) < 2:
+    when ``R >= THREADS_MIN_ROWS`` and this process may use two threads (numba's thread count, which
+    the executor limits per worker); NumPy's LAPACK and einsum calls release the GIL."""
+    import numba
+
+    if R < THREADS_MIN_ROWS or numba.get_num_threads() < 2:
         return fn(np.arange(R))
     with ThreadPoolExecutor(2) as pool:
         parts = list(pool.map(fn, np.array_split(np.arange(R), 2)))
