@@ -10,8 +10,8 @@ convergence and stall tests. Each row runs to its own end inside one compiled lo
 interpreter work per iteration, no waiting for the slowest row). Returns the end iterates; the
 final states and energies are evaluated in NumPy by the caller.
 
-Up to :data:`WARM_MAX_DIM` states, every iteration after the first first refines the previous
-iteration's ground state by inverse iteration (:func:`_ground_warm`) and keeps it only if two
+Up to :data:`WARM_MAX_DIM` states, from a row's second iteration on, the previous iteration's
+ground state is first refined by inverse iteration (:func:`_ground_warm`) and kept only if two
 Cholesky factorisations certify it (every level above the shift; the second level above the
 degeneracy threshold): the certified state is the ground state to the accuracy of a dense solver,
 about 5x cheaper than ``dsyevr`` at 8 states. Refused (a sector change, a degenerate level, a
@@ -325,9 +325,9 @@ def _ground(x, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H
     With ``warm``, ``g`` holds the previous iteration's state and is first refined by
     :func:`_ground_warm`, if refused the state of the iteration before (kept in ``wws``: rows
     whose ground state alternates between two particle-number sectors); only if both are
-    refused are the lowest eigenpairs solved (``_lowest``)
-    and the state picked as in :func:`phasemap.cmf.batch.pick_ground`. Returns True if the warm
-    path was refused or not tried (a full eigensolve)."""
+    refused are the lowest eigenpairs solved (``_lowest``) and the state picked as in
+    :func:`phasemap.cmf.batch.pick_ground`. Returns True if the warm path was refused or not
+    tried (a full eigensolve)."""
     dim = B.shape[1]
     K = B.shape[0]
     for i in range(dim):
