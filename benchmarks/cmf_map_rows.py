@@ -2,10 +2,9 @@
 
 Run:  python benchmarks/cmf_map_rows.py [--n 100]
 
-Solves the demo map of ``bench_cmf_batch.py --only map`` (tri3 hard-core, n x n, 8 seeds) with a
-copy of the compiled dense row (:func:`phasemap.cmf.kernel._row`: same ground-state map, mixing and
-stopping rules) that also records every row's residual for the first ``--keep`` iterations; it
-checks that iteration counts and flags equal the kernel's. A stop rule only truncates a row's
+Solves the demo map of ``bench_cmf_batch.py --only map`` (tri3 hard-core, n x n, 8 seeds) with the
+compiled dense rows (:func:`phasemap.cmf.kernel.iterate_dense_rows`), recording every row's residual
+for the first ``--keep`` iterations; it checks that iteration counts and flags equal the map's. A stop rule only truncates a row's
 trajectory, so replaying the recorded residuals gives its exact effect on this map: the
 iterations left, the converged rows lost and the points whose winning energy (lowest converged
 energy) changes. Also printed: the points whose winner comes only from rows converging after the
@@ -18,57 +17,14 @@ from __future__ import annotations
 import argparse
 
 import numpy as np
-from numba import njit, prange
 
 from phasemap import Model
 from phasemap.cmf import cluster_seeds, get_cluster, solve_cmf_batch
 from phasemap.cmf.batch import BatchProblem, _reference_vector
 from phasemap.cmf.hamiltonian import cluster_operators
-from phasemap.cmf.kernel import _ground, _workspace, anderson_workspace, mix_and_clip, warm_workspace
+from phasemap.cmf.kernel import iterate_dense_rows
 from phasemap.cmf.selfconsistency import CMFOptions
 from phasemap.params import grid
-
-
-@njit(parallel=True)
-def _rows(t, V, U, V2, mu, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m, patience, drop, iters, conv,
-          hres):
-    """:func:`phasemap.cmf.kernel._row` (hard-core) for every row, residuals recorded in ``hres``."""
-    for r in prange(x0.shape[0]):
-        D = x0.shape[1]
-        S = D // 2
-        F = t.shape[1]
-        dim = B.shape[1]
-        x = x0[r].copy()
-        gx = np.empty(D)
-        f = np.empty(D)
-        mws = anderson_workspace(D, m)
-        H = np.empty((dim, dim))
-        g = np.empty(dim)
-        ws = _workspace(dim)
-        wws = warm_workspace(dim)
-        best = np.inf
-        last = 0
-        it = 0
-        while it < max_iter:
-            it += 1
-            _ground(x, t[r], V[r], U[r], V2[r], mu[r], 1, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H, g, gx, ws, it > 1,
-                    wws)
-            res = 0.0
-            for d in range(D):
-                f[d] = gx[d] - x[d]
-                res = max(res, abs(f[d]))
-            if it <= hres.shape[1]:
-                hres[r, it - 1] = res
-            if res < best * drop:
-                best = res
-                last = it
-            if res < tol:
-                conv[r] = True
-                break
-            if it - last > patience:
-                break
-            mix_and_clip(x, f, mws, it, m, mixing, 1)
-        iters[r] = it
 
 
 def main(argv=None) -> int:
@@ -89,14 +45,9 @@ def main(argv=None) -> int:
     prob = BatchProblem(cl, ops, rep(batch.t), rep(batch.V), rep(batch.U), rep(batch.V2), rep(batch.mu), True)
     opt = CMFOptions()
     R = P * K
-    it, c = np.zeros(R, np.int64), np.zeros(R, np.bool_)
     H = np.full((R, a.keep), np.inf)
-    c_ = np.ascontiguousarray
-    _rows(c_(prob.t), c_(prob.V), c_(prob.U, float), c_(prob.V2, float), c_(prob.mu, float), c_(prob.M), c_(prob.M2),
-          ops.dense_terms(), c_(ops.occ), ops.diag_N.astype(float), c_(ops.diag_V), ops.diag_V2.astype(float),
-          ops.diag_U.astype(float), _reference_vector(ops.dim), x0, opt.tol, opt.max_iter, opt.mixing, opt.anderson,
-          opt.patience, opt.stall_drop, it, c, H)
-    assert np.array_equal(it, ref.iterations.ravel()) and np.array_equal(c, ref.converged.ravel()), "copy != kernel"
+    _, it, _, c, _ = iterate_dense_rows(prob, x0, opt, 1, _reference_vector(ops.dim), history=H)
+    assert np.array_equal(it, ref.iterations.ravel()) and np.array_equal(c, ref.converged.ravel()), "rows != map"
     E = ref.energy.ravel()
     tot = it.sum()
     print(f"{R:,} rows, {tot:,} iterations; converged rows {c.mean():.3f} take {it[c].sum() / tot:.3f} of the "

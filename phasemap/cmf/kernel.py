@@ -390,7 +390,7 @@ def _ground(x, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, S, F, H
 
 @njit(cache=True)
 def _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m, patience,
-         drop, xout, iters, resid, conv, nfull):
+         drop, xout, iters, resid, conv, nfull, hres):
     D = x0.shape[1]
     S = D // 2
     F = t.shape[1]
@@ -418,6 +418,8 @@ def _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, m
             f[d] = gx[d] - x[d]
             if abs(f[d]) > res:
                 res = abs(f[d])
+        if it <= hres.shape[1]:
+            hres[r, it - 1] = res
         if res < best * drop:
             best = res
             last = it
@@ -442,18 +444,18 @@ def _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, m
 
 @njit(cache=True)
 def _rows_serial(t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m, patience,
-                 drop, xout, iters, resid, conv, nfull):
+                 drop, xout, iters, resid, conv, nfull, hres):
     for r in range(x0.shape[0]):
         _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m, patience,
-             drop, xout, iters, resid, conv, nfull)
+             drop, xout, iters, resid, conv, nfull, hres)
 
 
 @njit(parallel=True, cache=True)
 def _rows_parallel(t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m,
-                   patience, drop, xout, iters, resid, conv, nfull):
+                   patience, drop, xout, iters, resid, conv, nfull, hres):
     for r in prange(x0.shape[0]):
         _row(r, t, V, U, V2, mu, nmax, M, M2, B, occ, dN, dV, dV2, dU, u, x0, tol, max_iter, mixing, m, patience,
-             drop, xout, iters, resid, conv, nfull)
+             drop, xout, iters, resid, conv, nfull, hres)
 
 
 #: below this many rows the threads' hand-off costs more than it saves (a row costs ~0.1-2 ms)
@@ -463,13 +465,15 @@ PARALLEL_MIN_ROWS = 64
 CHUNK_ROWS = 4
 
 
-def iterate_dense_rows(prob, x0, opt, n_max: int, u):
+def iterate_dense_rows(prob, x0, opt, n_max: int, u, history=None):
     """Iterate every row of ``x0`` (R, 2S) of :class:`~phasemap.cmf.batch.BatchProblem` ``prob``.
 
     Returns ``(x_end, iterations, residual, converged, full_solves)``: converged rows end on
     the map of their last iterate, stalled or capped rows on their last iterate (as in
     ``solve_rows``); ``full_solves`` counts each row's iterations whose ground state needed the
     full eigensolve (the first one, and those where the warm refinement was refused).
+    ``history``, an optional (R, K) float array, receives each row's residual of its first K
+    iterations (``benchmarks/cmf_map_rows.py`` replays stop rules on it).
     """
     ops = prob.ops
     R = len(x0)
@@ -478,18 +482,19 @@ def iterate_dense_rows(prob, x0, opt, n_max: int, u):
     resid = np.full(R, np.inf)
     conv = np.zeros(R, np.bool_)
     nfull = np.zeros(R, np.int64)
+    hres = np.zeros((R, 0)) if history is None else history
     parallel = R >= PARALLEL_MIN_ROWS and numba.get_num_threads() > 1
     run = _rows_parallel if parallel else _rows_serial
     with numba.parallel_chunksize(CHUNK_ROWS if parallel else 0):
-        _call(run, prob, ops, x0, opt, n_max, u, xout, iters, resid, conv, nfull)
+        _call(run, prob, ops, x0, opt, n_max, u, xout, iters, resid, conv, nfull, hres)
     return xout, iters, resid, conv, nfull
 
 
-def _call(run, prob, ops, x0, opt, n_max, u, xout, iters, resid, conv, nfull):
+def _call(run, prob, ops, x0, opt, n_max, u, xout, iters, resid, conv, nfull, hres):
     run(np.ascontiguousarray(prob.t), np.ascontiguousarray(prob.V), np.ascontiguousarray(prob.U, float),
         np.ascontiguousarray(prob.V2, float), np.ascontiguousarray(prob.mu, float), int(n_max),
         np.ascontiguousarray(prob.M), np.ascontiguousarray(prob.M2), ops.dense_terms(), np.ascontiguousarray(ops.occ),
         ops.diag_N.astype(float), np.ascontiguousarray(ops.diag_V), ops.diag_V2.astype(float),
         ops.diag_U.astype(float), np.asarray(u, float), np.ascontiguousarray(x0, dtype=float), float(opt.tol),
         int(opt.max_iter), float(opt.mixing), max(int(opt.anderson), 0), int(opt.patience), float(opt.stall_drop),
-        xout, iters, resid, conv, nfull)
+        xout, iters, resid, conv, nfull, hres)
